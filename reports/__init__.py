@@ -1,0 +1,3 @@
+"""Rendering of result Datasets: terminal tables, HTML and Markdown reports, figures."""
+
+__all__: list[str] = []
