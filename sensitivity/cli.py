@@ -33,6 +33,7 @@ from trapbudget.sensitivity.errors import ScenarioError, TrapbudgetError, UsageE
 __all__ = [
     "SUBCOMMANDS",
     "add_common_options",
+    "add_samples_option",
     "build_parser",
     "emit_json",
     "load",
@@ -112,6 +113,17 @@ def add_common_options(
         )
 
 
+def add_samples_option(parser: argparse.ArgumentParser) -> None:
+    """Add ``--samples N`` (a power of 2; default: the scenario's ``settings.n_samples``)."""
+    parser.add_argument(
+        "--samples",
+        type=_positive_power_of_two,
+        default=None,
+        metavar="N",
+        help="sample size: Monte Carlo n and Saltelli base N (power of 2; default: scenario's)",
+    )
+
+
 def _add_predict(subparsers: argparse._SubParsersAction) -> None:
     p = subparsers.add_parser(
         "predict",
@@ -140,13 +152,7 @@ def _add_rank(subparsers: argparse._SubParsersAction) -> None:
         metavar="DIR",
         help="re-render the report saved in DIR instead of running (same as 'report DIR')",
     )
-    p.add_argument(
-        "--samples",
-        type=_positive_power_of_two,
-        default=None,
-        metavar="N",
-        help="sample size: Monte Carlo n and Saltelli base N (power of 2; default: scenario's)",
-    )
+    add_samples_option(p)
     p.add_argument(
         "--no-convergence",
         dest="convergence",
@@ -189,13 +195,7 @@ def _add_demo(subparsers: argparse._SubParsersAction) -> None:
         description="Write the demo scenario files (an invented lab and apparatus) into a folder, "
         f"overwriting files of the same name, and run 'rank' on {DEMO_SCENARIO}.",
     )
-    p.add_argument(
-        "--samples",
-        type=_positive_power_of_two,
-        default=None,
-        metavar="N",
-        help="sample size (default: the demo scenario's)",
-    )
+    add_samples_option(p)
     add_common_options(p)
     p.set_defaults(run=_run_demo)
 
@@ -279,6 +279,8 @@ def stdout_console(args: argparse.Namespace) -> Any:
 
 def emit_json(obj: Any) -> None:
     """Print ``obj`` as JSON on stdout (numpy scalars and arrays are converted)."""
+    from trapbudget.sensitivity.io import _json_default
+
     sys.stdout.write(json.dumps(obj, indent=2, default=_json_default) + "\n")
     sys.stdout.flush()
 
@@ -335,18 +337,6 @@ def report_dir(args: argparse.Namespace, stem: str) -> Path:
         k += 1
         candidate = base.with_name(f"{base.name}-{k}")
     return candidate
-
-
-def _json_default(obj: Any) -> Any:
-    import numpy as np
-
-    if isinstance(obj, np.generic):
-        return obj.item()
-    if isinstance(obj, np.ndarray):
-        return obj.tolist()
-    if isinstance(obj, Path):
-        return str(obj)
-    raise TypeError(f"cannot serialise {type(obj).__name__} to JSON")
 
 
 # --------------------------------------------------------------------------- subcommands
