@@ -1,0 +1,234 @@
+"""Tests of tolerance allocation (trapbudget.sensitivity.allocate)."""
+
+from __future__ import annotations
+
+import itertools
+import math
+
+import numpy as np
+import pytest
+from scipy import optimize, stats
+
+from trapbudget.sensitivity.allocate import (
+    LinearProblem,
+    TierOption,
+    allocate_tiers,
+    lagrange_allocation,
+    uncertainty_bound,
+)
+
+# ---------------------------------------------------------------- bounds from requirements
+
+
+@pytest.mark.parametrize("p", [0.5, 0.9, 0.95, 0.999])
+def test_at_least_bound_gives_the_required_normal_probability(p):
+    # exact normal tail, scipy.stats.norm.sf (the normal approximation the bound assumes)
+    mean, limit = 3.0e8, 2.0e8
+    u = uncertainty_bound("at_least", limit, mean=mean, probability=p)
+    if p == 0.5:
+        assert u == math.inf
+    else:
+        assert stats.norm.sf(limit, loc=mean, scale=u) == pytest.approx(p, rel=1e-12)
+
+
+def test_at_most_bound_mirrors_at_least():
+    # exact normal CDF, scipy.stats.norm.cdf
+    u = uncertainty_bound("at_most", 1.0, mean=0.6, probability=0.99)
+    assert stats.norm.cdf(1.0, loc=0.6, scale=u) == pytest.approx(0.99, rel=1e-12)
+
+
+def test_within_bound_solves_the_two_sided_normal_probability():
+    # exact normal interval probability, scipy.stats.norm.cdf, off-centre mean
+    lo, hi, mean, p = 1.0, 3.0, 1.8, 0.9
+    u = uncertainty_bound("within", (lo, hi), mean=mean, probability=p)
+    covered = stats.norm.cdf(hi, mean, u) - stats.norm.cdf(lo, mean, u)
+    assert covered == pytest.approx(p, abs=1e-10)
+
+
+def test_bound_is_zero_when_the_mean_fails():
+    # a normal output whose mean is below the limit meets P(Y >= x) >= 0.9 for no spread
+    assert uncertainty_bound("at_least", 2.0, mean=1.0, probability=0.9) == 0.0
+    assert uncertainty_bound("within", (0.0, 1.0), mean=1.5, probability=0.5) == 0.0
+
+
+def test_relative_spread_bound():
+    # definition of the relative spread u(Y)/|mean| (common practice)
+    assert uncertainty_bound("relative_spread_at_most", 0.05, mean=-4.0) == pytest.approx(0.2)
+
+
+def test_bad_probability_and_kind_raise():
+    with pytest.raises(ValueError, match="probability must lie in"):
+        uncertainty_bound("at_least", 1.0, mean=2.0, probability=1.0)
+    with pytest.raises(ValueError, match="unknown requirement kind 'bigger'"):
+        uncertainty_bound("bigger", 1.0, mean=2.0, probability=0.9)
+
+
+# ---------------------------------------------------------------- smooth costs (Lagrange)
+
+
+def _closed_form_equal_exponent(a, cost, reference, p, budget):
+    # Lagrange condition (derived here): d/dt_i [C_i (r_i/t_i)^p + lam a_i t_i^2] = 0
+    #   -> t_i^(p+2) = p C_i r_i^p / (2 lam a_i); the constraint sum a_i t_i^2 = B fixes lam.
+    shape = (cost * reference**p / a) ** (1.0 / (p + 2.0))
+    scale = math.sqrt(budget / np.sum(a * shape**2))
+    return shape * scale
+
+
+@pytest.mark.parametrize("p", [0.5, 1.0, 2.0])
+def test_lagrange_matches_closed_form_for_equal_exponents(p):
+    rng = np.random.default_rng(3)
+    a = rng.uniform(0.1, 5.0, size=5)
+    cost = rng.uniform(100.0, 2000.0, size=5)
+    reference = rng.uniform(0.5, 2.0, size=5)
+    budget = 0.7
+    t = lagrange_allocation(a, budget, cost=cost, reference=reference, exponent=np.full(5, p))
+    expected = _closed_form_equal_exponent(a, cost, reference, p, budget)
+    np.testing.assert_allclose(t, expected, rtol=1e-9)
+    assert np.sum(a * t**2) == pytest.approx(budget, rel=1e-9)
+
+
+@pytest.mark.filterwarnings("ignore:delta_grad == 0.0:UserWarning")
+def test_lagrange_with_mixed_exponents_and_two_budgets_matches_a_general_solver():
+    # independent check: scipy.optimize.minimize (trust-constr) on the same convex problem
+    weights = np.array([[1.0, 4.0, 0.25, 0.0], [2.0, 0.1, 1.0, 3.0]])
+    budgets = np.array([2.0, 1.5])
+    cost = np.array([100.0, 200.0, 50.0, 80.0])
+    reference = np.ones(4)
+    exponent = np.array([1.0, 2.0, 0.5, 1.0])
+    t = lagrange_allocation(weights, budgets, cost=cost, reference=reference, exponent=exponent)
+
+    def total(y):
+        return float(np.sum(cost * np.exp(-exponent * y)))
+
+    cons = optimize.NonlinearConstraint(lambda y: weights @ np.exp(2 * y), -np.inf, budgets)
+    ref = optimize.minimize(
+        total,
+        np.zeros(4),
+        method="trust-constr",
+        constraints=[cons],
+        options={"gtol": 1e-12, "xtol": 1e-12, "maxiter": 5000},
+    )
+    assert np.all(weights @ t**2 <= budgets * (1 + 1e-7))
+    assert total(np.log(t)) == pytest.approx(total(ref.x), rel=1e-5)
+
+
+def test_lagrange_respects_upper_bounds():
+    # an input with no effect on the output (a = 0) is left at its loosest allowed value
+    t = lagrange_allocation(
+        np.array([1.0, 0.0]),
+        0.5,
+        cost=np.array([10.0, 10.0]),
+        reference=np.ones(2),
+        exponent=np.ones(2),
+        upper=np.array([5.0, 3.0]),
+    )
+    assert t[1] == 3.0
+    assert t[0] == pytest.approx(math.sqrt(0.5))
+
+
+# ---------------------------------------------------------------- tiers (branch and bound)
+
+
+def _random_tier_problem(seed, n_inputs=4, n_tiers=3, n_req=2):
+    rng = np.random.default_rng(seed)
+    sens = rng.uniform(0.2, 3.0, size=(n_req, n_inputs)) ** 2
+    tiers = []
+    for j in range(n_inputs):
+        u = np.sort(rng.uniform(0.05, 1.0, size=n_tiers))[::-1]
+        costs = np.sort(rng.uniform(0, 1000, size=n_tiers))
+        costs[0] = 0.0
+        tiers.append([TierOption(f"t{j}{k}", u[k], u[k], float(costs[k])) for k in range(n_tiers)])
+    budgets = rng.uniform(0.5, 3.0, size=n_req)
+    return LinearProblem(
+        requirements=[f"r{r}" for r in range(n_req)],
+        budgets=budgets,
+        fixed_variance=np.full(n_req, 0.05),
+        tiered=[f"x{j}" for j in range(n_inputs)],
+        tiered_sensitivity=sens,
+        tiers=tiers,
+    )
+
+
+def _brute_force(problem):
+    best = (math.inf, None)
+    for combo in itertools.product(*[range(len(t)) for t in problem.tiers]):
+        var = problem.fixed_variance + sum(
+            problem.tiered_sensitivity[:, j] * problem.tiers[j][k].standard_uncertainty ** 2
+            for j, k in enumerate(combo)
+        )
+        if np.all(var < problem.budgets):
+            cost = sum(problem.tiers[j][k].cost for j, k in enumerate(combo))
+            if cost < best[0]:
+                best = (cost, combo)
+    return best
+
+
+@pytest.mark.parametrize("seed", range(12))
+def test_branch_and_bound_matches_exhaustive_enumeration(seed):
+    # reference: exhaustive enumeration with itertools.product (computed here)
+    problem = _random_tier_problem(seed)
+    cost, combo = _brute_force(problem)
+    solution = allocate_tiers(problem)
+    if combo is None:
+        assert not solution.feasible
+    else:
+        assert solution.feasible
+        assert solution.cost == pytest.approx(cost)
+        assert np.all(solution.variance < problem.budgets)
+
+
+def test_infeasible_tiers_name_the_requirement_and_the_blocking_input():
+    # the tightest tier of x1 alone exceeds the budget of r0 (arithmetic, by construction)
+    tiers = [
+        [TierOption("loose", 1.0, 1.0, 0.0), TierOption("tight", 0.1, 0.1, 10.0)],
+        [TierOption("loose", 2.0, 2.0, 0.0), TierOption("tight", 1.5, 1.5, 10.0)],
+    ]
+    problem = LinearProblem(
+        requirements=["enough atoms"],
+        budgets=np.array([1.0]),
+        fixed_variance=np.array([0.0]),
+        tiered=["x0", "x1"],
+        tiered_sensitivity=np.ones((1, 2)),
+        tiers=tiers,
+    )
+    solution = allocate_tiers(problem)
+    assert not solution.feasible
+    assert solution.failing == "enough atoms"
+    assert solution.blocking == "x1"
+
+
+def test_mixed_tiers_and_smooth_costs_beat_every_tier_choice():
+    # reference: enumerate the tiers and solve the smooth rest in closed form (derived above)
+    tiers = [
+        [
+            TierOption("a", 1.0, 1.0, 0.0),
+            TierOption("b", 0.3, 0.3, 40.0),
+            TierOption("c", 0.1, 0.1, 300.0),
+        ]
+    ]
+    a = np.array([[2.0, 0.5]])
+    problem = LinearProblem(
+        requirements=["r"],
+        budgets=np.array([1.2]),
+        fixed_variance=np.array([0.1]),
+        smooth=["s0", "s1"],
+        smooth_weights=a,
+        smooth_cost=np.array([20.0, 50.0]),
+        smooth_reference=np.ones(2),
+        smooth_exponent=np.ones(2),
+        smooth_lower=np.full(2, 1e-12),
+        smooth_upper=np.full(2, np.inf),
+        tiered=["x"],
+        tiered_sensitivity=np.array([[1.0]]),
+        tiers=tiers,
+    )
+    costs = []
+    for option in tiers[0]:
+        remaining = 1.2 - 0.1 - option.standard_uncertainty**2
+        if remaining <= 0:
+            continue
+        t = _closed_form_equal_exponent(a[0], np.array([20.0, 50.0]), np.ones(2), 1.0, remaining)
+        costs.append(option.cost + float(np.sum(np.array([20.0, 50.0]) / t)))
+    solution = allocate_tiers(problem)
+    assert solution.feasible
+    assert solution.cost == pytest.approx(min(costs), rel=1e-8)
