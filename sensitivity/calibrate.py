@@ -1,0 +1,771 @@
+"""Calibrating a model's constants to the lab's own measurements.
+
+``calibrate(scenario, datasets, free=[...])`` fits the model constants marked
+free by weighted, bounded nonlinear least squares against measured outputs,
+each taken at its own apparatus settings; it reports the fitted values, their
+covariance and correlations, chi-square per degree of freedom and the
+residuals, says which constants (or combinations of them) the data cannot pin
+down, and writes a calibrated scenario in which the fitted constants are
+uncertain inputs with their fitted joint normal distribution.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import math
+import os
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Literal
+
+import numpy as np
+import xarray as xr
+from scipy import optimize, stats
+
+from trapbudget.sensitivity.errors import DataError, ScenarioError
+
+try:
+    import tomllib
+except ImportError:  # pragma: no cover - Python 3.10
+    import tomli as tomllib
+from trapbudget.sensitivity.io import atomic_write_text
+from trapbudget.sensitivity.measurements import (
+    MeasurementSet,
+    Observations,
+    read_measurements,
+    to_observations,
+)
+
+__all__ = ["Calibration", "FlatDirection", "calibrate", "toml_dumps"]
+
+CovarianceScaling = Literal["auto", "always", "never"]
+_SCALINGS = ("auto", "always", "never")
+
+
+@dataclass(frozen=True)
+class FlatDirection:
+    """A combination of constants the data cannot pin down.
+
+    Attributes
+    ----------
+    relative_change : dict of str to float
+        Relative changes of the constants (largest magnitude 1) that leave the
+        fit unchanged to first order, e.g. ``{"a": 1, "b": -1}`` when only the
+        product a*b enters.
+    singular_value : float
+        Singular value of the column-normalised weighted Jacobian (0 = exactly
+        flat; 1 = as well determined as an uncorrelated constant).
+    held : str
+        The constant held at its starting value because of this direction.
+    """
+
+    relative_change: dict[str, float]
+    singular_value: float
+    held: str
+
+    def describe(self) -> str:
+        """One line for reports."""
+        terms = ", ".join(f"{name} {value:+.2f}" for name, value in self.relative_change.items())
+        if len(self.relative_change) == 1:
+            return f"the data do not constrain {self.held}; held at its starting value"
+        return (
+            f"only a combination is constrained (relative changes {terms} leave the fit "
+            f"unchanged); {self.held} held at its starting value"
+        )
+
+
+@dataclass(frozen=True)
+class Calibration:
+    """Result of :func:`calibrate`.
+
+    Attributes
+    ----------
+    free : tuple of str
+        Constants asked to be fitted.
+    fitted : tuple of str
+        Constants actually fitted (``free`` minus those held).
+    values : dict of str to float
+        Fitted values (SI), and the starting values of held constants.
+    start : dict of str to float
+        Starting values.
+    units : dict of str to str
+        SI unit of each constant.
+    covariance : ndarray
+        Covariance of ``fitted`` (SI), see ``covariance_scaled``.
+    chi2, dof : float, int
+        Weighted sum of squared residuals and degrees of freedom.
+    p_value : float
+        Probability of a chi-square at least as large, given the uncertainties.
+    covariance_scaled : bool
+        Whether the covariance was multiplied by chi2/dof.
+    observations : Observations
+        The data fitted.
+    predicted : ndarray
+        Model prediction for each observation at the fitted constants.
+    weights_uncertainty : ndarray
+        Uncertainty used to weight each observation (SI).
+    flat_directions : tuple of FlatDirection
+        What the data cannot determine.
+    singular_values : ndarray
+        Of the column-normalised weighted Jacobian of the final fit.
+    robust : bool
+        Whether the soft-L1 loss was used.
+    notes : tuple of str
+        Statements for the report (scaling, unknown uncertainties, ...).
+    scenario : object
+        The scenario calibrated.
+    """
+
+    free: tuple[str, ...]
+    fitted: tuple[str, ...]
+    values: dict[str, float]
+    start: dict[str, float]
+    units: dict[str, str]
+    covariance: np.ndarray
+    chi2: float
+    dof: int
+    p_value: float
+    covariance_scaled: bool
+    observations: Observations
+    predicted: np.ndarray
+    weights_uncertainty: np.ndarray
+    flat_directions: tuple[FlatDirection, ...]
+    singular_values: np.ndarray
+    robust: bool
+    notes: tuple[str, ...] = ()
+    scenario: Any = field(default=None, repr=False, compare=False)
+
+    @property
+    def reduced_chi2(self) -> float:
+        """chi2 / dof (nan with no degrees of freedom)."""
+        return self.chi2 / self.dof if self.dof > 0 else math.nan
+
+    @property
+    def uncertainties(self) -> dict[str, float]:
+        """Standard uncertainty of each fitted constant (SI)."""
+        return {
+            name: float(math.sqrt(max(self.covariance[i, i], 0.0)))
+            for i, name in enumerate(self.fitted)
+        }
+
+    @property
+    def correlation(self) -> np.ndarray:
+        """Correlation matrix of the fitted constants."""
+        std = np.sqrt(np.clip(np.diag(self.covariance), 0.0, None))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            corr = self.covariance / np.outer(std, std)
+        return np.where(np.isfinite(corr), corr, 0.0)
+
+    @property
+    def held(self) -> tuple[str, ...]:
+        """Constants the data could not determine (kept at their starting values)."""
+        return tuple(name for name in self.free if name not in self.fitted)
+
+    @property
+    def normalized_residuals(self) -> np.ndarray:
+        """(measured - predicted) / uncertainty per observation."""
+        return (self.observations.value - self.predicted) / self.weights_uncertainty
+
+    def to_dataset(self) -> xr.Dataset:
+        """The result as a Dataset (dims ``constant``, ``constant_b``, ``observation``)."""
+        fitted = list(self.fitted)
+        unc = self.uncertainties
+        ds = xr.Dataset(
+            {
+                "value": ("constant", [self.values[n] for n in self.free]),
+                "start": ("constant", [self.start[n] for n in self.free]),
+                "uncertainty": (
+                    "constant",
+                    [unc.get(n, math.nan) for n in self.free],
+                ),
+                "fitted": ("constant", [n in self.fitted for n in self.free]),
+                "correlation": (("constant_fit", "constant_fit_b"), self.correlation),
+                "covariance": (("constant_fit", "constant_fit_b"), self.covariance),
+                "measured": ("observation", self.observations.value),
+                "measurement_uncertainty": ("observation", self.weights_uncertainty),
+                "predicted": ("observation", self.predicted),
+                "normalized_residual": ("observation", self.normalized_residuals),
+                "output": ("observation", self.observations.output.astype(str)),
+                "source": ("observation", self.observations.source.astype(str)),
+                "singular_value": ("direction", self.singular_values),
+            },
+            coords={
+                "constant": list(self.free),
+                "constant_fit": fitted,
+                "constant_fit_b": fitted,
+            },
+            attrs={
+                "chi2": self.chi2,
+                "dof": self.dof,
+                "reduced_chi2": self.reduced_chi2,
+                "p_value": self.p_value,
+                "covariance_scaled": self.covariance_scaled,
+                "robust": self.robust,
+                "units": {n: self.units[n] for n in self.free},
+                "flat_directions": [d.describe() for d in self.flat_directions],
+                "notes": list(self.notes),
+                "title": str(getattr(self.scenario, "title", "")),
+            },
+        )
+        for name, values in self.observations.settings.items():
+            ds[f"setting_{name}"] = ("observation", values)
+        return ds
+
+    # ----------------------------------------------------------- calibrated scenario
+
+    def scenario_mapping(self) -> dict[str, Any]:
+        """The calibrated scenario as a TOML-ready mapping.
+
+        The base is the scenario's own file (``scenario.source``) or, without
+        one, ``scenario_to_toml(scenario)``. Each fitted constant becomes an
+        input with ``nominal`` the fitted value, ``tolerance`` its standard
+        uncertainty, ``meaning = "standard"``, ``shape = "normal"``, and each
+        pair of fitted constants a ``[[correlations]]`` entry with the fitted
+        correlation (for normal marginals the copula coefficient is the
+        Pearson correlation). Held constants keep what the scenario said.
+        """
+        data = _scenario_source_mapping(self.scenario)
+        inputs = data.setdefault("inputs", {})
+        for name in self.fitted:
+            unit = self.units[name]
+            entry = {
+                "nominal": _quantity_text(self.values[name], unit),
+                "tolerance": _quantity_text(self.uncertainties[name], unit),
+                "meaning": "standard",
+                "shape": "normal",
+                "note": (
+                    f"calibrated {_dt.date.today().isoformat()} "
+                    f"(chi2/dof = {self.reduced_chi2:.3g}, {len(self.observations)} observations)"
+                ),
+            }
+            previous = inputs.get(name, {})
+            if isinstance(previous, Mapping) and "group" in previous:
+                entry["group"] = previous["group"]
+            inputs[name] = entry
+        fitted = set(self.fitted)
+        kept = [c for c in data.get("correlations", []) if not (set(c.get("inputs", ())) & fitted)]
+        corr = self.correlation
+        for i, a in enumerate(self.fitted):
+            for j in range(i + 1, len(self.fitted)):
+                if abs(corr[i, j]) > 1e-9:
+                    kept.append(
+                        {"inputs": [a, self.fitted[j]], "coefficient": round(float(corr[i, j]), 6)}
+                    )
+        if kept:
+            data["correlations"] = kept
+        else:
+            data.pop("correlations", None)
+        calibration = dict(data.get("calibration", {}))
+        calibration["free"] = list(self.free)
+        data["calibration"] = calibration
+        return data
+
+    def scenario_toml(self) -> str:
+        """The calibrated scenario as TOML text (see :meth:`scenario_mapping`)."""
+        header = (
+            "# Calibrated scenario written by trapbudget calibrate.\n"
+            f"# Fitted: {', '.join(self.fitted) or 'nothing'}; "
+            f"held (not determined by the data): {', '.join(self.held) or 'none'}.\n"
+            f"# chi2/dof = {self.reduced_chi2:.4g} (dof {self.dof}); "
+            f"covariance {'scaled by chi2/dof' if self.covariance_scaled else 'not scaled'}.\n"
+        )
+        return header + toml_dumps(self.scenario_mapping())
+
+    def write_scenario(self, path: str | os.PathLike[str]) -> Path:
+        """Write the calibrated scenario atomically and return its path."""
+        return atomic_write_text(path, self.scenario_toml())
+
+
+def _quantity_text(value: float, unit: str) -> Any:
+    if not unit or unit == "1":
+        return float(f"{value:.10g}")
+    return f"{value:.10g} {unit}"
+
+
+def _scenario_source_mapping(scenario: Any) -> dict[str, Any]:
+    source = getattr(scenario, "source", None)
+    if source is not None and Path(source).is_file():
+        with open(source, "rb") as handle:
+            return tomllib.load(handle)
+    try:
+        from trapbudget.sensitivity.scenario import scenario_to_toml
+    except ImportError:  # pragma: no cover - the scenario module is part of the package
+        raise ScenarioError(
+            "the scenario has no source file to extend; load it from a TOML file"
+        ) from None
+    return tomllib.loads(scenario_to_toml(scenario))
+
+
+# ----------------------------------------------------------------------- TOML writer
+
+
+def _toml_key(key: str) -> str:
+    if key and all(c.isalnum() or c in "_-" for c in key):
+        return key
+    return _toml_string(key)
+
+
+def _toml_string(text: str) -> str:
+    out = []
+    for ch in text:
+        if ch in '"\\':
+            out.append("\\" + ch)
+        elif ch == "\n":
+            out.append("\\n")
+        elif ch == "\t":
+            out.append("\\t")
+        elif ord(ch) < 0x20 or ord(ch) == 0x7F:
+            out.append(f"\\u{ord(ch):04x}")
+        else:
+            out.append(ch)
+    return '"' + "".join(out) + '"'
+
+
+def _toml_value(value: Any) -> str:
+    if isinstance(value, bool | np.bool_):
+        return "true" if value else "false"
+    if isinstance(value, int | np.integer):
+        return str(int(value))
+    if isinstance(value, float | np.floating):
+        v = float(value)
+        if math.isnan(v):
+            return "nan"
+        if math.isinf(v):
+            return "inf" if v > 0 else "-inf"
+        text = repr(v)
+        return text if any(c in text for c in ".en") else text + ".0"
+    if isinstance(value, str):
+        return _toml_string(value)
+    if isinstance(value, _dt.datetime | _dt.date):
+        return value.isoformat()
+    if isinstance(value, Mapping):
+        inner = ", ".join(f"{_toml_key(k)} = {_toml_value(v)}" for k, v in value.items())
+        return "{ " + inner + " }" if inner else "{}"
+    if isinstance(value, list | tuple | np.ndarray):
+        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
+    raise TypeError(f"cannot write {type(value).__name__} to TOML")
+
+
+def _is_table_array(value: Any) -> bool:
+    return (
+        isinstance(value, list | tuple)
+        and len(value) > 0
+        and all(isinstance(v, Mapping) for v in value)
+    )
+
+
+def toml_dumps(data: Mapping[str, Any]) -> str:
+    """Write a mapping as TOML (tables, arrays of tables, inline values).
+
+    Parameters
+    ----------
+    data : Mapping
+        Nested mappings of str, numbers, bools, dates and lists.
+
+    Returns
+    -------
+    str
+        TOML 1.0 text that ``tomllib.loads`` reads back to ``data``.
+    """
+    lines: list[str] = []
+
+    def emit(table: Mapping[str, Any], prefix: tuple[str, ...]) -> None:
+        scalars = [
+            (k, v)
+            for k, v in table.items()
+            if not isinstance(v, Mapping) and not _is_table_array(v)
+        ]
+        for key, value in scalars:
+            lines.append(f"{_toml_key(key)} = {_toml_value(value)}")
+        for key, value in table.items():
+            path = (*prefix, key)
+            dotted = ".".join(_toml_key(p) for p in path)
+            if isinstance(value, Mapping):
+                has_scalars = any(
+                    not isinstance(v, Mapping) and not _is_table_array(v) for v in value.values()
+                )
+                if has_scalars or not value:
+                    lines.append("")
+                    lines.append(f"[{dotted}]")
+                emit(value, path)
+            elif _is_table_array(value):
+                for item in value:
+                    lines.append("")
+                    lines.append(f"[[{dotted}]]")
+                    emit(item, path)
+
+    emit(data, ())
+    return "\n".join(lines).lstrip("\n") + "\n"
+
+
+# ----------------------------------------------------------------------- the fit
+
+
+def _as_observations(
+    datasets: Any, *, model: Any, mass: float | None, two_body: bool, robust: bool
+) -> Observations:
+    if isinstance(datasets, Observations | MeasurementSet | str | os.PathLike):
+        datasets = [datasets]
+    parts: list[Observations] = []
+    for item in datasets:
+        if isinstance(item, Observations):
+            parts.append(item)
+            continue
+        mset = item if isinstance(item, MeasurementSet) else read_measurements(item, model=model)
+        parts.append(
+            to_observations(mset, model=model, mass=mass, two_body=two_body, robust=robust)
+        )
+    if not parts:
+        raise DataError("no measurement files given; pass at least one")
+    return Observations.concatenate(parts)
+
+
+def _species_mass(scenario: Any) -> float | None:
+    name = getattr(scenario, "species", None)
+    if not name:
+        return None
+    try:
+        from trapbudget.models.species import species
+    except ImportError:  # pragma: no cover
+        return None
+    try:
+        return float(species(name).mass)
+    except Exception:
+        return None
+
+
+def _free_constants(scenario: Any, model: Any, free: Sequence[str] | None) -> tuple[str, ...]:
+    if free is None:
+        free = (getattr(scenario, "calibration", None) or {}).get("free")
+    if not free:
+        raise ScenarioError(
+            "no constants to fit; list them in [calibration] free = [...] or pass free=",
+            path=getattr(scenario, "source", None),
+            key="calibration.free",
+        )
+    names = tuple(free)
+    for name in names:
+        if name not in model.inputs:
+            import difflib
+
+            close = difflib.get_close_matches(name, list(model.inputs), n=3)
+            hint = f"; did you mean {', '.join(map(repr, close))}?" if close else ""
+            raise ScenarioError(
+                f"{name!r} is not a model input{hint}",
+                path=getattr(scenario, "source", None),
+                key="calibration.free",
+            )
+    if len(set(names)) != len(names):
+        raise ScenarioError("a constant is listed twice; list each once", key="calibration.free")
+    return names
+
+
+def calibrate(
+    scenario: Any,
+    datasets: Any,
+    *,
+    free: Sequence[str] | None = None,
+    robust: bool = False,
+    rng: Any = None,
+    two_body: bool = False,
+    covariance_scaling: CovarianceScaling = "auto",
+    flat_threshold: float = 1e-3,
+    n_starts: int = 1,
+) -> Calibration:
+    """Fit model constants to measurements by weighted, bounded least squares.
+
+    Parameters
+    ----------
+    scenario : Scenario
+        Gives the model (with the scenario's fixed values), the nominal
+        settings and, in ``[calibration] free``, the constants to fit. Any
+        object with ``model``, ``nominal`` and ``calibration`` works.
+    datasets : path, MeasurementSet, Observations or a sequence of them
+        Measurement files (format in :mod:`trapbudget.sensitivity.measurements`).
+    free : sequence of str, optional
+        Constants to fit; overrides ``[calibration] free``.
+    robust : bool
+        Soft-L1 loss (outlier-tolerant) instead of plain least squares.
+    rng : seed or numpy Generator, optional
+        Draws the extra starting points when ``n_starts > 1``.
+    two_body : bool
+        Fit loading curves with two-body loss.
+    covariance_scaling : {"auto", "always", "never"}
+        "auto" trusts the given uncertainties unless the chi-square is
+        inconsistent with them (p < 0.01), then scales the covariance by
+        chi2/dof (the Birge ratio squared); "always" scales; "never" does not.
+        Unknown uncertainties force scaling.
+    flat_threshold : float
+        Singular values of the column-normalised weighted Jacobian below this
+        (relative to the largest) mark directions the data cannot pin down.
+    n_starts : int
+        Number of starting points (the scenario values, then random ones
+        within a factor 3, inside the bounds); the best fit is kept.
+
+    Returns
+    -------
+    Calibration
+
+    Notes
+    -----
+    Residuals ``r_i = (f(x_i; theta) - y_i) / u_i`` with ``x_i`` the settings
+    of observation i (scenario nominal where the file did not set one);
+    ``scipy.optimize.least_squares`` (trust-region reflective), bounded by
+    the constants' valid ranges, in parameters scaled by their starting
+    values. Covariance ``(J^T J)^-1`` from the weighted Jacobian at the
+    optimum (central differences), as for linearised least squares. When some
+    uncertainties are unknown they are taken as one common relative
+    uncertainty, whose size the residual scatter sets (covariance scaled by
+    chi2/dof). Flat directions come from the singular value decomposition of
+    the Jacobian with respect to the logarithm of each constant, columns
+    normalised: a small singular value means a combination of relative
+    changes (its right singular vector) the data do not see; the constant
+    with the largest share in it is held at its starting value and the fit
+    repeated, so no precision is invented.
+
+    References
+    ----------
+    Least squares and covariance: W. H. Press et al., "Numerical Recipes",
+    3rd ed. (CUP 2007), ch. 15.4-15.5; R. T. Birge, Phys. Rev. 40, 207 (1932)
+    for the chi2/dof scaling; JCGM 100:2008 for standard uncertainties.
+    """
+    if covariance_scaling not in _SCALINGS:
+        raise ScenarioError(
+            f"covariance_scaling {covariance_scaling!r} is unknown; use one of {_SCALINGS}"
+        )
+    model = scenario.model
+    names = _free_constants(scenario, model, free)
+    obs = _as_observations(
+        datasets, model=model, mass=_species_mass(scenario), two_body=two_body, robust=robust
+    )
+    nominal = dict(getattr(scenario, "nominal", {}) or {})
+    start = {name: float(nominal.get(name, model.inputs[name].default)) for name in names}
+    units = {name: model.inputs[name].unit for name in names}
+    for output in np.unique(obs.output):
+        if output not in model.outputs:
+            raise DataError(f"the model has no output {output!r}; check the measurement columns")
+    notes: list[str] = []
+
+    base_values = _observation_inputs(model, nominal, obs)
+    unknown = ~np.isfinite(obs.uncertainty)
+    sigma = obs.uncertainty.copy()
+    if np.any(unknown):
+        sigma[unknown] = np.abs(obs.value[unknown])
+        notes.append(
+            f"{int(unknown.sum())} observations had no uncertainty: weighted by a common relative "
+            "uncertainty set by the residual scatter"
+        )
+    if np.any(~(sigma > 0)):
+        raise DataError("a measurement uncertainty is zero or negative; fix the data file")
+    if len(obs) < len(names):
+        raise DataError(
+            f"{len(obs)} observations cannot determine {len(names)} constants; "
+            "add measurements or free fewer constants"
+        )
+    rng = np.random.default_rng(rng)
+
+    fitted = list(names)
+    values = dict(start)
+    flats: list[FlatDirection] = []
+    while True:
+        result = _least_squares(
+            model,
+            base_values,
+            obs,
+            sigma,
+            fitted,
+            values,
+            robust=robust,
+            rng=rng,
+            n_starts=n_starts,
+        )
+        values.update(result["values"])
+        jac = result["jac"]  # weighted residuals vs constants (SI)
+        theta = np.array([values[n] for n in fitted])
+        jac_log = jac * np.where(theta != 0, theta, 1.0)[np.newaxis, :]
+        norms = np.linalg.norm(jac_log, axis=0)
+        scale = norms.max() if norms.size and norms.max() > 0 else 1.0
+        dead = norms <= 1e-10 * scale
+        normalised = jac_log / np.where(dead, 1.0, norms)
+        singular = np.linalg.svd(normalised, compute_uv=False) if fitted else np.array([])
+        if np.any(dead):
+            k = int(np.flatnonzero(dead)[0])
+            flats.append(FlatDirection({fitted[k]: 1.0}, 0.0, fitted[k]))
+            values[fitted[k]] = start[fitted[k]]
+            del fitted[k]
+            continue
+        if fitted:
+            _, s, vt = np.linalg.svd(normalised, full_matrices=False)
+            if s[-1] < flat_threshold * s[0]:
+                direction = vt[-1] / np.where(norms > 0, norms, 1.0)
+                direction = direction / np.max(np.abs(direction))
+                share = np.abs(vt[-1])
+                k = int(np.argmax(share))
+                relative = {
+                    fitted[i]: float(direction[i]) for i in np.argsort(-share) if share[i] > 0.05
+                }
+                flats.append(FlatDirection(relative, float(s[-1] / s[0]), fitted[k]))
+                values[fitted[k]] = start[fitted[k]]
+                del fitted[k]
+                continue
+        break
+
+    residual = result["residual"]
+    chi2 = float(np.sum(residual**2))
+    dof = len(obs) - len(fitted)
+    p_value = float(stats.chi2.sf(chi2, dof)) if dof > 0 else math.nan
+    cov = np.linalg.inv(jac.T @ jac) if fitted else np.zeros((0, 0))
+    scaled = False
+    if dof > 0 and (
+        covariance_scaling == "always"
+        or np.any(unknown)
+        or (covariance_scaling == "auto" and p_value < 0.01)
+    ):
+        scaled = True
+        cov = cov * (chi2 / dof)
+        sigma_used = sigma * math.sqrt(chi2 / dof) if np.any(unknown) else sigma
+        if not np.any(unknown):
+            notes.append(
+                f"chi2/dof = {chi2 / dof:.3g} is inconsistent with the given uncertainties "
+                f"(p = {p_value:.2g}): covariance scaled by chi2/dof"
+                if covariance_scaling == "auto"
+                else "covariance scaled by chi2/dof as requested"
+            )
+    else:
+        sigma_used = sigma
+    if dof <= 0:
+        notes.append("no degrees of freedom left: chi2/dof undefined, uncertainties unchecked")
+    if robust:
+        notes.append("soft-L1 loss: covariance from the least-squares Jacobian (approximate)")
+    for name in fitted:
+        i = fitted.index(name)
+        u = math.sqrt(max(cov[i, i], 0.0))
+        if values[name] != 0 and u > abs(values[name]):
+            notes.append(f"{name} is weakly determined: its uncertainty exceeds its value")
+        low, high = model.inputs[name].low, model.inputs[name].high
+        if np.isclose(values[name], low) or np.isclose(values[name], high):
+            notes.append(f"{name} ended at a bound of its valid range [{low:g}, {high:g}]")
+    predicted = _predict(model, base_values, obs, values)
+    return Calibration(
+        free=names,
+        fitted=tuple(fitted),
+        values={n: float(values[n]) for n in names},
+        start=start,
+        units=units,
+        covariance=cov,
+        chi2=chi2,
+        dof=dof,
+        p_value=p_value,
+        covariance_scaled=scaled,
+        observations=obs,
+        predicted=predicted,
+        weights_uncertainty=sigma_used,
+        flat_directions=tuple(flats),
+        singular_values=singular,
+        robust=robust,
+        notes=tuple(notes),
+        scenario=scenario,
+    )
+
+
+def _observation_inputs(model: Any, nominal: Mapping[str, float], obs: Observations):
+    n = len(obs)
+    values: dict[str, np.ndarray] = {}
+    for name in model.inputs:
+        base = float(nominal[name]) if name in nominal else None
+        setting = obs.settings.get(name)
+        if setting is None:
+            if base is not None:
+                values[name] = np.full(n, base)
+            continue
+        fill = model.inputs[name].default if base is None else base
+        values[name] = np.where(np.isfinite(setting), setting, fill)
+    return values
+
+
+def _predict(
+    model: Any,
+    base_values: Mapping[str, np.ndarray],
+    obs: Observations,
+    constants: Mapping[str, float],
+) -> np.ndarray:
+    values = dict(base_values)
+    n = len(obs)
+    for name, value in constants.items():
+        values[name] = np.full(n, float(value))
+    outputs = model.evaluate(values)
+    predicted = np.empty(n)
+    for output in np.unique(obs.output):
+        rows = obs.output == output
+        predicted[rows] = np.broadcast_to(np.asarray(outputs[output], dtype=float), (n,))[rows]
+    return predicted
+
+
+def _least_squares(
+    model: Any,
+    base_values: Mapping[str, np.ndarray],
+    obs: Observations,
+    sigma: np.ndarray,
+    fitted: Sequence[str],
+    values: Mapping[str, float],
+    *,
+    robust: bool,
+    rng: np.random.Generator,
+    n_starts: int,
+) -> dict[str, Any]:
+    fixed = {name: v for name, v in values.items() if name not in fitted}
+    if not fitted:
+        residual = (_predict(model, base_values, obs, fixed) - obs.value) / sigma
+        return {"values": {}, "jac": np.zeros((len(obs), 0)), "residual": residual}
+    x_start = np.array([values[n] for n in fitted], dtype=float)
+    scale = np.where(x_start != 0, np.abs(x_start), 1.0)
+    low = np.array([model.inputs[n].low for n in fitted]) / scale
+    high = np.array([model.inputs[n].high for n in fitted]) / scale
+
+    def residual(p: np.ndarray) -> np.ndarray:
+        constants = {**fixed, **dict(zip(fitted, p * scale, strict=True))}
+        return (_predict(model, base_values, obs, constants) - obs.value) / sigma
+
+    starts = [np.clip(x_start / scale, low, high)]
+    for _ in range(max(n_starts, 1) - 1):
+        factor = np.exp(rng.uniform(-math.log(3), math.log(3), size=len(fitted)))
+        starts.append(np.clip(x_start / scale * factor, low, high))
+    best = None
+    with np.errstate(all="ignore"):
+        for x0 in starts:
+            res = optimize.least_squares(
+                residual,
+                x0,
+                bounds=(low, high),
+                jac="3-point",
+                loss="soft_l1" if robust else "linear",
+                method="trf",
+                x_scale="jac",
+                xtol=1e-12,
+                ftol=1e-12,
+                gtol=1e-12,
+                max_nfev=2000,
+            )
+            if best is None or res.cost < best.cost:
+                best = res
+    x = best.x
+    jac = _central_jacobian(residual, x, low, high) / scale[np.newaxis, :]
+    return {
+        "values": dict(zip(fitted, (x * scale).tolist(), strict=True)),
+        "jac": jac,
+        "residual": residual(x),
+    }
+
+
+def _central_jacobian(func, x: np.ndarray, low: np.ndarray, high: np.ndarray) -> np.ndarray:
+    """Central-difference Jacobian (one-sided at a bound)."""
+    f0 = func(x)
+    jac = np.empty((f0.size, x.size))
+    for i in range(x.size):
+        h = 1e-6 * max(abs(x[i]), 1e-3)
+        up, down = x.copy(), x.copy()
+        up[i] = min(x[i] + h, high[i])
+        down[i] = max(x[i] - h, low[i])
+        jac[:, i] = (func(up) - func(down)) / (up[i] - down[i])
+    return jac
