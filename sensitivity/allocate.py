@@ -36,6 +36,7 @@ __all__ = [
     "LinearProblem",
     "TierOption",
     "TierSolution",
+    "allocate",
     "allocate_tiers",
     "lagrange_allocation",
     "uncertainty_bound",
@@ -579,3 +580,513 @@ class Allocation:
         ds = xr.merge([self.spec, self.requirements], combine_attrs="override")
         ds.attrs = {**self.requirements.attrs, **self.spec.attrs}  # type: ignore[attr-defined]
         return ds
+
+
+def _z(probability: float, kind: str) -> float:
+    """Normal quantile a requirement's probability stands for (two-sided for 'within')."""
+    if kind == "within":
+        return float(stats.norm.ppf(0.5 * (1.0 + probability)))
+    return float(stats.norm.ppf(probability))
+
+
+def _check(samples, requirements, *, safety_margin: float):
+    """Probability met (with binomial standard error) and pass/fail of each requirement."""
+    from trapbudget.sensitivity.compare import requirement_indicator
+
+    rows = []
+    for req in requirements:
+        values = np.asarray(samples[req.output].values, dtype=float)
+        n = values.size
+        indicator = requirement_indicator(values, req)
+        if indicator is None:
+            spread = float(np.std(values, ddof=1) / abs(np.mean(values)))
+            rows.append(
+                {
+                    "probability": math.nan,
+                    "standard_error": math.nan,
+                    "spread": spread,
+                    "met": spread <= float(req.limit),
+                    "factor": float(req.limit) / spread,
+                }
+            )
+            continue
+        p_hat = float(indicator.mean())
+        se = math.sqrt(p_hat * (1.0 - p_hat) / n)
+        target = 0.5 if req.probability is None else float(req.probability)
+        met = p_hat - safety_margin * se >= target
+        wanted = min(target + safety_margin * math.sqrt(target * (1 - target) / n), 1 - 1.0 / n)
+        z_target = _z(wanted, req.kind)
+        z_hat = _z(min(max(p_hat, 0.5 / n), 1.0 - 0.5 / n), req.kind)
+        if z_target <= 0:
+            factor = 2.0 if met else 0.5
+        elif z_hat <= 0:
+            factor = 0.5
+        else:
+            factor = z_hat / z_target
+        rows.append(
+            {
+                "probability": p_hat,
+                "standard_error": se,
+                "spread": math.nan,
+                "met": bool(met),
+                "factor": factor,
+            }
+        )
+    return rows
+
+
+@dataclass
+class _Setup:
+    """Everything the linear pass needs, gathered once from the scenario."""
+
+    requirements: tuple
+    labels: list[str]
+    free_smooth: list[str]
+    free_tiered: list[str]
+    fixed: list[str]
+    sensitivity: dict[tuple[int, str], float]  # (requirement index, input) -> c^2 per u^2
+    means: np.ndarray
+    bounds: np.ndarray
+
+
+def _linear_setup(scenario, requirements, labels) -> _Setup:
+    from trapbudget.sensitivity.errors import ScenarioError
+    from trapbudget.sensitivity.linear import linear_propagation
+
+    source = getattr(scenario, "source", None)
+    for name in scenario.costs:
+        if name not in scenario.inputs:
+            raise ScenarioError(
+                f"input {name!r} has a cost but no tolerance; give inputs.{name} a tolerance "
+                "or remove the cost table",
+                path=source,
+                key=f"costs.{name}",
+            )
+    outputs = list(dict.fromkeys(req.output for req in requirements))
+    linear = linear_propagation(
+        scenario.model,
+        scenario.inputs,
+        nominal=scenario.nominal,
+        correlation=None,
+        outputs=outputs,
+    )
+    coefficient = linear["sensitivity_coefficient"]
+    sensitivity = {}
+    for r, req in enumerate(requirements):
+        for name in scenario.inputs:
+            c = float(coefficient.sel(output=req.output, input=name))
+            sensitivity[(r, name)] = c * c if math.isfinite(c) else 0.0
+    means = np.array(
+        [float(linear["output_nominal"].sel(output=req.output)) for req in requirements]
+    )
+    bounds = np.array(
+        [
+            uncertainty_bound(req.kind, req.limit, mean=m, probability=req.probability)
+            for req, m in zip(requirements, means, strict=True)
+        ]
+    )
+    smooth = [n for n, c in scenario.costs.items() if not hasattr(c, "tiers")]
+    tiered = [n for n, c in scenario.costs.items() if hasattr(c, "tiers")]
+    fixed = [n for n in scenario.inputs if n not in scenario.costs]
+    return _Setup(tuple(requirements), labels, smooth, tiered, fixed, sensitivity, means, bounds)
+
+
+def _problem(scenario, setup: _Setup, bounds: np.ndarray, max_loosen: float) -> LinearProblem:
+    n_req = len(setup.requirements)
+    tol = scenario.tolerances
+
+    def u(name):
+        return float(tol[name].standard_uncertainty)
+
+    def sens(names):
+        return np.array(
+            [[setup.sensitivity[(r, n)] for n in names] for r in range(n_req)]
+        ).reshape(n_req, len(names))
+
+    fixed_var = np.array(
+        [sum(setup.sensitivity[(r, n)] * u(n) ** 2 for n in setup.fixed) for r in range(n_req)]
+    )
+    smooth_models = [scenario.costs[n] for n in setup.free_smooth]
+    ratio = np.array([u(n) / float(tol[n].value) for n in setup.free_smooth])
+    tiers = [
+        [
+            TierOption(
+                str(t.name),
+                float(t.tolerance.value),
+                float(t.tolerance.standard_uncertainty),
+                float(t.cost),
+            )
+            for t in scenario.costs[n].tiers
+        ]
+        for n in setup.free_tiered
+    ]
+    return LinearProblem(
+        requirements=setup.labels,
+        budgets=np.asarray(bounds, dtype=float) ** 2,
+        fixed_variance=fixed_var,
+        smooth=setup.free_smooth,
+        smooth_weights=sens(setup.free_smooth) * ratio**2,
+        smooth_cost=np.array([float(m.cost) for m in smooth_models]),
+        smooth_reference=np.array([float(m.tolerance.value) for m in smooth_models]),
+        smooth_exponent=np.array([float(m.exponent) for m in smooth_models]),
+        smooth_lower=np.full(len(smooth_models), 1e-300),
+        smooth_upper=np.array([float(tol[n].value) * max_loosen for n in setup.free_smooth]),
+        tiered=setup.free_tiered,
+        tiered_sensitivity=sens(setup.free_tiered),
+        tiers=tiers,
+    )
+
+
+def _tolerances(scenario, setup: _Setup, solution: TierSolution) -> dict:
+    out = {}
+    for name, t in zip(setup.free_smooth, solution.smooth_tolerance, strict=True):
+        out[name] = scenario.tolerances[name].with_value(float(t))
+    for name, k in zip(setup.free_tiered, solution.tier_index, strict=True):
+        out[name] = scenario.costs[name].tiers[k].tolerance
+    return out
+
+
+def _label_of(req, index: int) -> str:
+    label = getattr(req, "label", "") or ""
+    return label or f"{req.output} {req.kind} #{index + 1}"
+
+
+def allocate(
+    scenario: object,
+    *,
+    n_samples: int | None = None,
+    rng: object = None,
+    method: str | None = None,
+    refine: bool = True,
+    max_iterations: int = 8,
+    safety_margin: float = 1.0,
+    max_loosen: float = 4.0,
+    progress: object = None,
+) -> Allocation:
+    """Find the tolerances that meet every requirement at least cost.
+
+    Inputs with a cost model (``[costs.<input>]``) are free to change; the
+    other uncertain inputs are held at their present tolerance.
+
+    Parameters
+    ----------
+    scenario : Scenario
+        With requirements and costs.
+    n_samples : int, optional
+        Monte Carlo samples of each verification (default the scenario's).
+    rng : seed or numpy.random.Generator, optional
+        Randomness of the shared design (default the scenario's seed).
+    method : {"random", "latin", "sobol"}, optional
+        Design (default the scenario's).
+    refine : bool
+        Rescale the requirement bounds from the Monte Carlo result until every
+        requirement is met (True), or only verify the linear answer (False).
+    max_iterations : int
+        Monte Carlo rounds of refinement at most.
+    safety_margin : float
+        A probability requirement counts as met when the estimate minus this
+        many binomial standard errors reaches the required probability.
+    max_loosen : float
+        A smooth-cost tolerance may be loosened to at most this multiple of
+        its present value (the linear model is not trusted far outside).
+    progress : callable, optional
+        ``progress(done, total)`` for each verification.
+
+    Returns
+    -------
+    Allocation
+
+    Raises
+    ------
+    ScenarioError
+        No requirements, or a cost on an input without a tolerance.
+
+    Notes
+    -----
+    Linear pass: see the module notes, :func:`uncertainty_bound`,
+    :func:`lagrange_allocation`, :func:`allocate_tiers`. Correlations between
+    inputs are ignored by the linear pass and included by the Monte Carlo
+    verification. Refinement: a probability requirement met with estimate
+    ``P`` against a target ``p`` rescales its bound by ``z(P) / z(p)`` (normal
+    quantiles; clipped to [1/2, 2] per round), a spread requirement by
+    ``limit / spread``; every round reuses the same unit design (common
+    random numbers), and the cheapest allocation that passes is kept.
+    """
+    from trapbudget.sensitivity.compare import common_random_samples
+    from trapbudget.sensitivity.errors import ScenarioError
+    from trapbudget.sensitivity.sampling import unit_design
+
+    requirements = tuple(scenario.requirements)  # type: ignore[attr-defined]
+    source = getattr(scenario, "source", None)
+    if not requirements:
+        raise ScenarioError(
+            "no requirements to allocate against; add a [[requirements]] table",
+            path=source,
+            key="requirements",
+        )
+    if not scenario.costs:  # type: ignore[attr-defined]
+        raise ScenarioError(
+            "no cost tables, so no input is free to change; add [costs.<input>] tiers or smooth",
+            path=source,
+            key="costs",
+        )
+    labels = [_label_of(req, i) for i, req in enumerate(requirements)]
+    setup = _linear_setup(scenario, requirements, labels)
+    settings = getattr(scenario, "settings", None)
+    n = int(n_samples if n_samples is not None else getattr(settings, "n_samples", 4096))
+    m = str(method if method is not None else getattr(settings, "method", "sobol"))
+    seed = rng if rng is not None else getattr(settings, "seed", None)
+    unit = unit_design(n, len(scenario.inputs), method=m, rng=seed)  # type: ignore[attr-defined]
+
+    bounds = setup.bounds.astype(float).copy()
+    best = None
+    history = []
+    last = None
+    reason = ""
+    failing = blocking = ""
+    rounds = max(1, int(max_iterations)) if refine else 1
+    for _ in range(rounds):
+        problem = _problem(scenario, setup, bounds, max_loosen)
+        solution = allocate_tiers(problem, fixed_parts=_fixed_parts(scenario, setup))
+        if not solution.feasible:
+            failing, blocking = solution.failing, solution.blocking
+            last = (problem, solution, None, None)
+            break
+        tolerances = _tolerances(scenario, setup, solution)
+        candidate = scenario.with_tolerances(tolerances)  # type: ignore[attr-defined]
+        (samples,) = common_random_samples(
+            [candidate], n_samples=n, method=m, unit=unit, progress=progress
+        )  # type: ignore[arg-type]
+        checks = _check(samples, requirements, safety_margin=safety_margin)
+        passed = all(c["met"] for c in checks)
+        history.append((solution.cost, passed))
+        last = (problem, solution, tolerances, (candidate, samples, checks))
+        if passed and (best is None or solution.cost <= best[1].cost):
+            best = last
+        factors = np.array([min(max(c["factor"], 0.5), 2.0) for c in checks])
+        used = solution.variance / np.where(np.isfinite(problem.budgets), problem.budgets, np.inf)
+        active = used > 0.9
+        if passed and np.all(np.abs(np.log(factors[active])) < math.log(1.05)):
+            break
+        for r, check in enumerate(checks):
+            if check["met"] and not active[r]:
+                continue
+            if not math.isfinite(bounds[r]):
+                bounds[r] = math.sqrt(max(solution.variance[r], 1e-300))
+            bounds[r] *= factors[r]
+
+    chosen = best if best is not None else last
+    problem, solution, tolerances, verified = chosen  # type: ignore[misc]
+    feasible = best is not None
+    if not solution.feasible:
+        r = labels.index(failing) if failing in labels else 0
+        if setup.bounds[r] == 0.0:
+            reason = (
+                f"requirement '{failing}' fails at the nominal point "
+                f"({requirements[r].output} = {setup.means[r]:.4g}); no tolerance can meet it: "
+                "change a nominal value or the requirement"
+            )
+            blocking = "nominal"
+        else:
+            reason = (
+                f"requirement '{failing}' cannot be met by any affordable choice: "
+                f"'{blocking}' alone (at its tightest option, or held fixed) leaves too little "
+                "room; add a tighter tier for it or relax the requirement"
+            )
+    elif not feasible:
+        bad = [labels[r] for r, c in enumerate(verified[2]) if not c["met"]]
+        failing = bad[0] if bad else ""
+        reason = (
+            f"the linear allocation fails the Monte Carlo check of '{', '.join(bad)}' after "
+            f"{len(history)} rounds; the model curves too much here: raise max_iterations "
+            "or n_samples"
+        )
+    else:
+        reason = f"all {len(requirements)} requirement(s) met at a cost of {solution.cost:.6g}"
+    return _result(
+        scenario,
+        setup,
+        problem,
+        solution,
+        tolerances,
+        verified,
+        feasible=feasible,
+        reason=reason,
+        failing=failing,
+        blocking=blocking,
+        n_samples=n,
+        method=m,
+        seed=seed,
+        history=tuple(history),
+        max_loosen=max_loosen,
+    )
+
+
+def _fixed_parts(scenario, setup: _Setup) -> dict[str, np.ndarray]:
+    n_req = len(setup.requirements)
+    return {
+        name: np.array(
+            [
+                setup.sensitivity[(r, name)]
+                * float(scenario.tolerances[name].standard_uncertainty) ** 2
+                for r in range(n_req)
+            ]
+        )
+        for name in setup.fixed
+    }
+
+
+def _result(
+    scenario,
+    setup,
+    problem,
+    solution,
+    tolerances,
+    verified,
+    *,
+    feasible,
+    reason,
+    failing,
+    blocking,
+    n_samples,
+    method,
+    seed,
+    history,
+    max_loosen,
+) -> Allocation:
+    import xarray as xr
+
+    names = list(scenario.inputs)
+    tol = scenario.tolerances
+    tolerances = tolerances or {}
+    n_req = len(setup.requirements)
+    budgets = np.asarray(problem.budgets, dtype=float)
+    variance = np.asarray(solution.variance, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        pressure = np.where(budgets > 0, variance / budgets, np.inf)
+    rows: dict[str, list] = {
+        k: []
+        for k in (
+            "present_tolerance",
+            "required_tolerance",
+            "present_uncertainty",
+            "required_uncertainty",
+            "headroom",
+            "tier",
+            "cost",
+            "binding",
+            "free",
+            "present_text",
+            "required_text",
+            "unit",
+        )
+    }
+    for name in names:
+        present = tol[name]
+        required = tolerances.get(name, present)
+        model = scenario.costs.get(name)
+        tier, cost, cheapest = "", 0.0, True
+        if model is not None and name in tolerances:
+            if hasattr(model, "tiers"):
+                k = solution.tier_index[setup.free_tiered.index(name)]
+                tier, cost = str(model.tiers[k].name), float(model.tiers[k].cost)
+                cheapest = cost <= min(float(t.cost) for t in model.tiers)
+            else:
+                cost = float(model.cost(float(required.value)))
+                cheapest = float(required.value) >= float(present.value) * max_loosen * (1 - 1e-9)
+        binding = ""
+        if model is not None and not cheapest:
+            contributes = [r for r in range(n_req) if setup.sensitivity[(r, name)] > 0]
+            if contributes:
+                binding = setup.labels[max(contributes, key=lambda r: pressure[r])]
+        rows["present_tolerance"].append(float(present.value))
+        rows["required_tolerance"].append(float(required.value))
+        rows["present_uncertainty"].append(float(present.standard_uncertainty))
+        rows["required_uncertainty"].append(float(required.standard_uncertainty))
+        rows["headroom"].append(
+            float(present.value) / float(required.value) if required.value > 0 else math.inf
+        )
+        rows["tier"].append(tier)
+        rows["cost"].append(cost if feasible else math.nan)
+        rows["binding"].append(binding)
+        rows["free"].append(model is not None)
+        rows["present_text"].append(str(present.text or ""))
+        rows["required_text"].append(str(required.text or ""))
+        rows["unit"].append(str(getattr(present, "unit", "") or ""))
+    long_names = {
+        "present_tolerance": "present tolerance value (as written, SI)",
+        "required_tolerance": "required tolerance value (as written, SI)",
+        "present_uncertainty": "present standard uncertainty (SI)",
+        "required_uncertainty": "required standard uncertainty (SI)",
+        "headroom": "present / required tolerance (above 1: tighten by this factor)",
+        "tier": "cost tier chosen",
+        "cost": "cost of the allocated tolerance",
+        "binding": "requirement that sets this tolerance",
+        "free": "has a cost model (free to change)",
+        "present_text": "present tolerance as written",
+        "required_text": "required tolerance as written",
+        "unit": "SI unit of the input",
+    }
+    spec = xr.Dataset(coords={"input": names})
+    for key, values in rows.items():
+        dtype = bool if key == "free" else (str if isinstance(values[0], str) else float)
+        spec[key] = xr.DataArray(
+            np.asarray(values, dtype=dtype), dims="input", attrs={"long_name": long_names[key]}
+        )
+    total = float(solution.cost) if feasible else math.inf
+    attrs = {
+        "feasible": bool(feasible),
+        "reason": reason,
+        "total_cost": total,
+        "currency": str(getattr(scenario, "currency", "") or ""),
+        "failing_requirement": failing,
+        "blocking_input": blocking if not feasible else "",
+        "n_samples": int(n_samples),
+        "method": method,
+        "seed": seed if isinstance(seed, int) else "",
+        "iterations": len(history),
+        "title": str(getattr(scenario, "title", "")),
+    }
+    spec.attrs.update(attrs)
+
+    checks = verified[2] if verified is not None else None
+    samples = verified[1] if verified is not None else None
+    reqs = xr.Dataset(coords={"requirement": setup.labels})
+    req_rows = {
+        "output": [r.output for r in setup.requirements],
+        "kind": [r.kind for r in setup.requirements],
+        "target": [
+            math.nan if r.probability is None else float(r.probability) for r in setup.requirements
+        ],
+        "probability": [
+            c["probability"] if checks else math.nan for c in (checks or [{}] * n_req)
+        ],
+        "standard_error": [
+            c["standard_error"] if checks else math.nan for c in (checks or [{}] * n_req)
+        ],
+        "relative_spread": [c["spread"] if checks else math.nan for c in (checks or [{}] * n_req)],
+        "met": [bool(c["met"]) if checks else False for c in (checks or [{}] * n_req)],
+        "linear_bound": list(np.sqrt(budgets)),
+        "linear_std": list(np.sqrt(np.maximum(variance, 0.0))),
+        "monte_carlo_std": [
+            float(np.std(samples[r.output].values, ddof=1)) if samples is not None else math.nan
+            for r in setup.requirements
+        ],
+        "output_nominal": list(setup.means),
+    }
+    for key, values in req_rows.items():
+        dtype = bool if key == "met" else (str if isinstance(values[0], str) else float)
+        reqs[key] = xr.DataArray(np.asarray(values, dtype=dtype), dims="requirement")
+    reqs.attrs.update(attrs)
+    return Allocation(
+        feasible=bool(feasible),
+        reason=reason,
+        total_cost=total,
+        spec=spec,
+        requirements=reqs,
+        tolerances=dict(tolerances),
+        scenario=verified[0] if (verified is not None and feasible) else None,
+        samples=samples,
+        iterations=len(history),
+        history=history,
+    )

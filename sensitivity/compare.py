@@ -1,0 +1,556 @@
+"""Before/after comparison of scenarios with common random numbers.
+
+A proposed change (a tighter tolerance, a new nominal, a different component)
+is judged by pushing the *same* unit-cube design through the distributions of
+both sides (common random numbers, CRN): sample k of "before" and sample k of
+"after" share their underlying uniforms, so the differences of means,
+variances and probabilities carry only the noise of the change itself, not that
+of two independent draws. Standard errors of the differences are those of the
+paired samples.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Sequence
+
+import numpy as np
+import xarray as xr
+
+__all__ = [
+    "common_random_samples",
+    "compare",
+    "compare_samples",
+    "compare_upgrades",
+    "requirement_indicator",
+]
+
+SECONDS_PER_DAY = 86400.0
+
+
+# ---------------------------------------------------------------------------
+# common random numbers
+# ---------------------------------------------------------------------------
+
+
+def _uncertain_names(scenarios: Sequence[object]) -> list[str]:
+    names: list[str] = []
+    for scenario in scenarios:
+        for name in scenario.inputs:  # type: ignore[attr-defined]
+            if name not in names:
+                names.append(name)
+    return names
+
+
+def _required_outputs(scenario: object, outputs: Sequence[str] | None) -> list[str]:
+    wanted = list(outputs) if outputs is not None else list(scenario.outputs)  # type: ignore[attr-defined]
+    for req in scenario.requirements:  # type: ignore[attr-defined]
+        if req.output not in wanted:
+            wanted.append(req.output)
+    return wanted
+
+
+def common_random_samples(
+    scenarios: Sequence[object],
+    *,
+    n_samples: int,
+    method: str = "sobol",
+    rng: object = None,
+    outputs: Sequence[str] | None = None,
+    unit: np.ndarray | None = None,
+    chunk_size: int = 65536,
+    progress: Callable[[int, int], None] | None = None,
+) -> list[xr.Dataset]:
+    """Propagate several scenarios through one shared unit-cube design.
+
+    Parameters
+    ----------
+    scenarios : sequence of Scenario
+        Scenarios to evaluate; they may differ in tolerances, nominal values,
+        correlations and model.
+    n_samples : int
+        Number of samples (a power of 2 for ``method="sobol"``).
+    method : {"random", "latin", "sobol"}
+        Design of the unit cube (:func:`trapbudget.sensitivity.sampling.unit_design`).
+    rng : seed or numpy.random.Generator, optional
+        Randomness of the design.
+    outputs : sequence of str, optional
+        Outputs to keep (default each scenario's outputs plus those its
+        requirements name).
+    unit : array (n_samples, d), optional
+        A precomputed design over the union of the scenarios' uncertain
+        inputs (in order of first appearance); drawn when omitted.
+    chunk_size : int
+        Samples per model call (bounded memory).
+    progress : callable, optional
+        ``progress(done, total)`` over all scenarios.
+
+    Returns
+    -------
+    list of xarray.Dataset
+        One samples Dataset per scenario, dim ``sample``, in the schema of
+        :func:`trapbudget.sensitivity.propagate.propagate`; sample k of every
+        Dataset comes from row k of the same unit design.
+
+    Notes
+    -----
+    Column j of the design always feeds the same input, whichever scenarios it
+    is uncertain in; each scenario maps its columns through its own marginals
+    (and Gaussian copula, if correlated), so an input with an unchanged
+    distribution takes identical values on both sides.
+
+    References
+    ----------
+    P. Glasserman, "Monte Carlo Methods in Financial Engineering" (Springer
+    2004), section 4.2 (common random numbers).
+    """
+    from trapbudget.sensitivity.protocol import evaluate_in_chunks
+    from trapbudget.sensitivity.sampling import transform, unit_design
+
+    names = _uncertain_names(scenarios)
+    if unit is None:
+        unit = unit_design(n_samples, len(names), method=method, rng=rng)
+    unit = np.asarray(unit, dtype=float)
+    total = len(scenarios) * unit.shape[0]
+    results = []
+    for k, scenario in enumerate(scenarios):
+        own = list(scenario.inputs)  # type: ignore[attr-defined]
+        columns = unit[:, [names.index(n) for n in own]]
+        values = transform(
+            columns,
+            [scenario.inputs[n] for n in own],  # type: ignore[attr-defined]
+            correlation=scenario.correlation,  # type: ignore[attr-defined]
+        )
+        mapping = {n: values[:, i] for i, n in enumerate(own)}
+
+        def step(done: int, _total: int, k: int = k) -> None:
+            if progress is not None:
+                progress(k * unit.shape[0] + done, total)
+
+        result = evaluate_in_chunks(scenario.model, mapping, chunk_size=chunk_size, progress=step)  # type: ignore[attr-defined]
+        results.append(_samples_dataset(scenario, mapping, result, outputs, method=method))
+    return results
+
+
+def _samples_dataset(scenario, inputs, result, outputs, *, method) -> xr.Dataset:
+    model = scenario.model
+    in_specs = getattr(model, "inputs", {}) or {}
+    out_specs = getattr(model, "outputs", {}) or {}
+    data = {}
+    for name, values in inputs.items():
+        spec = in_specs.get(name)
+        data[name] = xr.Variable(
+            "sample",
+            np.asarray(values, dtype=float),
+            {
+                "units": getattr(spec, "unit", ""),
+                "long_name": getattr(spec, "description", name),
+                "role": "input",
+            },
+        )
+    for name in _required_outputs(scenario, outputs):
+        spec = out_specs.get(name)
+        data[name] = xr.Variable(
+            "sample",
+            np.asarray(result[name], dtype=float),
+            {
+                "units": getattr(spec, "unit", ""),
+                "long_name": getattr(spec, "description", name),
+                "role": "output",
+            },
+        )
+    if "validity" in result:
+        data["validity"] = xr.Variable(
+            "sample",
+            np.asarray(result["validity"]),
+            {"long_name": "validity bit mask", "role": "validity"},
+        )
+    n = len(next(iter(inputs.values()))) if inputs else 0
+    return xr.Dataset(
+        data,
+        attrs={"method": method, "n_samples": n, "title": str(getattr(scenario, "title", ""))},
+    )
+
+
+# ---------------------------------------------------------------------------
+# analysis of paired samples
+# ---------------------------------------------------------------------------
+
+
+def requirement_indicator(values: np.ndarray, requirement: object) -> np.ndarray | None:
+    """Per-sample indicator that a requirement holds (None for a spread requirement).
+
+    Parameters
+    ----------
+    values : array
+        Samples of the requirement's output, output units.
+    requirement : Requirement
+        With ``kind`` and ``limit`` (SI).
+
+    Returns
+    -------
+    numpy.ndarray of bool or None
+        ``None`` for ``"relative_spread_at_most"``, a property of the whole
+        distribution rather than of one run.
+    """
+    kind = requirement.kind  # type: ignore[attr-defined]
+    limit = requirement.limit  # type: ignore[attr-defined]
+    values = np.asarray(values, dtype=float)
+    if kind == "at_least":
+        return values >= limit
+    if kind == "at_most":
+        return values <= limit
+    if kind == "within":
+        lo, hi = limit
+        return (values >= lo) & (values <= hi)
+    return None
+
+
+def _quantiles(values: np.ndarray, confidence_level: float) -> tuple[float, float]:
+    tail = (1.0 - confidence_level) / 2.0
+    lo, hi = np.quantile(values, [tail, 1.0 - tail])
+    return float(lo), float(hi)
+
+
+def _label(requirement: object, index: int) -> str:
+    label = getattr(requirement, "label", "") or ""
+    return label or f"{requirement.output} {requirement.kind} #{index + 1}"  # type: ignore[attr-defined]
+
+
+def compare_samples(
+    before: xr.Dataset,
+    after: xr.Dataset,
+    *,
+    outputs: Sequence[str] | None = None,
+    requirements: Sequence[object] = (),
+    confidence_level: float = 0.95,
+    repetition_rate: float | None = None,
+    cost: float | None = None,
+) -> xr.Dataset:
+    """Compare paired output samples of two scenarios (same design, row by row).
+
+    Parameters
+    ----------
+    before, after : xarray.Dataset
+        Samples Datasets (dim ``sample``) from :func:`common_random_samples`.
+    outputs : sequence of str, optional
+        Outputs to compare (default: every output variable present in both).
+    requirements : sequence of Requirement
+        Requirements whose probability of being met is compared.
+    confidence_level : float
+        Probability of the probabilistically symmetric coverage intervals.
+    repetition_rate : float, optional
+        Experimental runs per second (Hz); gives the expected failing runs per day.
+    cost : float, optional
+        Cost of the change, in the scenario's currency.
+
+    Returns
+    -------
+    xarray.Dataset
+        Dim ``output``: ``mean_before``, ``mean_after``, ``mean_change``,
+        ``mean_change_standard_error`` (paired), ``std_before``, ``std_after``,
+        ``interval_low_before`` ... ``interval_high_after``,
+        ``variance_before``, ``variance_after``, ``variance_removed``
+        (before minus after, output units squared) and
+        ``variance_removed_fraction``. Dim ``requirement``:
+        ``probability_before``, ``probability_after``, ``probability_shift``
+        and its paired ``shift_standard_error``, ``failing_per_day_before`` and
+        ``failing_per_day_after`` (NaN without a repetition rate), and for a
+        spread requirement the estimated ``relative_spread_before/after``.
+
+    Notes
+    -----
+    With indicators ``I_b``, ``I_a`` of one requirement on paired samples, the
+    standard error of the shift ``mean(I_a - I_b)`` is
+    ``std(I_a - I_b) / sqrt(n)``: zero when the change never flips a run,
+    however rare the failures (binomial, paired). Expected failing runs per day
+    are ``(1 - P) f_rep 86400 s``.
+    """
+    if before.sizes.get("sample") != after.sizes.get("sample"):
+        raise ValueError("before and after must have the same number of paired samples")
+    n = int(before.sizes["sample"])
+    if outputs is None:
+        outputs = [
+            v
+            for v in before.data_vars
+            if before[v].attrs.get("role") == "output" and v in after.data_vars
+        ]
+    outputs = list(outputs)
+    per_output: dict[str, list[float]] = {}
+    for name in outputs:
+        b = np.asarray(before[name].values, dtype=float)
+        a = np.asarray(after[name].values, dtype=float)
+        diff = a - b
+        vb, va = float(np.var(b, ddof=1)), float(np.var(a, ddof=1))
+        lb, hb = _quantiles(b, confidence_level)
+        la, ha = _quantiles(a, confidence_level)
+        row = {
+            "mean_before": float(np.mean(b)),
+            "mean_after": float(np.mean(a)),
+            "mean_change": float(np.mean(diff)),
+            "mean_change_standard_error": float(np.std(diff, ddof=1) / math.sqrt(n)),
+            "std_before": math.sqrt(vb),
+            "std_after": math.sqrt(va),
+            "interval_low_before": lb,
+            "interval_high_before": hb,
+            "interval_low_after": la,
+            "interval_high_after": ha,
+            "variance_before": vb,
+            "variance_after": va,
+            "variance_removed": vb - va,
+            "variance_removed_fraction": (vb - va) / vb if vb > 0 else 0.0,
+        }
+        for key, value in row.items():
+            per_output.setdefault(key, []).append(value)
+    ds = xr.Dataset(coords={"output": outputs})
+    for key, values in per_output.items():
+        ds[key] = ("output", np.asarray(values))
+    for name in outputs:
+        ds.attrs[f"units_{name}"] = before[name].attrs.get("units", "")
+
+    labels, rows = [], []
+    rate = math.nan if repetition_rate is None else float(repetition_rate)
+    for i, req in enumerate(requirements):
+        labels.append(_label(req, i))
+        b = np.asarray(before[req.output].values, dtype=float)  # type: ignore[attr-defined]
+        a = np.asarray(after[req.output].values, dtype=float)  # type: ignore[attr-defined]
+        ib, ia = requirement_indicator(b, req), requirement_indicator(a, req)
+        row = dict.fromkeys(
+            (
+                "probability_before",
+                "probability_after",
+                "probability_shift",
+                "shift_standard_error",
+                "failing_per_day_before",
+                "failing_per_day_after",
+                "relative_spread_before",
+                "relative_spread_after",
+            ),
+            math.nan,
+        )
+        row["target"] = math.nan if req.probability is None else float(req.probability)  # type: ignore[attr-defined]
+        if ib is None:
+            row["relative_spread_before"] = float(np.std(b, ddof=1) / abs(np.mean(b)))
+            row["relative_spread_after"] = float(np.std(a, ddof=1) / abs(np.mean(a)))
+        else:
+            pb, pa = float(ib.mean()), float(ia.mean())
+            flips = ia.astype(float) - ib.astype(float)
+            row.update(
+                probability_before=pb,
+                probability_after=pa,
+                probability_shift=pa - pb,
+                shift_standard_error=float(np.std(flips, ddof=1) / math.sqrt(n)) if n > 1 else 0.0,
+                failing_per_day_before=(1.0 - pb) * rate * SECONDS_PER_DAY,
+                failing_per_day_after=(1.0 - pa) * rate * SECONDS_PER_DAY,
+            )
+        row["output_name"] = req.output  # type: ignore[attr-defined]
+        row["kind"] = req.kind  # type: ignore[attr-defined]
+        rows.append(row)
+    if rows:
+        coords = {"requirement": labels}
+        for key in rows[0]:
+            values = [r[key] for r in rows]
+            dtype = object if isinstance(values[0], str) else float
+            ds[key] = xr.DataArray(
+                np.asarray(values, dtype=dtype).astype(str if dtype is object else float),
+                dims="requirement",
+                coords=coords,
+            )
+        ds = ds.rename({"output_name": "requirement_output"})
+    ds.attrs.update(
+        n_samples=n,
+        confidence_level=float(confidence_level),
+        repetition_rate=rate,
+        cost=math.nan if cost is None else float(cost),
+    )
+    return ds
+
+
+# ---------------------------------------------------------------------------
+# scenario-level drivers
+# ---------------------------------------------------------------------------
+
+
+def _settings(scenario, n_samples, method, rng):
+    settings = getattr(scenario, "settings", None)
+    n = n_samples if n_samples is not None else getattr(settings, "n_samples", 4096)
+    m = method if method is not None else getattr(settings, "method", "sobol")
+    r = rng if rng is not None else getattr(settings, "seed", None)
+    level = getattr(settings, "confidence_level", 0.95)
+    return int(n), str(m), r, float(level)
+
+
+def compare(
+    before: object,
+    after: object,
+    *,
+    n_samples: int | None = None,
+    rng: object = None,
+    method: str | None = None,
+    outputs: Sequence[str] | None = None,
+    repetition_rate: float | None = None,
+    cost: float | None = None,
+    progress: Callable[[int, int], None] | None = None,
+) -> xr.Dataset:
+    """Compare two scenarios (before and after a change) with common random numbers.
+
+    Parameters
+    ----------
+    before, after : Scenario
+        The present apparatus and the proposed one.
+    n_samples : int, optional
+        Samples per side (default the ``before`` scenario's setting).
+    rng : seed or numpy.random.Generator, optional
+        Randomness of the shared design (default the scenario's seed).
+    method : {"random", "latin", "sobol"}, optional
+        Design (default the scenario's setting).
+    outputs : sequence of str, optional
+        Outputs to compare (default those of ``before``).
+    repetition_rate : float, optional
+        Runs per second, Hz, for expected failing runs per day.
+    cost : float, optional
+        Cost of the change.
+    progress : callable, optional
+        ``progress(done, total)``.
+
+    Returns
+    -------
+    xarray.Dataset
+        As :func:`compare_samples`, judged against the requirements of
+        ``before`` (a change must not move the goalposts).
+    """
+    n, m, r, level = _settings(before, n_samples, method, rng)
+    outs = list(outputs) if outputs is not None else _required_outputs(before, None)
+    samples_before, samples_after = common_random_samples(
+        [before, after], n_samples=n, method=m, rng=r, outputs=outs, progress=progress
+    )
+    ds = compare_samples(
+        samples_before,
+        samples_after,
+        outputs=outs,
+        requirements=before.requirements,  # type: ignore[attr-defined]
+        confidence_level=level,
+        repetition_rate=repetition_rate,
+        cost=cost,
+    )
+    ds.attrs.update(
+        title_before=str(getattr(before, "title", "")),
+        title_after=str(getattr(after, "title", "")),
+        method=m,
+        seed=r if isinstance(r, int) else "",
+    )
+    return ds
+
+
+def _benefit(ds: xr.Dataset) -> float:
+    """Improvement used to rank changes: probability gained, else variance removed."""
+    if "probability_shift" in ds and np.isfinite(ds["probability_shift"].values).any():
+        return float(np.nansum(ds["probability_shift"].values))
+    return float(ds["variance_removed_fraction"].values[0])
+
+
+def compare_upgrades(
+    scenario: object,
+    upgrades: Sequence[object] | None = None,
+    *,
+    n_samples: int | None = None,
+    rng: object = None,
+    method: str | None = None,
+    outputs: Sequence[str] | None = None,
+    repetition_rate: float | None = None,
+    progress: Callable[[int, int], None] | None = None,
+) -> xr.Dataset:
+    """Compare every named upgrade of a scenario against it, on one shared design.
+
+    Parameters
+    ----------
+    scenario : Scenario
+        The present apparatus.
+    upgrades : sequence of Upgrade, optional
+        Changes to judge (default the scenario's ``[[upgrades]]``).
+    n_samples, rng, method, outputs, repetition_rate, progress
+        As for :func:`compare`.
+
+    Returns
+    -------
+    xarray.Dataset
+        The :func:`compare_samples` variables with an extra leading dim
+        ``upgrade``, plus ``cost``, ``benefit`` (summed probability gained over
+        the requirements, or the fraction of variance of the first output
+        removed when there are no probability requirements),
+        ``benefit_per_cost`` (``inf`` for a free improvement) and ``rank``
+        (1 = best improvement per unit cost).
+
+    Raises
+    ------
+    ScenarioError
+        When there is no upgrade to compare.
+    """
+    from trapbudget.sensitivity.errors import ScenarioError
+
+    upgrades = list(scenario.upgrades if upgrades is None else upgrades)  # type: ignore[attr-defined]
+    if not upgrades:
+        raise ScenarioError(
+            "no upgrades to compare; add [[upgrades]] tables (name, cost, changes)",
+            path=getattr(scenario, "source", None),
+            key="upgrades",
+        )
+    n, m, r, level = _settings(scenario, n_samples, method, rng)
+    outs = list(outputs) if outputs is not None else _required_outputs(scenario, None)
+    afters = [scenario.apply_upgrade(u) for u in upgrades]  # type: ignore[attr-defined]
+    samples = common_random_samples(
+        [scenario, *afters], n_samples=n, method=m, rng=r, outputs=outs, progress=progress
+    )
+    parts = []
+    for upgrade, after in zip(upgrades, samples[1:], strict=True):
+        parts.append(
+            compare_samples(
+                samples[0],
+                after,
+                outputs=outs,
+                requirements=scenario.requirements,  # type: ignore[attr-defined]
+                confidence_level=level,
+                repetition_rate=repetition_rate,
+                cost=float(upgrade.cost),  # type: ignore[attr-defined]
+            )
+        )
+    names = [str(u.name) for u in upgrades]  # type: ignore[attr-defined]
+    ds = xr.concat(
+        parts,
+        dim=xr.DataArray(names, dims="upgrade", name="upgrade"),
+        data_vars="all",
+        coords="minimal",
+        compat="override",
+        combine_attrs="drop_conflicts",
+    )
+    for key in ("requirement_output", "kind"):
+        if key in ds:
+            ds[key] = ds[key].isel(upgrade=0, drop=True)
+    costs = np.array([float(u.cost) for u in upgrades])  # type: ignore[attr-defined]
+    benefit = np.array([_benefit(p) for p in parts])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        per_cost = np.where(
+            costs > 0,
+            benefit / costs,
+            np.where(benefit > 0, np.inf, np.where(benefit < 0, -np.inf, 0.0)),
+        )
+    order = np.argsort(-per_cost, kind="stable")
+    rank = np.empty(len(names), dtype=int)
+    rank[order] = np.arange(1, len(names) + 1)
+    ds["cost"] = ("upgrade", costs)
+    ds["benefit"] = ("upgrade", benefit)
+    ds["benefit_per_cost"] = ("upgrade", per_cost)
+    ds["rank"] = ("upgrade", rank)
+    ds.attrs.pop("cost", None)
+    ds.attrs.update(
+        title=str(getattr(scenario, "title", "")),
+        currency=str(getattr(scenario, "currency", "") or ""),
+        method=m,
+        seed=r if isinstance(r, int) else "",
+        benefit_metric=(
+            "probability gained, summed over requirements"
+            if "probability_shift" in ds and np.isfinite(ds["probability_shift"].values).any()
+            else f"fraction of Var({outs[0]}) removed"
+        ),
+    )
+    return ds

@@ -1,0 +1,143 @@
+"""Tests of before/after comparison with common random numbers (trapbudget.sensitivity.compare)."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from trapbudget.sensitivity.compare import common_random_samples, compare_samples
+from trapbudget.sensitivity.testfunctions import LinearModel
+
+N = 2**14
+COEFFICIENTS = (2.0, -1.0, 0.5)
+OFFSET = 10.0
+
+
+@dataclass(frozen=True)
+class _Requirement:
+    output: str
+    kind: str
+    limit: float | tuple[float, float]
+    probability: float | None = None
+    label: str = ""
+
+
+@dataclass(frozen=True)
+class _Side:
+    """The attributes of a Scenario that the CRN machinery reads."""
+
+    inputs: dict
+    model: object = field(default_factory=lambda: LinearModel(COEFFICIENTS, offset=OFFSET))
+    correlation: np.ndarray | None = None
+    outputs: tuple = ("y",)
+    requirements: tuple = ()
+
+
+def _side(sd=(0.1, 0.2, 0.4), requirements=()):
+    return _Side(
+        inputs={f"x{i + 1}": stats.norm(0.0, s) for i, s in enumerate(sd)},
+        requirements=tuple(requirements),
+    )
+
+
+def _linear_variance(sd):
+    # Var Y = sum b_i^2 s_i^2 for independent inputs (references.md, linear model [F])
+    return sum(b * b * s * s for b, s in zip(COEFFICIENTS, sd, strict=True))
+
+
+def test_scenario_compared_with_itself_shows_exactly_no_change():
+    req = _Requirement("y", "at_least", 9.8, 0.9, "enough")
+    side = _side(requirements=[req])
+    before, after = common_random_samples([side, side], n_samples=N, rng=5)
+    ds = compare_samples(before, after, requirements=[req])
+    assert float(ds["mean_change"].item()) == 0.0
+    assert float(ds["variance_removed"].item()) == 0.0
+    assert float(ds["probability_shift"].item()) == 0.0
+    assert float(ds["shift_standard_error"].item()) == 0.0
+
+
+def test_halving_one_tolerance_removes_the_predicted_variance_share():
+    # linear model: Var removed = b1^2 u1^2 (1 - 1/4), share of Var(before) (references.md [F])
+    sd = (0.3, 0.2, 0.4)
+    before, after = common_random_samples(
+        [_side(sd), _side((sd[0] / 2, sd[1], sd[2]))], n_samples=N, rng=11
+    )
+    ds = compare_samples(before, after)
+    expected = COEFFICIENTS[0] ** 2 * sd[0] ** 2 * 0.75 / _linear_variance(sd)
+    # relative standard error of a sample variance ~ sqrt(2/n) (normal theory); 5 sigma
+    tolerance = 5 * math.sqrt(2.0 / N)
+    assert float(ds["variance_removed_fraction"].item()) == pytest.approx(expected, abs=tolerance)
+    # the inputs not changed take identical values on both sides (common random numbers)
+    np.testing.assert_array_equal(before["x2"].values, after["x2"].values)
+    np.testing.assert_allclose(after["x1"].values, before["x1"].values / 2, rtol=1e-12)
+
+
+@pytest.mark.parametrize("method", ["sobol", "random"])
+def test_probabilities_match_exact_normal_values(method):
+    # linear-Gaussian model: Y ~ N(offset, sqrt(sum b^2 s^2)); exact P from scipy.stats.norm
+    sd_before, sd_after = (0.1, 0.2, 0.4), (0.1, 0.1, 0.2)
+    limit = 9.7
+    reqs = [
+        _Requirement("y", "at_least", limit, 0.9, "enough"),
+        _Requirement("y", "within", (9.6, 10.3), 0.9, "window"),
+    ]
+    before, after = common_random_samples(
+        [_side(sd_before, reqs), _side(sd_after, reqs)], n_samples=N, method=method, rng=2
+    )
+    ds = compare_samples(before, after, requirements=reqs, repetition_rate=2.0)
+    s_b, s_a = math.sqrt(_linear_variance(sd_before)), math.sqrt(_linear_variance(sd_after))
+    exact_b = [
+        stats.norm.sf(limit, OFFSET, s_b),
+        stats.norm.cdf(10.3, OFFSET, s_b) - stats.norm.cdf(9.6, OFFSET, s_b),
+    ]
+    exact_a = [
+        stats.norm.sf(limit, OFFSET, s_a),
+        stats.norm.cdf(10.3, OFFSET, s_a) - stats.norm.cdf(9.6, OFFSET, s_a),
+    ]
+    for i in range(2):
+        pb = float(ds["probability_before"].values[i])
+        pa = float(ds["probability_after"].values[i])
+        # binomial standard error sqrt(p (1 - p) / n); 4 sigma
+        assert pb == pytest.approx(
+            exact_b[i], abs=4 * math.sqrt(exact_b[i] * (1 - exact_b[i]) / N)
+        )
+        assert pa == pytest.approx(
+            exact_a[i], abs=4 * math.sqrt(exact_a[i] * (1 - exact_a[i]) / N)
+        )
+        shift_se = float(ds["shift_standard_error"].values[i])
+        assert pa - pb == pytest.approx(exact_a[i] - exact_b[i], abs=4 * shift_se + 1.0 / N)
+        # expected failing runs per day at 2 Hz: (1 - P) * 2 * 86400 (arithmetic)
+        assert float(ds["failing_per_day_after"].values[i]) == pytest.approx((1 - pa) * 2 * 86400)
+
+
+def test_paired_shift_error_is_smaller_than_independent_draws():
+    # common random numbers: Var(I_a - I_b) << Var(I_a) + Var(I_b) when the change is small
+    req = _Requirement("y", "at_least", 9.7, 0.9, "enough")
+    before, after = common_random_samples(
+        [_side((0.1, 0.2, 0.4), [req]), _side((0.1, 0.2, 0.36), [req])], n_samples=N, rng=3
+    )
+    ds = compare_samples(before, after, requirements=[req])
+    pb, pa = float(ds["probability_before"].item()), float(ds["probability_after"].item())
+    independent = math.sqrt(pb * (1 - pb) / N + pa * (1 - pa) / N)
+    assert float(ds["shift_standard_error"].item()) < 0.5 * independent
+
+
+def test_relative_spread_requirement_reports_the_spread_not_a_probability():
+    # relative spread is std / |mean| of the output (common practice)
+    req = _Requirement("y", "relative_spread_at_most", 0.05, None, "stable")
+    before, after = common_random_samples([_side(), _side((0.05, 0.1, 0.2))], n_samples=N, rng=4)
+    ds = compare_samples(before, after, requirements=[req])
+    assert math.isnan(float(ds["probability_before"].item()))
+    expected = math.sqrt(_linear_variance((0.05, 0.1, 0.2))) / OFFSET
+    assert float(ds["relative_spread_after"].item()) == pytest.approx(expected, rel=0.05)
+
+
+def test_unpaired_samples_are_refused():
+    a = common_random_samples([_side()], n_samples=256, rng=1)[0]
+    b = common_random_samples([_side()], n_samples=512, rng=1)[0]
+    with pytest.raises(ValueError, match="same number of paired samples"):
+        compare_samples(a, b)
