@@ -1,0 +1,331 @@
+"""Report rendering: sections of blocks, HTML and Markdown through Jinja2, atomic report folders.
+
+A report is a list of :class:`Section` objects. A section holds a title and a
+list of blocks (:class:`Text`, :class:`Table`, :class:`Figure`) that the two
+generic templates render, or names its own template pair
+(``templates/<template>.html.j2`` and ``templates/<template>.md.j2``, given
+``section.context``). Extra sections are added in two ways:
+
+- pass ``extra_sections=[...]`` to :func:`render_report` / :func:`write_report`;
+- or register a builder with :func:`register_section`: a callable
+  ``builder(datasets, study) -> Section | None`` called on every render
+  (return None when its Datasets are absent), so re-rendering a saved folder
+  brings the section back too.
+
+The HTML is self-contained (inline CSS, figures as base64 PNG) and autoescaped;
+the Markdown sits beside ``figures/*.png``. Folders are built in a temporary
+folder and moved into place.
+"""
+
+from __future__ import annotations
+
+import base64
+import os
+import re
+import shutil
+import tempfile
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import jinja2
+import xarray as xr
+from markupsafe import Markup
+
+from trapbudget.sensitivity.errors import UsageError
+from trapbudget.sensitivity.io import atomic_write_json, atomic_write_text, save_dataset
+
+__all__ = [
+    "DATASET_NAMES",
+    "SECTION_BUILDERS",
+    "Figure",
+    "RenderedReport",
+    "Section",
+    "Table",
+    "Text",
+    "build_sections",
+    "load_report",
+    "register_section",
+    "render_report",
+    "rerender_report",
+    "write_report",
+]
+
+#: Datasets a report folder may hold, saved as ``<name>.nc``.
+DATASET_NAMES: tuple[str, ...] = (
+    "samples",
+    "summary",
+    "linear",
+    "linear_check",
+    "budget",
+    "requirements",
+)
+
+
+@dataclass(frozen=True)
+class Text:
+    """A paragraph of plain text (escaped on output). ``kind``: 'p', 'note' or 'caution'."""
+
+    text: str
+    kind: str = "p"
+
+
+@dataclass(frozen=True)
+class Table:
+    """A table of already formatted cells; ``numeric[i]`` right-aligns column i."""
+
+    columns: Sequence[str]
+    rows: Sequence[Sequence[str]]
+    caption: str = ""
+    numeric: Sequence[bool] | None = None
+
+    def align(self, i: int) -> str:
+        return "right" if self.numeric is not None and self.numeric[i] else "left"
+
+
+@dataclass(frozen=True)
+class Figure:
+    """A PNG figure; ``name`` is its file stem in ``figures/``."""
+
+    name: str
+    png: bytes
+    caption: str = ""
+
+
+@dataclass
+class Section:
+    """One report section: a title and blocks, or its own template with a context."""
+
+    title: str
+    blocks: list[Text | Table | Figure] = field(default_factory=list)
+    template: str | None = None
+    context: dict[str, Any] = field(default_factory=dict)
+    figures: list[Figure] = field(default_factory=list)
+
+    @property
+    def anchor(self) -> str:
+        return re.sub(r"[^a-z0-9]+", "-", self.title.lower()).strip("-") or "section"
+
+    def all_figures(self) -> list[Figure]:
+        return [b for b in self.blocks if isinstance(b, Figure)] + list(self.figures)
+
+
+SectionBuilder = Callable[[Mapping[str, xr.Dataset], Mapping[str, Any]], "Section | None"]
+
+#: Builders of the sections that come after the core ones and before the closing ones.
+SECTION_BUILDERS: list[SectionBuilder] = []
+
+
+def register_section(builder: SectionBuilder) -> SectionBuilder:
+    """Register ``builder(datasets, study) -> Section | None``; usable as a decorator."""
+    if builder not in SECTION_BUILDERS:
+        SECTION_BUILDERS.append(builder)
+    return builder
+
+
+def build_sections(
+    datasets: Mapping[str, xr.Dataset],
+    study: Mapping[str, Any],
+    *,
+    extra_sections: Sequence[Section] = (),
+) -> list[Section]:
+    """Core sections, registered ones, ``extra_sections``, then assumptions and cautions."""
+    from trapbudget.reports import sections as core
+
+    built: list[Section | None] = [b(datasets, study) for b in core.CORE_BUILDERS]
+    built += [b(datasets, study) for b in SECTION_BUILDERS]
+    built += list(extra_sections)
+    built += [b(datasets, study) for b in core.CLOSING_BUILDERS]
+    return [s for s in built if s is not None]
+
+
+# --------------------------------------------------------------------------- templates
+
+_MD_ESCAPES = str.maketrans({"<": "&lt;", ">": "&gt;", "&": "&amp;"})
+
+
+def _md_finalize(value: Any) -> Any:
+    if isinstance(value, Markup) or not isinstance(value, str):
+        return value
+    return value.translate(_MD_ESCAPES)
+
+
+def _md_cell(value: Any) -> str:
+    text = " ".join(str(value).split())
+    return text.replace("|", "\\|")
+
+
+def _environment(kind: str) -> jinja2.Environment:
+    loader = jinja2.PackageLoader("trapbudget.reports", "templates")
+    if kind == "html":
+        env = jinja2.Environment(
+            loader=loader,
+            autoescape=True,
+            trim_blocks=True,
+            lstrip_blocks=True,
+            undefined=jinja2.StrictUndefined,
+        )
+    else:
+        env = jinja2.Environment(
+            loader=loader,
+            autoescape=False,
+            trim_blocks=True,
+            lstrip_blocks=True,
+            finalize=_md_finalize,
+            undefined=jinja2.StrictUndefined,
+        )
+        env.filters["mdcell"] = _md_cell
+    env.globals.update(
+        is_text=lambda b: isinstance(b, Text),
+        is_table=lambda b: isinstance(b, Table),
+        is_figure=lambda b: isinstance(b, Figure),
+    )
+    return env
+
+
+def _data_uri(png: bytes) -> str:
+    return "data:image/png;base64," + base64.b64encode(png).decode("ascii")
+
+
+@dataclass(frozen=True)
+class RenderedReport:
+    """The rendered report: HTML text, Markdown text and the figures by file stem."""
+
+    html: str
+    markdown: str
+    figures: dict[str, bytes]
+
+
+def render_report(
+    datasets: Mapping[str, xr.Dataset],
+    study: Mapping[str, Any],
+    *,
+    extra_sections: Sequence[Section] = (),
+    figure_dir: str = "figures",
+) -> RenderedReport:
+    """Render the report's HTML and Markdown from the result Datasets and the study record."""
+    sections = build_sections(datasets, study, extra_sections=extra_sections)
+    figures: dict[str, bytes] = {}
+    for section in sections:
+        for fig in section.all_figures():
+            if fig.name in figures:
+                raise ValueError(f"two figures named {fig.name!r}; figure names must be unique")
+            figures[fig.name] = fig.png
+    html = (
+        _environment("html")
+        .get_template("report.html.j2")
+        .render(study=study, sections=sections, data_uri=_data_uri)
+    )
+    markdown = (
+        _environment("md")
+        .get_template("report.md.j2")
+        .render(study=study, sections=sections, figure_dir=figure_dir)
+    )
+    return RenderedReport(html=html, markdown=markdown, figures=figures)
+
+
+# --------------------------------------------------------------------------- folders
+
+
+def _write_rendered(folder: Path, rendered: RenderedReport) -> None:
+    fig_dir = folder / "figures"
+    fig_dir.mkdir(parents=True, exist_ok=True)
+    for name, png in rendered.figures.items():
+        with open(fig_dir / f".{name}.png.part", "wb") as handle:
+            handle.write(png)
+        os.replace(fig_dir / f".{name}.png.part", fig_dir / f"{name}.png")
+    for stale in fig_dir.glob("*.png"):
+        if stale.stem not in rendered.figures:
+            stale.unlink()
+    atomic_write_text(folder / "report.html", rendered.html)
+    atomic_write_text(folder / "report.md", rendered.markdown)
+
+
+def _is_report_folder(folder: Path) -> bool:
+    return (folder / "study.json").is_file() or not any(folder.iterdir())
+
+
+def write_report(
+    out: str | os.PathLike[str],
+    *,
+    datasets: Mapping[str, xr.Dataset],
+    study: Mapping[str, Any],
+    result: Mapping[str, Any] | None = None,
+    scenario_file: str | os.PathLike[str] | None = None,
+    extra_sections: Sequence[Section] = (),
+) -> Path:
+    """Write a complete report folder atomically and return its path.
+
+    The folder holds ``report.html``, ``report.md``, ``figures/*.png``, one
+    NetCDF per Dataset (``<name>.nc``), ``study.json``, ``result.json`` (the
+    machine-readable result, when given) and a copy of the scenario file. It
+    is built in a temporary folder beside ``out`` and moved into place; an
+    existing ``out`` is replaced only if it is empty or a previous report.
+
+    Raises
+    ------
+    UsageError
+        If ``out`` is a file, or a folder that is not empty and not a report.
+    """
+    out = Path(out)
+    if out.exists() and (not out.is_dir() or not _is_report_folder(out)):
+        raise UsageError(
+            f"--out {out}: exists and is not a trapbudget report folder; give a new folder"
+        )
+    out.parent.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.", suffix=".part", dir=out.parent))
+    try:
+        for name, ds in datasets.items():
+            save_dataset(ds, tmp / f"{name}.nc")
+        atomic_write_json(tmp / "study.json", dict(study))
+        if result is not None:
+            atomic_write_json(tmp / "result.json", dict(result))
+        if scenario_file is not None and Path(scenario_file).is_file():
+            shutil.copyfile(scenario_file, tmp / Path(scenario_file).name)
+        _write_rendered(tmp, render_report(datasets, study, extra_sections=extra_sections))
+        if out.exists():
+            old = out.with_name(f".{out.name}.old-{os.getpid()}")
+            os.replace(out, old)
+            os.replace(tmp, out)
+            shutil.rmtree(old, ignore_errors=True)
+        else:
+            os.replace(tmp, out)
+    finally:
+        if tmp.exists():
+            shutil.rmtree(tmp, ignore_errors=True)
+    return out
+
+
+def load_report(folder: str | os.PathLike[str]) -> tuple[dict[str, xr.Dataset], dict[str, Any]]:
+    """Load the Datasets and the study record saved in a report folder."""
+    import json
+
+    from trapbudget.sensitivity.io import load_dataset
+
+    folder = Path(folder)
+    study_file = folder / "study.json"
+    if not study_file.is_file():
+        raise UsageError(
+            f"{folder}: not a trapbudget report folder (no study.json); check the path"
+        )
+    study = json.loads(study_file.read_text(encoding="utf-8"))
+    datasets = {
+        name: load_dataset(folder / f"{name}.nc")
+        for name in DATASET_NAMES
+        if (folder / f"{name}.nc").is_file()
+    }
+    missing = [n for n in ("summary", "budget") if n not in datasets]
+    if missing:
+        raise UsageError(f"{folder}: missing {', '.join(n + '.nc' for n in missing)}; re-run rank")
+    return datasets, study
+
+
+def rerender_report(
+    folder: str | os.PathLike[str], *, extra_sections: Sequence[Section] = ()
+) -> tuple[dict[str, xr.Dataset], dict[str, Any], Path]:
+    """Re-render ``report.html``, ``report.md`` and the figures of a saved report folder."""
+    folder = Path(folder)
+    datasets, study = load_report(folder)
+    _write_rendered(folder, render_report(datasets, study, extra_sections=extra_sections))
+    return datasets, study, folder

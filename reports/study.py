@@ -1,0 +1,247 @@
+"""What a study was: the plain, JSON-serialisable record a report shows about its scenario.
+
+:func:`describe_study` reads a Scenario's attributes (it never runs the model)
+and returns a dict that is saved as ``study.json`` beside the Datasets, so a
+report can be re-rendered from the folder alone.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import math
+from collections.abc import Mapping
+from typing import Any
+
+import numpy as np
+
+from trapbudget.reports.formatting import format_percent, format_quantity
+
+__all__ = ["MODEL_ASSUMPTIONS", "describe_study", "trapbudget_version"]
+
+#: Assumptions and limits stated in the report, per model name, when the model
+#: object carries no ``assumptions`` attribute of its own.
+MODEL_ASSUMPTIONS: dict[str, list[str]] = {
+    "VaporCellMOT": [
+        "Three retro-reflected Gaussian beam pairs; the scattering force of each beam is "
+        "that of a "
+        "two-level atom on the cycling transition, saturation shared between beams (no "
+        "interference, no polarisation gradients in the force).",
+        "Capture velocity from the critical trajectory through the beam overlap region in one "
+        "dimension; atoms faster than it are lost, slower ones are captured (no partial capture).",
+        "Loading rate from kinetic theory of a thermal vapor at the cell temperature; "
+        "the prefactor "
+        "is a calibratable constant, so absolute atom numbers are only as good as its "
+        "calibration.",
+        "Losses: hot alkali and background-gas collisions (rates proportional to density and "
+        "pressure) and light-assisted two-body loss; steady state of the rate equation.",
+        "Cloud size temperature-limited or, above the density limit, density-limited "
+        "(reradiation); temperature Doppler plus an optional calibrated sub-Doppler term.",
+        "Repumping as a bright fraction from repump and leak rates; fluorescence from "
+        "the detected "
+        "solid angle and efficiency.",
+        "Outside its validity (no power, blue detuning, no gradient, no capture) the "
+        "model returns "
+        "its honest limit (no atoms) and flags the sample; such samples are counted in "
+        "the report.",
+        "Tolerances are treated as independent unless correlated in the scenario; Sobol' indices "
+        "assume independent inputs (with correlations the budget uses given-data methods).",
+    ],
+}
+
+
+def trapbudget_version() -> str:
+    """The installed trapbudget version, or 'unknown' from a bare source tree."""
+    try:
+        from importlib.metadata import version
+
+        return version("trapbudget")
+    except Exception:  # not installed
+        return "unknown"
+
+
+def _unit(model: Any, name: str) -> str:
+    spec = getattr(model, "inputs", {}).get(name) if hasattr(model, "inputs") else None
+    return str(getattr(spec, "unit", "") or "")
+
+
+def _description(model: Any, name: str) -> str:
+    spec = getattr(model, "inputs", {}).get(name) if hasattr(model, "inputs") else None
+    return str(getattr(spec, "description", "") or "")
+
+
+def _float(value: Any) -> float:
+    try:
+        return float(value)
+    except (TypeError, ValueError):
+        return math.nan
+
+
+def _input_rows(scenario: Any) -> list[dict[str, Any]]:
+    model = scenario.model
+    tolerances: Mapping[str, Any] = getattr(scenario, "tolerances", {}) or {}
+    groups = getattr(scenario, "groups", {}) or {}
+    group_of = {member: g for g, members in groups.items() for member in members}
+    rows = []
+    for name, dist in scenario.inputs.items():
+        unit = _unit(model, name)
+        tol = tolerances.get(name)
+        nominal = _float(scenario.nominal.get(name, getattr(tol, "nominal", math.nan)))
+        if tol is not None:
+            u = _float(tol.standard_uncertainty)
+        else:
+            u = _float(dist.std())
+        rows.append(
+            {
+                "name": name,
+                "description": _description(model, name),
+                "unit": unit,
+                "nominal": nominal,
+                "nominal_text": format_quantity(nominal, unit),
+                "tolerance_text": str(getattr(tol, "text", "") or ""),
+                "shape": str(getattr(tol, "shape", "") or getattr(dist.dist, "name", "")),
+                "meaning": str(getattr(tol, "meaning", "") or ""),
+                "standard_uncertainty": u,
+                "u_text": format_quantity(u, unit),
+                "relative_u_text": format_percent(u / abs(nominal), digits=2)
+                if nominal not in (0.0,) and math.isfinite(nominal)
+                else "",
+                "group": str(group_of.get(name, "")),
+            }
+        )
+    return rows
+
+
+def _fixed_rows(scenario: Any) -> list[dict[str, Any]]:
+    model = scenario.model
+    rows = []
+    for name, value in scenario.nominal.items():
+        if name in scenario.inputs:
+            continue
+        unit = _unit(model, name)
+        rows.append(
+            {
+                "name": name,
+                "description": _description(model, name),
+                "unit": unit,
+                "value": _float(value),
+                "value_text": format_quantity(_float(value), unit),
+            }
+        )
+    return rows
+
+
+def _correlation_rows(scenario: Any) -> list[dict[str, Any]]:
+    matrix = getattr(scenario, "correlation", None)
+    if matrix is None:
+        return []
+    matrix = np.asarray(matrix, dtype=float)
+    names = list(scenario.inputs)
+    rows = []
+    for i in range(len(names)):
+        for j in range(i + 1, len(names)):
+            if matrix[i, j] != 0:
+                rows.append({"a": names[i], "b": names[j], "coefficient": float(matrix[i, j])})
+    return rows
+
+
+def _limit_text(limit: Any, unit: str, kind: str) -> str:
+    if kind == "relative_spread_at_most":
+        return format_percent(_float(limit), digits=2)
+    if isinstance(limit, tuple | list | np.ndarray):
+        lo, hi = (format_quantity(_float(v), unit) for v in limit)
+        return f"[{lo}, {hi}]"
+    return format_quantity(_float(limit), unit)
+
+
+def _requirement_rows(scenario: Any) -> list[dict[str, Any]]:
+    outputs = getattr(scenario.model, "outputs", {}) or {}
+    rows = []
+    for req in getattr(scenario, "requirements", ()) or ():
+        spec = outputs.get(req.output) if hasattr(outputs, "get") else None
+        unit = str(getattr(spec, "unit", "") or "")
+        rows.append(
+            {
+                "output": req.output,
+                "kind": req.kind,
+                "limit_text": _limit_text(req.limit, unit, req.kind),
+                "probability": None if req.probability is None else float(req.probability),
+                "label": str(getattr(req, "label", "") or ""),
+            }
+        )
+    return rows
+
+
+def _assumptions(scenario: Any) -> list[str]:
+    model = scenario.model
+    for obj in (model, getattr(model, "base", None)):
+        found = getattr(obj, "assumptions", None)
+        if found:
+            return [str(a) for a in found]
+    name = str(getattr(scenario, "model_name", "") or "")
+    return list(MODEL_ASSUMPTIONS.get(name, []))
+
+
+def describe_study(
+    scenario: Any,
+    *,
+    seed: int | None,
+    n_samples: int,
+    datasets: Mapping[str, Any] | None = None,
+    date: str | None = None,
+) -> dict[str, Any]:
+    """The record of what was studied, for the report's first sections and ``study.json``.
+
+    Parameters
+    ----------
+    scenario : Scenario
+        The loaded scenario (only its attributes are read).
+    seed : int or None
+        The seed the study ran with.
+    n_samples : int
+        Monte Carlo sample size and Saltelli base size N.
+    datasets : mapping, optional
+        The result Datasets; their attrs give the number of model evaluations.
+    date : str, optional
+        ISO date-time of the study (default: now, UTC).
+
+    Returns
+    -------
+    dict
+        Plain JSON-serialisable values: title, description, species, model,
+        version, seed, sample size, date, SHA-256 of the scenario, the inputs
+        and tolerances table, fixed inputs, correlations, requirements and the
+        model's assumptions.
+    """
+    datasets = datasets or {}
+    budget = datasets.get("budget")
+    samples = datasets.get("samples")
+    settings = getattr(scenario, "settings", None)
+    n_eval = 0
+    for ds in (samples, budget):
+        if ds is not None:
+            n_eval += int(ds.attrs.get("n_evaluations", ds.sizes.get("sample", 0)) or 0)
+    source = getattr(scenario, "source", None)
+    return {
+        "title": str(scenario.title),
+        "description": str(getattr(scenario, "description", "") or ""),
+        "species": str(getattr(scenario, "species", "") or ""),
+        "model": str(getattr(scenario, "model_name", "") or type(scenario.model).__name__),
+        "model_options": {
+            str(k): str(v) for k, v in (getattr(scenario, "model_options", {}) or {}).items()
+        },
+        "trapbudget_version": trapbudget_version(),
+        "seed": None if seed is None else int(seed),
+        "n_samples": int(n_samples),
+        "n_evaluations": n_eval,
+        "method": str(getattr(settings, "method", "") or ""),
+        "confidence_level": float(getattr(settings, "confidence_level", 0.95)),
+        "date": date or _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
+        "sha256": str(getattr(scenario, "sha256", "") or ""),
+        "scenario_file": "" if source is None else str(getattr(source, "name", source)),
+        "outputs": [str(o) for o in scenario.outputs],
+        "inputs": _input_rows(scenario),
+        "fixed": _fixed_rows(scenario),
+        "correlations": _correlation_rows(scenario),
+        "requirements": _requirement_rows(scenario),
+        "assumptions": _assumptions(scenario),
+    }

@@ -1,0 +1,116 @@
+"""Terminal tables (rich) for the command line, built from result Datasets."""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from typing import Any
+
+import numpy as np
+import xarray as xr
+from rich.table import Table
+
+from trapbudget.reports.formatting import (
+    format_index,
+    format_percent,
+    format_quantity,
+    output_unit,
+)
+
+__all__ = ["budget_tables", "prediction_table", "species_rich_table"]
+
+
+def prediction_table(linear: xr.Dataset, *, title: str = "", top: int = 3) -> Table:
+    """Nominal outputs with first-order uncertainties and their largest contributions."""
+    table = Table(title=f"{title}: first-order (GUM) prediction" if title else None)
+    for column, justify in (
+        ("output", "left"),
+        ("nominal", "right"),
+        ("u (linear)", "right"),
+        ("relative", "right"),
+        ("largest contributions |c| u", "left"),
+    ):
+        table.add_column(column, justify=justify)
+    inputs = [str(i) for i in linear["input"].values]
+    for name in [str(o) for o in linear["output"].values]:
+        row = linear.sel(output=name)
+        unit = output_unit(name, linear)
+        nominal = float(row["output_nominal"])
+        std = float(row["output_std_linear"])
+        contrib = np.nan_to_num(np.asarray(row["uncertainty_contribution"].values, float))
+        order = np.argsort(-contrib, kind="stable")[:top]
+        tops = ", ".join(f"{inputs[i]} {format_quantity(contrib[i], unit)}" for i in order)
+        rel = format_percent(std / abs(nominal), digits=2) if nominal else ""
+        table.add_row(name, format_quantity(nominal, unit), format_quantity(std, unit), rel, tops)
+    return table
+
+
+def budget_tables(summary: xr.Dataset, budget: xr.Dataset, *, top: int = 5) -> list[Table]:
+    """One table per output: its Monte Carlo mean and spread, then its top drifts."""
+    tables = []
+    for name in [str(o) for o in budget["output"].values]:
+        unit = output_unit(name, summary, budget)
+        head = ""
+        if name in summary["output"].values:
+            row = summary.sel(output=name)
+            head = (
+                f"{format_quantity(float(row['mean']), unit)} "
+                f"+- {format_quantity(float(row['std']), unit)}"
+            )
+        table = Table(title=f"{name}: {head}" if head else name, title_justify="left")
+        for column, justify in (
+            ("rank", "right"),
+            ("input", "left"),
+            ("total order", "right"),
+            ("first order", "right"),
+            ("sqrt(variance share)", "right"),
+        ):
+            table.add_column(column, justify=justify)
+        brow = budget.sel(output=name)
+        order = np.argsort(np.asarray(brow["rank"].values, dtype=float), kind="stable")[:top]
+        std = float(brow["output_std"]) if "output_std" in brow else float("nan")
+        for i in order:
+            item = brow.isel(input=int(i))
+            total = float(item["total_order"])
+            share = float(item["variance_share"]) if "variance_share" in item else total * std**2
+            label = str(item["input"].values)
+            if "below_noise_floor" in item and bool(item["below_noise_floor"]):
+                label += " (noise floor)"
+            ci = ""
+            if "total_order_low" in item and "total_order_high" in item:
+                ci = (
+                    f" [{format_index(item['total_order_low'])}, "
+                    f"{format_index(item['total_order_high'])}]"
+                )
+            table.add_row(
+                str(int(item["rank"])),
+                label,
+                format_index(total) + ci,
+                format_index(item["first_order"]),
+                format_quantity(np.sqrt(max(share, 0.0)), unit),
+            )
+        tables.append(table)
+    return tables
+
+
+def species_rich_table(rows: Sequence[Mapping[str, Any]]) -> Table:
+    """The atomic data table (rows of ``trapbudget.models.species.species_table``)."""
+    table = Table(title="Atomic data (cycling transition)", title_justify="left")
+    if not rows:
+        return table
+    columns = [k for k in rows[0] if k != "sources"]
+    for key in columns:
+        table.add_column(key.replace("_", " "), justify="left")
+    has_sources = "sources" in rows[0]
+    if has_sources:
+        table.add_column("sources", justify="left", overflow="fold")
+    for row in rows:
+        cells = [str(row.get(k, "")) for k in columns]
+        if has_sources:
+            src = row["sources"]
+            if isinstance(src, Mapping):
+                src = "; ".join(f"{k}: {v}" for k, v in src.items())
+            elif isinstance(src, list | tuple):
+                src = "; ".join(map(str, src))
+            cells.append(str(src))
+        table.add_row(*cells)
+    return table
