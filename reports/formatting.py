@@ -127,6 +127,15 @@ def display_scale(unit: str, typical: float) -> tuple[float, str]:
         return 1.0, "K"
     if unit == "s":
         return (1e3, "ms") if 0 < magnitude < 1 else (1.0, "s")
+    try:
+        from trapbudget.sensitivity.units import DISPLAY_UNITS, ureg
+
+        display = DISPLAY_UNITS.get(unit)
+        if display and display != "auto":
+            factor = float(ureg.Quantity(1.0, unit).to(display).magnitude)
+            return factor, display.replace("**", "^")
+    except Exception:  # no engine units module, or a unit it cannot convert: ours
+        pass
     display, factor = _SCALES.get(unit, (unit, 1.0))
     return factor, display
 

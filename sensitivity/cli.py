@@ -449,14 +449,9 @@ def run_study(
         rng=np.random.default_rng(mc_seed),
         outputs=outputs,
         progress=task("Monte Carlo"),
+        nominal=scenario.nominal,
     )
-    nominal = {name: float(linear["output_nominal"].sel(output=name)) for name in outputs}
-    summary = summarize(
-        samples,
-        outputs=outputs,
-        confidence_level=settings.confidence_level,
-        nominal=nominal,
-    )
+    summary = summarize(samples, outputs=outputs, confidence_level=settings.confidence_level)
     check = compare_linear_monte_carlo(linear, summary)
     budget = rank(
         scenario.model,
@@ -465,6 +460,7 @@ def run_study(
         outputs=outputs,
         second_order=second_order,
         correlation=scenario.correlation,
+        nominal=scenario.nominal,
         rng=np.random.default_rng(rank_seed),
         confidence_level=settings.confidence_level,
         groups=scenario.groups or None,
