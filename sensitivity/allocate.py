@@ -70,8 +70,8 @@ def uncertainty_bound(
     mean : float
         Mean (or nominal) of the output, output units.
     probability : float, optional
-        Probability the requirement must hold with, in (0, 1); ``None`` is read
-        as 0.5 (the requirement holds for the median).
+        Probability the requirement must hold with, in (0, 1] (1 is read as
+        1 - 1e-9); ``None`` is read as 0.5 (the requirement holds for the median).
 
     Returns
     -------
@@ -93,8 +93,9 @@ def uncertainty_bound(
     JCGM 100:2008 (GUM), section G.6 (normal approximation of the output).
     """
     p = 0.5 if probability is None else float(probability)
-    if not 0.0 < p < 1.0:
-        raise ValueError(f"probability must lie in (0, 1); got {p}")
+    if not 0.0 < p <= 1.0:
+        raise ValueError(f"probability must lie in (0, 1]; got {p}")
+    p = min(p, 1.0 - 1e-9)  # certainty is out of reach of a normal output: about 6 sigma
     if kind == "relative_spread_at_most":
         return float(limit) * abs(mean)
     if kind in ("at_least", "at_most"):
@@ -726,7 +727,7 @@ def _problem(scenario, setup: _Setup, bounds: np.ndarray, max_loosen: float) -> 
         fixed_variance=fixed_var,
         smooth=setup.free_smooth,
         smooth_weights=sens(setup.free_smooth) * ratio**2,
-        smooth_cost=np.array([float(m.cost) for m in smooth_models]),
+        smooth_cost=np.array([float(m.reference_cost) for m in smooth_models]),
         smooth_reference=np.array([float(m.tolerance.value) for m in smooth_models]),
         smooth_exponent=np.array([float(m.exponent) for m in smooth_models]),
         smooth_lower=np.full(len(smooth_models), 1e-300),

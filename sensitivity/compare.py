@@ -26,6 +26,8 @@ __all__ = [
 ]
 
 SECONDS_PER_DAY = 86400.0
+#: Probability levels of the stored empirical quantiles (for distribution plots).
+QUANTILE_LEVELS = np.linspace(0.0, 1.0, 201)
 
 
 # ---------------------------------------------------------------------------
@@ -193,17 +195,9 @@ def requirement_indicator(values: np.ndarray, requirement: object) -> np.ndarray
         ``None`` for ``"relative_spread_at_most"``, a property of the whole
         distribution rather than of one run.
     """
-    kind = requirement.kind  # type: ignore[attr-defined]
-    limit = requirement.limit  # type: ignore[attr-defined]
-    values = np.asarray(values, dtype=float)
-    if kind == "at_least":
-        return values >= limit
-    if kind == "at_most":
-        return values <= limit
-    if kind == "within":
-        lo, hi = limit
-        return (values >= lo) & (values <= hi)
-    return None
+    if requirement.kind == "relative_spread_at_most":  # type: ignore[attr-defined]
+        return None
+    return np.asarray(requirement.satisfied(values), dtype=bool)  # type: ignore[attr-defined]
 
 
 def _quantiles(values: np.ndarray, confidence_level: float) -> tuple[float, float]:
@@ -252,7 +246,9 @@ def compare_samples(
         ``interval_low_before`` ... ``interval_high_after``,
         ``variance_before``, ``variance_after``, ``variance_removed``
         (before minus after, output units squared) and
-        ``variance_removed_fraction``. Dim ``requirement``:
+        ``variance_removed_fraction``; dims ``output``, ``quantile``:
+        ``quantiles_before`` and ``quantiles_after`` (empirical quantiles at
+        :data:`QUANTILE_LEVELS`, for distribution plots). Dim ``requirement``:
         ``probability_before``, ``probability_after``, ``probability_shift``
         and its paired ``shift_standard_error``, ``failing_per_day_before`` and
         ``failing_per_day_after`` (NaN without a repetition rate), and for a
@@ -302,9 +298,16 @@ def compare_samples(
         }
         for key, value in row.items():
             per_output.setdefault(key, []).append(value)
-    ds = xr.Dataset(coords={"output": outputs})
+    ds = xr.Dataset(coords={"output": outputs, "quantile": QUANTILE_LEVELS})
     for key, values in per_output.items():
         ds[key] = ("output", np.asarray(values))
+    for side, data in (("before", before), ("after", after)):
+        ds[f"quantiles_{side}"] = (
+            ("output", "quantile"),
+            np.array(
+                [np.quantile(np.asarray(data[o].values, float), QUANTILE_LEVELS) for o in outputs]
+            ).reshape(len(outputs), QUANTILE_LEVELS.size),
+        )
     for name in outputs:
         ds.attrs[f"units_{name}"] = before[name].attrs.get("units", "")
 

@@ -58,7 +58,7 @@ def test_relative_spread_bound():
 
 def test_bad_probability_and_kind_raise():
     with pytest.raises(ValueError, match="probability must lie in"):
-        uncertainty_bound("at_least", 1.0, mean=2.0, probability=1.0)
+        uncertainty_bound("at_least", 1.0, mean=2.0, probability=1.5)
     with pytest.raises(ValueError, match="unknown requirement kind 'bigger'"):
         uncertainty_bound("bigger", 1.0, mean=2.0, probability=0.9)
 

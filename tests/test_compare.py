@@ -10,20 +10,12 @@ import pytest
 from scipy import stats
 
 from trapbudget.sensitivity.compare import common_random_samples, compare_samples
+from trapbudget.sensitivity.requirements import Requirement
 from trapbudget.sensitivity.testfunctions import LinearModel
 
 N = 2**14
 COEFFICIENTS = (2.0, -1.0, 0.5)
 OFFSET = 10.0
-
-
-@dataclass(frozen=True)
-class _Requirement:
-    output: str
-    kind: str
-    limit: float | tuple[float, float]
-    probability: float | None = None
-    label: str = ""
 
 
 @dataclass(frozen=True)
@@ -50,7 +42,7 @@ def _linear_variance(sd):
 
 
 def test_scenario_compared_with_itself_shows_exactly_no_change():
-    req = _Requirement("y", "at_least", 9.8, 0.9, "enough")
+    req = Requirement("y", "at_least", 9.8, 0.9, "enough")
     side = _side(requirements=[req])
     before, after = common_random_samples([side, side], n_samples=N, rng=5)
     ds = compare_samples(before, after, requirements=[req])
@@ -82,8 +74,8 @@ def test_probabilities_match_exact_normal_values(method):
     sd_before, sd_after = (0.1, 0.2, 0.4), (0.1, 0.1, 0.2)
     limit = 9.7
     reqs = [
-        _Requirement("y", "at_least", limit, 0.9, "enough"),
-        _Requirement("y", "within", (9.6, 10.3), 0.9, "window"),
+        Requirement("y", "at_least", limit, 0.9, "enough"),
+        Requirement("y", "within", (9.6, 10.3), 0.9, "window"),
     ]
     before, after = common_random_samples(
         [_side(sd_before, reqs), _side(sd_after, reqs)], n_samples=N, method=method, rng=2
@@ -116,7 +108,7 @@ def test_probabilities_match_exact_normal_values(method):
 
 def test_paired_shift_error_is_smaller_than_independent_draws():
     # common random numbers: Var(I_a - I_b) << Var(I_a) + Var(I_b) when the change is small
-    req = _Requirement("y", "at_least", 9.7, 0.9, "enough")
+    req = Requirement("y", "at_least", 9.7, 0.9, "enough")
     before, after = common_random_samples(
         [_side((0.1, 0.2, 0.4), [req]), _side((0.1, 0.2, 0.36), [req])], n_samples=N, rng=3
     )
@@ -128,7 +120,7 @@ def test_paired_shift_error_is_smaller_than_independent_draws():
 
 def test_relative_spread_requirement_reports_the_spread_not_a_probability():
     # relative spread is std / |mean| of the output (common practice)
-    req = _Requirement("y", "relative_spread_at_most", 0.05, None, "stable")
+    req = Requirement("y", "relative_spread_at_most", 0.05, None, "stable")
     before, after = common_random_samples([_side(), _side((0.05, 0.1, 0.2))], n_samples=N, rng=4)
     ds = compare_samples(before, after, requirements=[req])
     assert math.isnan(float(ds["probability_before"].item()))

@@ -1,0 +1,270 @@
+"""Report section for before/after comparisons (``trapbudget compare``).
+
+Built from the ``comparison`` Dataset of
+:func:`trapbudget.sensitivity.compare.compare` (one change) or
+:func:`~trapbudget.sensitivity.compare.compare_upgrades` (dim ``upgrade``):
+tables of what changes, before/after distribution plots, a cost-versus-benefit
+chart and a plain-language summary.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from typing import Any
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+import matplotlib.pyplot as plt
+import numpy as np
+import xarray as xr
+
+from trapbudget.reports.figures import _STYLE, BLUE, GREY, ORANGE, _png
+from trapbudget.reports.formatting import (
+    display_scale,
+    format_number,
+    format_percent,
+    format_quantity,
+)
+from trapbudget.reports.render import Figure, Section, Table, Text, register_section
+
+__all__ = [
+    "benefit_figure",
+    "compare_section",
+    "distribution_figure",
+    "plain_summary",
+]
+
+_LIMITS = (
+    "Both sides are simulated with the same random draws (common random numbers), so the "
+    "differences shown are those of the change, not of sampling noise; they are still only "
+    "as good as the model of the trap and the tolerances written for each side."
+)
+
+
+def _options(ds: xr.Dataset) -> list[str]:
+    return [str(u) for u in ds["upgrade"].values] if "upgrade" in ds.dims else ["after"]
+
+
+def _pick(ds: xr.Dataset, option: str) -> xr.Dataset:
+    return ds.sel(upgrade=option) if "upgrade" in ds.dims else ds
+
+
+def _unit(ds: xr.Dataset, output: str) -> str:
+    return str(ds.attrs.get(f"units_{output}", ""))
+
+
+def _q(value: float, unit: str) -> str:
+    return format_quantity(value, unit) if unit else format_number(value)
+
+
+def _output_rows(ds: xr.Dataset, option: str) -> list[list[str]]:
+    item = _pick(ds, option)
+    rows = []
+    for output in ds["output"].values:
+        o = item.sel(output=output)
+        unit = _unit(ds, str(output))
+        rows.append(
+            [
+                str(output),
+                f"{_q(float(o['mean_before']), unit)} -> {_q(float(o['mean_after']), unit)}",
+                f"{_q(float(o['std_before']), unit)} -> {_q(float(o['std_after']), unit)}",
+                f"[{_q(float(o['interval_low_before']), unit)}, "
+                f"{_q(float(o['interval_high_before']), unit)}]",
+                f"[{_q(float(o['interval_low_after']), unit)}, "
+                f"{_q(float(o['interval_high_after']), unit)}]",
+                format_percent(float(o["variance_removed_fraction"])),
+            ]
+        )
+    return rows
+
+
+def _requirement_rows(ds: xr.Dataset) -> list[list[str]]:
+    rows = []
+    if "requirement" not in ds.dims:
+        return rows
+    for option in _options(ds):
+        item = _pick(ds, option)
+        for label in ds["requirement"].values:
+            r = item.sel(requirement=label)
+            pb, pa = float(r["probability_before"]), float(r["probability_after"])
+            if math.isfinite(pb):
+                change = (
+                    f"{format_percent(pb)} -> {format_percent(pa)} "
+                    f"(+- {format_percent(float(r['shift_standard_error']), digits=2)})"
+                )
+                fb, fa = float(r["failing_per_day_before"]), float(r["failing_per_day_after"])
+                per_day = (
+                    f"{format_number(fb)} -> {format_number(fa)}" if math.isfinite(fb) else ""
+                )
+            else:
+                change = (
+                    f"spread {format_number(float(r['relative_spread_before']))} -> "
+                    f"{format_number(float(r['relative_spread_after']))}"
+                )
+                per_day = ""
+            rows.append([option, str(label), change, per_day])
+    return rows
+
+
+def _upgrade_rows(ds: xr.Dataset) -> list[list[str]]:
+    currency = str(ds.attrs.get("currency", ""))
+    rows = []
+    for option in sorted(_options(ds), key=lambda u: int(ds["rank"].sel(upgrade=u))):
+        item = ds.sel(upgrade=option)
+        per_cost = float(item["benefit_per_cost"])
+        rows.append(
+            [
+                str(int(item["rank"])),
+                option,
+                f"{float(item['cost']):,.0f} {currency}".strip(),
+                format_number(float(item["benefit"])),
+                "free" if math.isinf(per_cost) else format_number(per_cost),
+            ]
+        )
+    return rows
+
+
+def plain_summary(ds: xr.Dataset) -> str:
+    """One paragraph for a non-physicist: what is bought, what it changes, how sure we are."""
+    n = int(ds.attrs.get("n_samples", 0) or 0)
+    if "upgrade" in ds.dims:
+        best = min(_options(ds), key=lambda u: int(ds["rank"].sel(upgrade=u)))
+        item = ds.sel(upgrade=best)
+        currency = str(ds.attrs.get("currency", ""))
+        head = (
+            f"Of {len(_options(ds))} options, '{best}' gives the most improvement per unit "
+            f"of money ({float(item['cost']):,.0f} {currency})."
+        )
+    else:
+        item = ds
+        head = "The proposed change was compared with the present set-up."
+    first = str(ds["output"].values[0])
+    removed = float(item["variance_removed_fraction"].sel(output=first))
+    parts = [head]
+    if removed >= 0:
+        parts.append(
+            f"It removes {format_percent(removed)} of the run-to-run scatter (variance) of "
+            f"{first.replace('_', ' ')}."
+        )
+    else:
+        parts.append(
+            f"It increases the run-to-run scatter (variance) of {first.replace('_', ' ')} by "
+            f"{format_percent(-removed)}."
+        )
+    if "requirement" in ds.dims:
+        for label in ds["requirement"].values:
+            r = item.sel(requirement=label)
+            pb, pa = float(r["probability_before"]), float(r["probability_after"])
+            if math.isfinite(pb):
+                parts.append(
+                    f"The share of runs meeting '{label}' goes from {format_percent(pb)} to "
+                    f"{format_percent(pa)}."
+                )
+    parts.append(
+        f"How sure: both sides were simulated with the same {n} random runs of a physics "
+        "model, so the difference is measured precisely (standard errors in the tables); "
+        "whether the model describes this apparatus is the larger question, and a measurement "
+        "before and after the change settles it."
+    )
+    return " ".join(parts)
+
+
+def distribution_figure(ds: xr.Dataset, output: str) -> bytes:
+    """Empirical distribution functions of an output before and after each change."""
+    unit = _unit(ds, output)
+    levels = np.asarray(ds["quantile"].values, dtype=float)
+    base = np.asarray(_pick(ds, _options(ds)[0])["quantiles_before"].sel(output=output).values)
+    scale, label = display_scale(unit, float(np.nanmax(np.abs(base))) or 1.0)
+    colors = [BLUE, ORANGE, "#5a8a3a", "#8a3a6a", "#3a7a8a", "#7a6a3a"]
+    with plt.rc_context(_STYLE):
+        fig, ax = plt.subplots(figsize=(6.0, 3.4))
+        ax.plot(base * scale, levels, color=GREY, lw=1.6, label="before")
+        for k, option in enumerate(_options(ds)[: len(colors)]):
+            after = _pick(ds, option)["quantiles_after"].sel(output=output).values
+            ax.plot(np.asarray(after) * scale, levels, color=colors[k], lw=1.2, label=option)
+        text = output.replace("_", " ")
+        ax.set_xlabel(f"{text} ({label})" if label and label != "1" else text)
+        ax.set_ylabel("fraction of runs below")
+        ax.legend(loc="lower right")
+    return _png(fig)
+
+
+def benefit_figure(ds: xr.Dataset) -> bytes:
+    """Cost against benefit of each upgrade (benefit as in ``attrs['benefit_metric']``)."""
+    costs = np.asarray(ds["cost"].values, dtype=float)
+    benefit = np.asarray(ds["benefit"].values, dtype=float)
+    with plt.rc_context(_STYLE):
+        fig, ax = plt.subplots(figsize=(6.0, 3.6))
+        ax.scatter(costs, benefit, color=BLUE, zorder=3)
+        for name, x, y in zip(_options(ds), costs, benefit, strict=True):
+            ax.annotate(name, (x, y), xytext=(4, 4), textcoords="offset points", fontsize=7)
+        ax.axhline(0.0, color=GREY, lw=0.8)
+        ax.set_xlabel(f"cost ({ds.attrs.get('currency', '')})".replace(" ()", ""))
+        ax.set_ylabel(str(ds.attrs.get("benefit_metric", "benefit")))
+    return _png(fig)
+
+
+def compare_section(
+    datasets: Mapping[str, xr.Dataset], study: Mapping[str, Any]
+) -> Section | None:
+    """The before/after section (None when there is no ``comparison`` Dataset)."""
+    ds = datasets.get("comparison")
+    if ds is None:
+        return None
+    blocks: list[Any] = [Text(plain_summary(ds))]
+    if "upgrade" in ds.dims:
+        blocks.append(
+            Table(
+                ["Rank", "Upgrade", "Cost", "Benefit", "Benefit per unit cost"],
+                _upgrade_rows(ds),
+                caption=f"Options ranked by improvement per unit cost (benefit: "
+                f"{ds.attrs.get('benefit_metric', '')})",
+                numeric=[True, False, True, True, True],
+            )
+        )
+    for option in _options(ds):
+        blocks.append(
+            Table(
+                ["Output", "Mean", "Std", "Interval before", "Interval after", "Variance removed"],
+                _output_rows(ds, option),
+                caption=f"{option}: outputs before -> after "
+                f"({format_percent(float(ds.attrs.get('confidence_level', 0.95)))} intervals)",
+                numeric=[False, True, True, True, True, True],
+            )
+        )
+    rows = _requirement_rows(ds)
+    if rows:
+        rate = float(ds.attrs.get("repetition_rate", math.nan))
+        blocks.append(
+            Table(
+                ["Change", "Requirement", "Probability met", "Failing runs per day"],
+                rows,
+                caption="Requirements before -> after (paired standard error of the shift)"
+                + (f"; {format_number(rate)} runs per second" if math.isfinite(rate) else ""),
+                numeric=[False, False, True, True],
+            )
+        )
+    for output in ds["output"].values:
+        blocks.append(
+            Figure(
+                f"compare-{output}",
+                distribution_figure(ds, str(output)),
+                caption=f"Distribution of {output} before and after.",
+            )
+        )
+    if "upgrade" in ds.dims:
+        blocks.append(
+            Figure(
+                "compare-cost-benefit",
+                benefit_figure(ds),
+                caption="Cost against benefit of each option.",
+            )
+        )
+    blocks.append(Text(_LIMITS, kind="note"))
+    return Section("Before and after", blocks)
+
+
+register_section(compare_section)

@@ -1,0 +1,219 @@
+"""Report section for a tolerance allocation (``trapbudget spec``).
+
+Built from the ``allocation`` Dataset (:meth:`Allocation.to_dataset
+<trapbudget.sensitivity.allocate.Allocation.to_dataset>`): a spec-sheet table
+ready to paste into a document, the probability each requirement is met, a
+chart of present against required tolerances and a plain-language summary for
+readers who are not physicists.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from typing import Any
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+import matplotlib.pyplot as plt
+import numpy as np
+import xarray as xr
+
+from trapbudget.reports.figures import _STYLE, BLUE, GREY, ORANGE, _png
+from trapbudget.reports.formatting import format_number, format_percent, format_quantity
+from trapbudget.reports.render import Figure, Section, Table, Text, register_section
+
+__all__ = [
+    "LIMITS",
+    "plain_summary",
+    "spec_rows",
+    "spec_section",
+    "tolerance_figure",
+]
+
+#: Limits stated with every allocation.
+LIMITS: list[str] = [
+    "The allocation is only as good as the model and the cost tables behind it: the tolerances "
+    "are those the model needs, and the prices are those written in the scenario.",
+    "Probabilities come from a finite Monte Carlo sample of the model (standard errors shown); "
+    "they say nothing about effects the model leaves out.",
+    "Check the model against measurements on the apparatus before buying on the strength of "
+    "this sheet.",
+]
+
+
+def _money(value: float, currency: str) -> str:
+    if not math.isfinite(value):
+        return "n/a"
+    return f"{value:,.0f} {currency}".strip()
+
+
+def _tol(value: float, unit: str, text: str) -> str:
+    if not math.isfinite(value):
+        return "any"
+    shown = format_quantity(value, unit) if unit else format_number(value)
+    return f"{text} ({shown})" if text and text != shown else shown
+
+
+def spec_rows(allocation: xr.Dataset) -> list[list[str]]:
+    """Rows of the spec sheet: input, present, required, headroom, tier, cost, set by."""
+    currency = str(allocation.attrs.get("currency", ""))
+    rows = []
+    for name in allocation["input"].values:
+        item = allocation.sel(input=name)
+        unit = str(item["unit"].values)
+        free = bool(item["free"].values)
+        rows.append(
+            [
+                str(name),
+                _tol(float(item["present_tolerance"]), unit, str(item["present_text"].values)),
+                _tol(float(item["required_tolerance"]), unit, str(item["required_text"].values))
+                if free
+                else "as present (no cost model)",
+                format_number(float(item["headroom"])),
+                str(item["tier"].values) or ("smooth cost" if free else ""),
+                _money(float(item["cost"]), currency) if free else "",
+                str(item["binding"].values) or ("cheapest option" if free else ""),
+            ]
+        )
+    return rows
+
+
+def _requirement_rows(allocation: xr.Dataset) -> list[list[str]]:
+    rows = []
+    for label in allocation["requirement"].values:
+        item = allocation.sel(requirement=label)
+        p = float(item["probability"])
+        se = float(item["standard_error"])
+        if math.isfinite(p):
+            achieved = f"{format_percent(p)} +- {format_percent(se, digits=2)}"
+        else:
+            achieved = f"relative spread {format_number(float(item['relative_spread']))}"
+        target = float(item["target"])
+        rows.append(
+            [
+                str(label),
+                str(item["output"].values),
+                str(item["kind"].values).replace("_", " "),
+                format_percent(target) if math.isfinite(target) else "",
+                achieved,
+                "yes" if bool(item["met"]) else "no",
+            ]
+        )
+    return rows
+
+
+def plain_summary(allocation: xr.Dataset) -> str:
+    """One paragraph for a non-physicist: what is bought, what it changes, how sure we are."""
+    attrs = allocation.attrs
+    currency = str(attrs.get("currency", ""))
+    n = int(attrs.get("n_samples", 0) or 0)
+    if not bool(attrs.get("feasible", False)):
+        return (
+            f"No affordable combination of the priced options meets every requirement. "
+            f"{attrs.get('reason', '')}. Nothing should be bought on the basis of this "
+            "study until the requirement or the options change."
+        )
+    changes, kept = [], []
+    for name in allocation["input"].values:
+        item = allocation.sel(input=name)
+        if not bool(item["free"].values):
+            continue
+        headroom = float(item["headroom"])
+        tier = str(item["tier"].values)
+        what = f"'{tier}' for {name}" if tier else f"{name} held to {item['required_text'].values}"
+        if headroom > 1.0 + 1e-6:
+            changes.append(f"{what} (about {format_number(headroom, digits=2)} times tighter)")
+        else:
+            kept.append(str(name))
+    reqs = []
+    for label in allocation["requirement"].values:
+        p = float(allocation["probability"].sel(requirement=label))
+        if math.isfinite(p):
+            reqs.append(f"'{label}' holds in about {format_percent(p)} of runs")
+    bought = "; ".join(changes) if changes else "no change to the present set-up"
+    text = (
+        f"The cheapest way found to meet the requirements costs "
+        f"{_money(float(attrs.get('total_cost', math.nan)), currency)} and buys {bought}."
+    )
+    if kept:
+        text += f" {', '.join(kept)} can stay as they are, or even be relaxed."
+    if reqs:
+        text += f" With these changes the simulation says {', and '.join(reqs)}."
+    text += (
+        f" How sure: these figures come from {n} simulated runs of a physics model of the trap, "
+        "so the sampling error is small (shown beside each number); the larger uncertainty is "
+        "whether the model describes this apparatus, which measurements should confirm."
+    )
+    return text
+
+
+def tolerance_figure(allocation: xr.Dataset) -> bytes:
+    """Bar chart: present and required tolerance of each free input, relative to present."""
+    free = [str(n) for n in allocation["input"].values if bool(allocation["free"].sel(input=n))]
+    ratio = np.array(
+        [
+            float(allocation["required_tolerance"].sel(input=n))
+            / float(allocation["present_tolerance"].sel(input=n))
+            for n in free
+        ]
+    )
+    with plt.rc_context(_STYLE):
+        fig, ax = plt.subplots(figsize=(6.0, 0.45 * len(free) + 1.2))
+        y = np.arange(len(free))
+        ax.barh(y, np.ones(len(free)), height=0.35, color=GREY, alpha=0.5, label="present")
+        colors = [ORANGE if r < 1 else BLUE for r in ratio]
+        ax.barh(y + 0.35, ratio, height=0.35, color=colors, label="required")
+        ax.set_yticks(y + 0.175, [n.replace("_", " ") for n in free])
+        ax.set_xscale("log")
+        ax.axvline(1.0, color=GREY, lw=0.8)
+        ax.set_xlabel("tolerance relative to present (orange: must tighten)")
+        ax.invert_yaxis()
+        ax.legend(loc="lower right")
+    return _png(fig)
+
+
+def spec_section(datasets: Mapping[str, xr.Dataset], study: Mapping[str, Any]) -> Section | None:
+    """The tolerance-allocation section (None when there is no ``allocation`` Dataset)."""
+    allocation = datasets.get("allocation")
+    if allocation is None:
+        return None
+    currency = str(allocation.attrs.get("currency", ""))
+    blocks: list[Any] = [Text(plain_summary(allocation))]
+    blocks.append(
+        Table(
+            ["Input", "Present", "Required", "Headroom", "Tier", "Cost", "Set by"],
+            spec_rows(allocation),
+            caption="Spec sheet (headroom = present / required tolerance: above 1 the input "
+            f"must be tightened by that factor); total cost "
+            f"{_money(float(allocation.attrs.get('total_cost', math.nan)), currency)}",
+            numeric=[False, True, True, True, False, True, False],
+        )
+    )
+    if "requirement" in allocation.dims:
+        blocks.append(
+            Table(
+                ["Requirement", "Output", "Kind", "Asked", "Achieved (Monte Carlo)", "Met"],
+                _requirement_rows(allocation),
+                caption=f"Each requirement checked on {allocation.attrs.get('n_samples', '')} "
+                "model runs (binomial standard error)",
+                numeric=[False, False, False, True, True, False],
+            )
+        )
+    if bool(allocation["free"].values.any()) and bool(allocation.attrs.get("feasible", False)):
+        blocks.append(
+            Figure(
+                "allocation-tolerances",
+                tolerance_figure(allocation),
+                caption="Present and required tolerance of each priced input.",
+            )
+        )
+    if not bool(allocation.attrs.get("feasible", False)):
+        blocks.append(Text(str(allocation.attrs.get("reason", "")), kind="note"))
+    blocks += [Text(t, kind="note") for t in LIMITS]
+    return Section("Tolerance allocation", blocks)
+
+
+register_section(spec_section)
