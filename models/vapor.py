@@ -170,7 +170,9 @@ def fraction_slower(capture_velocity: ArrayLike, most_probable_speed: ArrayLike)
     1965), ch. 7; C. J. Foot, "Atomic Physics" (OUP, 2005), ch. 9.
     """
     x = _speed_ratio(capture_velocity, most_probable_speed)
-    return special.erf(x) - (2.0 / np.sqrt(np.pi)) * x * np.exp(-(x**2))
+    # the same function as the regularized incomplete gamma P(3/2, x^2), which keeps full
+    # precision for small x (where the closed form cancels) and gives 1 at x = inf
+    return special.gammainc(1.5, x**2)
 
 
 def flux_fraction_slower(
@@ -199,9 +201,8 @@ def flux_fraction_slower(
     1965), ch. 7 (effusion); C. J. Foot, "Atomic Physics" (OUP, 2005), ch. 9.
     """
     x = _speed_ratio(capture_velocity, most_probable_speed)
-    x2 = x**2
-    # -expm1 keeps precision for small x, where the result is ~ x^4 / 2
-    return -np.expm1(-x2) - x2 * np.exp(-x2)
+    # = P(2, x^2), the regularized incomplete gamma: precise for small x, 1 at x = inf
+    return special.gammainc(2.0, x**2)
 
 
 def background_loss_rate(pressure: ArrayLike, coefficient: ArrayLike) -> np.ndarray:
