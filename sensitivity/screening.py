@@ -1,0 +1,323 @@
+"""Screening and given-data methods: Morris elementary effects, Borgonovo's delta.
+
+:func:`morris` screens many inputs with few runs (SALib's trajectory design
+and statistics). :func:`delta_indices` works on data as given, so it also
+serves correlated inputs, where Sobol' indices from a Saltelli design do not
+apply.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import warnings
+from collections.abc import Callable, Iterator, Mapping, Sequence
+from typing import Any
+
+import numpy as np
+import xarray as xr
+
+from trapbudget.sensitivity.indices import first_order_given_data
+
+__all__ = ["delta_indices", "morris"]
+
+
+@contextlib.contextmanager
+def _quiet_salib(seed: int) -> Iterator[None]:
+    """Run SALib code that uses the legacy global NumPy seed and edits warning filters.
+
+    Restores the global random state, the warning filters and
+    ``warnings.formatwarning`` afterwards, so SALib leaves no trace.
+    """
+    state = np.random.get_state()  # noqa: NPY002 - SALib seeds the legacy global state
+    formatter = warnings.formatwarning
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            np.random.seed(seed)  # noqa: NPY002
+            yield
+    finally:
+        warnings.formatwarning = formatter
+        np.random.set_state(state)  # noqa: NPY002
+
+
+def _columns_of(
+    samples: Any, names: Sequence[str] | None, role: str
+) -> tuple[np.ndarray, list[str]]:
+    """(n, k) float matrix and names from an array, a mapping or a samples Dataset."""
+    if isinstance(samples, xr.Dataset):
+        if names is None:
+            names = [
+                str(k)
+                for k, v in samples.data_vars.items()
+                if v.attrs.get("role") == role and k != "validity"
+            ]
+        return np.column_stack([samples[n].values.astype(float) for n in names]), list(names)
+    if isinstance(samples, Mapping):
+        names = list(samples) if names is None else list(names)
+        return np.column_stack([np.asarray(samples[n], float) for n in names]), names
+    matrix = np.asarray(samples, dtype=float)
+    matrix = matrix.reshape(matrix.shape[0], -1)
+    if names is None:
+        prefix = "x" if role == "input" else "y"
+        names = [f"{prefix}{j + 1}" for j in range(matrix.shape[1])]
+    if len(names) != matrix.shape[1]:
+        raise ValueError(f"{len(names)} {role} names for {matrix.shape[1]} columns: {names}")
+    return matrix, list(names)
+
+
+def delta_indices(
+    inputs: np.ndarray | xr.Dataset | Mapping[str, np.ndarray],
+    outputs: np.ndarray | xr.Dataset | Mapping[str, np.ndarray] | None = None,
+    *,
+    input_names: Sequence[str] | None = None,
+    output_names: Sequence[str] | None = None,
+    confidence_level: float = 0.95,
+    n_bootstrap: int = 100,
+    delta: bool = True,
+    delta_bootstrap: int | None = None,
+    max_points: int = 8192,
+    rng: int | np.random.Generator | None = None,
+) -> xr.Dataset:
+    """Moment-independent delta and first-order indices from given data.
+
+    Parameters
+    ----------
+    inputs : array (n, d), mapping name -> (n,), or samples Dataset
+        Input samples, any joint distribution (correlated inputs are fine).
+        A Dataset from ``propagate`` gives both inputs and outputs by role.
+    outputs : array (n,) or (n, m), mapping, or Dataset, optional
+        Output samples (default: the ``role == "output"`` variables of
+        ``inputs`` when it is a Dataset).
+    input_names, output_names : sequence of str, optional
+        Names (default: from the mapping or Dataset, else x1.., y1..).
+    confidence_level : float, default 0.95
+    n_bootstrap : int, default 100
+        Bootstrap resamples for the intervals.
+    delta : bool, default True
+        Compute delta (SALib, slow: kernel density estimates); False gives
+        the first-order indices only (NaN delta).
+    delta_bootstrap : int, optional
+        Resamples for the delta intervals (default ``n_bootstrap``); each
+        costs a full delta estimate per input.
+    max_points : int, default 8192
+        The delta estimate and its resamples use at most this many rows
+        (SALib's ``y_resamples``), which bounds its cost.
+    rng : int or numpy.random.Generator, optional
+
+    Returns
+    -------
+    xarray.Dataset
+        Dims ``output``, ``input``: ``delta``, ``delta_low``, ``delta_high``
+        (estimate +- z times the bootstrap standard error, SALib's
+        ``delta_raw`` and ``delta_raw_conf``), ``first_order``,
+        ``first_order_low``, ``first_order_high`` (percentile bootstrap).
+
+    Notes
+    -----
+    ``delta_i = (1/2) E_Xi[ integral |f_Y(y) - f_{Y|Xi}(y)| dy ]`` (Borgonovo
+    2007), estimated by Plischke, Borgonovo & Smith (2013) with
+    equal-count classes of X_i, kernel densities and bias reduction
+    (SALib.analyze.delta, "raw" resampling of the data as given).
+    ``first_order`` is ``Var(E[Y|X_i]) / Var(Y)`` by the class-mean
+    estimator on all the data (:func:`~trapbudget.sensitivity.indices.first_order_given_data`);
+    with correlated inputs it is the *full* first-order index, which counts
+    what an input explains through the inputs correlated with it.
+
+    References
+    ----------
+    E. Borgonovo, Reliab. Eng. Syst. Saf. 92, 771 (2007);
+    E. Plischke, E. Borgonovo, C. L. Smith, Eur. J. Oper. Res. 226, 536 (2013).
+    """
+    from SALib.analyze import delta as salib_delta
+
+    generator = np.random.default_rng(rng)
+    x, in_names = _columns_of(inputs, input_names, "input")
+    y, out_names = _columns_of(inputs if outputs is None else outputs, output_names, "output")
+    if x.shape[0] != y.shape[0]:
+        raise ValueError(
+            f"inputs have {x.shape[0]} rows but outputs {y.shape[0]}; give equal rows"
+        )
+    if not 0 < confidence_level < 1:
+        raise ValueError(f"confidence_level must be in (0, 1); got {confidence_level!r}")
+    s1, interval = first_order_given_data(
+        x, y, n_bootstrap=n_bootstrap, confidence_level=confidence_level, rng=generator
+    )
+    shape = (len(out_names), len(in_names))
+    d_est, d_conf = np.full(shape, np.nan), np.full(shape, np.nan)
+    if delta:
+        problem = {"num_vars": len(in_names), "names": [f"x{j}" for j in range(x.shape[1])]}
+        problem["bounds"] = [[float(c.min()), float(c.max())] for c in x.T]
+        for k in range(y.shape[1]):
+            with _quiet_salib(int(generator.integers(1, 2**31 - 1))):
+                result = salib_delta.analyze(
+                    problem,
+                    x,
+                    y[:, k],
+                    num_resamples=max(
+                        n_bootstrap if delta_bootstrap is None else delta_bootstrap, 2
+                    ),
+                    conf_level=confidence_level,
+                    method="delta",
+                    y_resamples=min(x.shape[0], max_points),
+                )
+            d_est[k] = result["delta_raw"]
+            d_conf[k] = result["delta_raw_conf"]
+    ds = xr.Dataset(coords={"output": out_names, "input": in_names})
+    ds["delta"] = (("output", "input"), d_est)
+    ds["delta_low"] = (("output", "input"), d_est - d_conf)
+    ds["delta_high"] = (("output", "input"), d_est + d_conf)
+    ds["first_order"] = (("output", "input"), s1.T)
+    ds["first_order_low"] = (("output", "input"), interval.low.T)
+    ds["first_order_high"] = (("output", "input"), interval.high.T)
+    for key, label in (
+        ("delta", "Borgonovo moment-independent delta"),
+        ("first_order", "first-order index Var(E[Y|Xi])/Var(Y) from given data"),
+    ):
+        for suffix in ("", "_low", "_high"):
+            ds[key + suffix].attrs.update(units="1", long_name=label + suffix.replace("_", ", "))
+    ds.attrs.update(
+        method="delta",
+        n_points=int(x.shape[0]),
+        confidence_level=float(confidence_level),
+        n_bootstrap=int(n_bootstrap),
+    )
+    return ds
+
+
+def morris(
+    model: Any,
+    inputs: Mapping[str, Any],
+    *,
+    n_trajectories: int,
+    levels: int = 4,
+    outputs: Sequence[str] | None = None,
+    tail: float = 0.005,
+    confidence_level: float = 0.95,
+    n_bootstrap: int = 100,
+    rng: int | np.random.Generator | None = None,
+    chunk_size: int = 65536,
+    progress: Callable[[int, int], None] | None = None,
+) -> xr.Dataset:
+    """Morris elementary-effects screening (SALib's trajectory design and statistics).
+
+    Parameters
+    ----------
+    model : model protocol object or callable
+    inputs : mapping of str to frozen scipy.stats distribution or float
+        Uncertain inputs (screened) and fixed ones (held).
+    n_trajectories : int
+        Number of one-at-a-time trajectories r; the model runs r (d+1) times.
+    levels : int, default 4
+        Grid levels p of the unit interval (step Delta = p / (2 (p-1))).
+    outputs : sequence of str, optional
+    tail : float, default 0.005
+        For an input with unbounded support, the unit interval maps to its
+        quantiles [tail, 1 - tail]; a bounded end maps to the bound itself.
+    confidence_level : float, default 0.95
+    n_bootstrap : int, default 100
+        Resamples for the confidence of mu_star.
+    rng : int or numpy.random.Generator, optional
+    chunk_size : int, default 65536
+    progress : callable, optional
+
+    Returns
+    -------
+    xarray.Dataset
+        Dims ``output``, ``input``: ``mu``, ``mu_star``, ``sigma``,
+        ``mu_star_low``, ``mu_star_high``, and ``step`` (dim ``input``: the
+        input change of one grid step Delta, SI units of the input).
+
+    Notes
+    -----
+    ``EE_i = (f(x + Delta e_i) - f(x)) / Delta`` with Delta in the unit
+    (quantile) coordinates, so an elementary effect is the output change per
+    unit of the mapped range; for a uniform input of width w and a linear
+    model ``y = sum b_i x_i``, ``EE_i = b_i w`` and ``EE_i Delta = b_i step``.
+    ``mu_star`` is the mean of |EE| (Campolongo et al. 2007), ``sigma`` their
+    standard deviation.
+
+    References
+    ----------
+    M. D. Morris, Technometrics 33, 161 (1991);
+    F. Campolongo, J. Cariboni, A. Saltelli, Environ. Model. Softw. 22, 1509 (2007).
+    """
+    from SALib.analyze import morris as salib_analyze
+    from SALib.sample import morris as salib_sample
+
+    from trapbudget.sensitivity.budget import _split_inputs, _units
+    from trapbudget.sensitivity.protocol import as_model, evaluate_in_chunks
+
+    if not isinstance(n_trajectories, int | np.integer) or n_trajectories < 2:
+        raise ValueError(f"n_trajectories must be an integer >= 2; got {n_trajectories!r}")
+    if not isinstance(levels, int | np.integer) or levels < 2 or levels % 2:
+        raise ValueError(f"levels must be an even integer >= 2; got {levels!r}")
+    if not 0 < tail < 0.5:
+        raise ValueError(f"tail must be in (0, 0.5); got {tail!r}")
+    model = as_model(model, input_names=list(inputs))
+    generator = np.random.default_rng(rng)
+    uncertain, fixed = _split_inputs(inputs)
+    names = list(uncertain)
+    problem = {"num_vars": len(names), "names": names, "bounds": [[0.0, 1.0]] * len(names)}
+    unit = salib_sample.sample(problem, int(n_trajectories), num_levels=levels, seed=generator)
+    low, high = [], []
+    for dist in uncertain.values():
+        lo, hi = dist.support()
+        low.append(lo if np.isfinite(lo) else dist.ppf(tail))
+        high.append(hi if np.isfinite(hi) else dist.ppf(1 - tail))
+    low, high = np.array(low, float), np.array(high, float)
+    quantile_low = np.array([d.cdf(v) for d, v in zip(uncertain.values(), low, strict=True)])
+    quantile_high = np.array([d.cdf(v) for d, v in zip(uncertain.values(), high, strict=True)])
+    q = quantile_low + unit * (quantile_high - quantile_low)
+    phys = np.column_stack(
+        [
+            np.where(unit[:, j] <= 0, low[j], np.where(unit[:, j] >= 1, high[j], d.ppf(q[:, j])))
+            for j, d in enumerate(uncertain.values())
+        ]
+    )
+    columns = {n: phys[:, j] for j, n in enumerate(names)}
+    columns.update({n: np.full(phys.shape[0], v) for n, v in fixed.items()})
+    result = evaluate_in_chunks(model, columns, chunk_size=chunk_size, progress=progress)
+    if outputs is None:
+        outputs = [
+            k
+            for k, v in result.items()
+            if k != "validity" and np.issubdtype(np.asarray(v).dtype, np.floating)
+        ]
+    outputs = list(outputs)
+    keys = ("mu", "mu_star", "sigma", "mu_star_conf")
+    table = {k: np.empty((len(outputs), len(names))) for k in keys}
+    for k, name in enumerate(outputs):
+        y = np.asarray(result[name], dtype=float)
+        si = salib_analyze.analyze(
+            problem,
+            unit,
+            y,
+            num_resamples=n_bootstrap,
+            conf_level=confidence_level,
+            num_levels=levels,
+            seed=generator,
+        )
+        for key in keys:
+            table[key][k] = np.asarray(si[key], dtype=float)
+    ds = xr.Dataset(coords={"output": outputs, "input": names})
+    for key in ("mu", "mu_star", "sigma"):
+        ds[key] = (("output", "input"), table[key])
+    ds["mu_star_low"] = ds["mu_star"] - table["mu_star_conf"]
+    ds["mu_star_high"] = ds["mu_star"] + table["mu_star_conf"]
+    delta_step = levels / (2 * (levels - 1))
+    ds["step"] = ("input", delta_step * (high - low))
+    ds["step"].attrs.update(long_name="input change of one grid step (SI)")
+    ds["step"].attrs["units"] = [_units(model, names, "inputs")[n] for n in names]
+    ds["mu"].attrs["long_name"] = "mean elementary effect"
+    ds["mu_star"].attrs["long_name"] = "mean absolute elementary effect"
+    ds["sigma"].attrs["long_name"] = "standard deviation of the elementary effects"
+    for name in outputs:
+        ds.attrs[f"units_{name}"] = _units(model, [name], "outputs")[name]
+    ds.attrs.update(
+        method="morris",
+        n_trajectories=int(n_trajectories),
+        levels=int(levels),
+        n_evaluations=int(phys.shape[0]),
+        confidence_level=float(confidence_level),
+    )
+    return ds
