@@ -1,0 +1,806 @@
+"""Diagnosing day-to-day drift of the atom number from a monitoring log.
+
+Log format
+----------
+A comma-separated file; ``#`` lines before the header are metadata
+(``# label = ...``). The header has a ``timestamp`` column (ISO 8601, e.g.
+``2026-11-23T08:00:00``; rows must be in time order) and monitored channels
+written ``name [unit]`` (beam-power photodiode, lock error or wavemeter
+reading, coil current, cell and room temperature, ion-pump current, ...), plus
+the measured output (``atom_number [1]``, optionally
+``atom_number_uncertainty [1]``).
+
+Mapping columns to model inputs
+-------------------------------
+A column named after a model input is that input (units converted). Other
+columns are mapped in a ``[diagnosis]`` table of the scenario (or the
+``mapping=`` argument)::
+
+    [diagnosis]
+    output = "atom_number"          # model output compared (default atom_number)
+    measured = "atom_number"        # log column holding its measurement
+    [diagnosis.columns.room_temperature]
+    input = "cell_temperature"      # input = column (converted)
+    [diagnosis.columns.cooling_photodiode]
+    input = "beam_power"
+    scale = "2.5 mW/V"              # input = offset + scale * column
+    offset = "0 mW"
+    [diagnosis.columns.lock_error]
+    input = "detuning"
+    offset = "nominal"              # input = scenario nominal + scale * column
+
+A column that maps to no input is not used; it is listed in
+``Diagnosis.ignored_columns``. Rows with a missing value in a used column are
+skipped and counted. The log file is only read, never modified.
+"""
+
+from __future__ import annotations
+
+import csv
+import datetime as _dt
+import difflib
+import math
+import os
+import re
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import xarray as xr
+from scipy import stats
+
+from trapbudget.sensitivity.errors import DataError, ScenarioError
+from trapbudget.sensitivity.measurements import convert, registry
+
+try:
+    import tomllib
+except ImportError:  # pragma: no cover - Python 3.10
+    import tomli as tomllib
+
+__all__ = ["ChannelMap", "Diagnosis", "LogTable", "diagnose", "read_log", "shapley_attribution"]
+
+_HEADER = re.compile(r"^\s*(?P<name>[A-Za-z_][A-Za-z0-9_]*)\s*(?:\[(?P<unit>[^\]]*)\])?\s*$")
+MAX_CHANNELS = 16
+
+UNMONITORED_HINT = (
+    "something the log does not monitor: beam alignment or polarization, the dispenser or "
+    "vapor source, the repumper, a detection change"
+)
+
+
+@dataclass(frozen=True)
+class LogTable:
+    """A monitoring log as read: timestamps and raw numeric columns.
+
+    Attributes
+    ----------
+    timestamps : ndarray of datetime64[s]
+    columns : dict of str to ndarray
+        Numbers as written (not converted).
+    written_units : dict of str to str
+    path : Path or None
+    label : str
+    skipped_rows : int
+        Rows with a missing value (filled in by :func:`diagnose` once it
+        knows which columns are used; here always 0).
+    """
+
+    timestamps: np.ndarray
+    columns: dict[str, np.ndarray]
+    written_units: dict[str, str]
+    path: Path | None = None
+    label: str = "log"
+
+    @property
+    def where(self) -> str:
+        return str(self.path) if self.path is not None else self.label
+
+
+def _parse_time(text: str, where: str) -> np.datetime64:
+    try:
+        stamp = _dt.datetime.fromisoformat(text.strip())
+    except ValueError:
+        raise DataError(
+            f"timestamp {text!r} is not ISO 8601; write e.g. '2026-11-23T08:00:00'", path=where
+        ) from None
+    if stamp.tzinfo is not None:
+        stamp = stamp.astimezone(_dt.timezone.utc).replace(tzinfo=None)
+    return np.datetime64(stamp, "s")
+
+
+def read_log(path: str | os.PathLike[str]) -> LogTable:
+    """Read a monitoring log (format in the module docstring).
+
+    Raises
+    ------
+    DataError
+        Missing file or timestamp column, bad header cell, non-numeric cell,
+        timestamps out of order.
+    """
+    file = Path(path)
+    where = str(file)
+    try:
+        text = file.read_text(encoding="utf-8-sig")
+    except FileNotFoundError:
+        raise DataError("file not found; check the path", path=where) from None
+    lines = [line for line in text.splitlines() if line.strip()]
+    metadata: dict[str, str] = {}
+    while lines and lines[0].lstrip().startswith("#"):
+        body = lines.pop(0).lstrip().lstrip("#").strip()
+        if "=" in body:
+            key, value = (part.strip() for part in body.split("=", 1))
+            metadata[key] = value
+    if not lines:
+        raise DataError("no header line; add 'timestamp,name [unit],...'", path=where)
+    reader = csv.reader(lines)
+    header = next(reader)
+    names: list[str] = []
+    units: dict[str, str] = {}
+    for cell in header:
+        match = _HEADER.match(cell)
+        if match is None:
+            raise DataError(
+                f"header cell {cell!r} is not 'name [unit]'; write e.g. 'coil_current [A]'",
+                path=where,
+            )
+        names.append(match["name"])
+        units[match["name"]] = (match["unit"] or "").strip()
+    if "timestamp" not in names:
+        raise DataError("no 'timestamp' column; add ISO 8601 timestamps", path=where)
+    stamps: list[np.datetime64] = []
+    rows: list[list[float]] = []
+    t_index = names.index("timestamp")
+    for row_number, row in enumerate(reader, start=2 + len(metadata)):
+        if len(row) != len(names):
+            raise DataError(
+                f"row {row_number} has {len(row)} cells, the header has {len(names)}; fix the row",
+                path=where,
+            )
+        stamps.append(_parse_time(row[t_index], f"{where}: row {row_number}"))
+        values = []
+        for j, cell in enumerate(row):
+            if j == t_index:
+                continue
+            cell = cell.strip()
+            if cell == "" or cell.lower() in {"nan", "na", "n/a"}:
+                values.append(math.nan)
+                continue
+            try:
+                values.append(float(cell))
+            except ValueError:
+                raise DataError(
+                    f"row {row_number}: {cell!r} in column {names[j]!r} is not a number",
+                    path=where,
+                ) from None
+        rows.append(values)
+    if not rows:
+        raise DataError("no data rows; add log entries below the header", path=where)
+    timestamps = np.array(stamps, dtype="datetime64[s]")
+    back = np.flatnonzero(np.diff(timestamps) < np.timedelta64(0, "s"))
+    if back.size:
+        i = int(back[0]) + 1
+        raise DataError(
+            f"timestamps go back in time at data row {i + 1} ({timestamps[i]} after "
+            f"{timestamps[i - 1]}); sort the log by time",
+            path=where,
+        )
+    table = np.array(rows, dtype=float)
+    value_names = [n for n in names if n != "timestamp"]
+    return LogTable(
+        timestamps=timestamps,
+        columns={n: table[:, j] for j, n in enumerate(value_names)},
+        written_units={n: units[n] for n in value_names},
+        path=file,
+        label=metadata.get("label", file.stem),
+    )
+
+
+@dataclass(frozen=True)
+class ChannelMap:
+    """How one log column becomes one model input: ``input = offset + scale * column``."""
+
+    column: str
+    input: str
+    scale: str | None = None
+    offset: str | None = None
+
+
+def _mapping_from(scenario: Any, mapping: Mapping[str, Any] | None) -> dict[str, Any]:
+    if mapping is not None:
+        return dict(mapping)
+    table = getattr(scenario, "diagnosis", None)
+    if table:
+        return dict(table)
+    source = getattr(scenario, "source", None)
+    if source is not None and Path(source).is_file():
+        with open(source, "rb") as handle:
+            return dict(tomllib.load(handle).get("diagnosis", {}))
+    return {}
+
+
+def _channel_maps(
+    log: LogTable, model: Any, table: Mapping[str, Any], measured: str, where: str
+) -> tuple[list[ChannelMap], list[str]]:
+    maps: list[ChannelMap] = []
+    raw = table.get("columns", {}) or {}
+    for column, spec in raw.items():
+        if column not in log.columns:
+            close = difflib.get_close_matches(column, list(log.columns), n=1)
+            hint = f"; did you mean {close[0]!r}?" if close else ""
+            raise DataError(
+                f"diagnosis.columns.{column}: the log has no column {column!r}{hint}",
+                path=log.where,
+            )
+        if isinstance(spec, str):
+            spec = {"input": spec}
+        name = spec.get("input")
+        if name not in model.inputs:
+            close = difflib.get_close_matches(str(name), list(model.inputs), n=1)
+            hint = f"; did you mean {close[0]!r}?" if close else ""
+            raise ScenarioError(
+                f"input {name!r} is not a model input{hint}",
+                path=where,
+                key=f"diagnosis.columns.{column}.input",
+            )
+        maps.append(ChannelMap(column, name, spec.get("scale"), spec.get("offset")))
+    mapped = {m.column for m in maps}
+    for column in log.columns:
+        if column not in mapped and column in model.inputs:
+            maps.append(ChannelMap(column, column))
+    used = [m.input for m in maps]
+    for name in set(used):
+        if used.count(name) > 1:
+            columns = [m.column for m in maps if m.input == name]
+            raise DataError(
+                f"columns {columns} all map to input {name!r}; map one and drop the others",
+                path=log.where,
+            )
+    skip = {measured, f"{measured}_uncertainty"}
+    ignored = [c for c in log.columns if c not in {m.column for m in maps} and c not in skip]
+    return maps, ignored
+
+
+def _quantity(text: str, where: str) -> Any:
+    reg = registry()
+    try:
+        return reg.Quantity(text)
+    except Exception:
+        raise DataError(f"{text!r} is not a quantity; write e.g. '2.5 mW/V'", path=where) from None
+
+
+def _input_values(
+    log: LogTable, cmap: ChannelMap, model: Any, nominal: Mapping[str, float]
+) -> np.ndarray:
+    spec = model.inputs[cmap.input]
+    where = f"{log.where}: {cmap.column}"
+    written = log.written_units[cmap.column]
+    if cmap.scale is None and cmap.offset is None:
+        return convert(log.columns[cmap.column], written, target=spec.unit, where=where)
+    reg = registry()
+    try:
+        column = reg.Quantity(log.columns[cmap.column], written or "dimensionless")
+    except Exception:
+        raise DataError(f"{written!r} is not a unit; fix the header", path=where) from None
+    scale = _quantity(cmap.scale, where) if cmap.scale is not None else reg.Quantity(1.0)
+    target = reg.Quantity(1.0, spec.unit or "dimensionless")
+    if cmap.offset == "nominal":
+        offset = reg.Quantity(float(nominal.get(cmap.input, spec.default)), target.units)
+    elif cmap.offset is not None:
+        offset = _quantity(cmap.offset, where)
+    else:
+        offset = reg.Quantity(0.0, target.units)
+    try:
+        total = offset + scale * column
+        return np.asarray(total.to(target.units).magnitude, dtype=float)
+    except Exception:
+        raise DataError(
+            f"offset + scale * column does not give {cmap.input!r} in {spec.unit or '1'!r}; "
+            "check the units of scale and offset",
+            path=where,
+        ) from None
+
+
+def shapley_attribution(
+    model: Any,
+    *,
+    reference: Mapping[str, float],
+    points: Mapping[str, np.ndarray],
+    base: Mapping[str, float],
+    output: str,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Exact Shapley attribution of output changes to the changed inputs.
+
+    Parameters
+    ----------
+    model : model protocol object
+    reference : mapping of str to float
+        Reference value of each channel input (SI).
+    points : mapping of str to ndarray, shape (n,)
+        Values of the same inputs at n points.
+    base : mapping of str to float
+        Every other input, held fixed.
+    output : str
+        Output attributed.
+
+    Returns
+    -------
+    attribution : ndarray, shape (n, k)
+        Share of each channel in the change at each point.
+    change : ndarray, shape (n,)
+        f(point) - f(reference).
+    at_reference : ndarray, shape ()
+        f(reference).
+
+    Notes
+    -----
+    ``phi_i = sum_{S not containing i} |S|! (k - |S| - 1)! / k! [f(S + i) - f(S)]``
+    with ``f(S)`` the output with the channels in S at the point and the
+    others at the reference. All 2^k coalitions of every point are evaluated
+    in one vectorized model call; by the efficiency property the phi sum to
+    ``f(point) - f(reference)`` to rounding.
+
+    References
+    ----------
+    L. S. Shapley, "A value for n-person games", in Contributions to the
+    Theory of Games II (Princeton 1953); for attribution of model outputs,
+    S. M. Lundberg and S.-I. Lee, NeurIPS 2017.
+    """
+    channels = list(points)
+    k = len(channels)
+    if k > MAX_CHANNELS:
+        raise DataError(
+            f"{k} monitored channels; exact attribution handles at most {MAX_CHANNELS}: "
+            "map fewer columns"
+        )
+    n = len(next(iter(points.values()))) if channels else 0
+    masks = np.array([[(s >> i) & 1 for i in range(k)] for s in range(2**k)], dtype=bool)
+    values: dict[str, np.ndarray] = {
+        name: np.full((n, 2**k), float(v)) for name, v in base.items() if name not in points
+    }
+    for i, name in enumerate(channels):
+        day = np.asarray(points[name], dtype=float)[:, np.newaxis]
+        values[name] = np.where(masks[np.newaxis, :, i], day, float(reference[name]))
+    out = np.asarray(model.evaluate(values)[output], dtype=float)
+    out = np.broadcast_to(out, (n, 2**k))
+    size = masks.sum(axis=1)
+    weight = np.array(
+        [math.factorial(s) * math.factorial(k - s - 1) / math.factorial(k) for s in range(k)]
+    )
+    attribution = np.zeros((n, k))
+    index = np.arange(2**k)
+    for i in range(k):
+        without = index[~masks[:, i]]
+        with_i = without | (1 << i)
+        attribution[:, i] = (out[:, with_i] - out[:, without]) @ weight[size[without]]
+    return attribution, out[:, -1] - out[:, 0], out[0, 0] if n else np.nan
+
+
+@dataclass(frozen=True)
+class Diagnosis:
+    """Result of :func:`diagnose` (see :meth:`to_dataset` for the arrays).
+
+    Attributes
+    ----------
+    channels : tuple of str
+        Log columns used, in log order; ``inputs`` the model input of each.
+    days : ndarray of datetime64[D]
+    reference_days : ndarray of bool
+    measured_change, predicted_change, remainder, remainder_sigma, z : ndarray (day)
+        Daily mean measured minus reference, model change, their difference,
+        its allowed standard deviation and the ratio.
+    attribution : ndarray (day, channel)
+        Exact Shapley shares of the predicted change; rows sum to
+        ``predicted_change``.
+    flagged : ndarray of bool (day)
+    variance_share : ndarray (channel)
+        Share of each channel in the mean square attribution over the days.
+    messages : tuple of str
+        Plain statements for the report and the terminal.
+    """
+
+    channels: tuple[str, ...]
+    inputs: tuple[str, ...]
+    output: str
+    units: str
+    timestamps: np.ndarray
+    measured: np.ndarray
+    predicted: np.ndarray
+    days: np.ndarray
+    entries_per_day: np.ndarray
+    reference_days: np.ndarray
+    reference_level: float
+    measured_change: np.ndarray
+    predicted_change: np.ndarray
+    attribution: np.ndarray
+    remainder: np.ndarray
+    remainder_sigma: np.ndarray
+    z: np.ndarray
+    flagged: np.ndarray
+    variance_share: np.ndarray
+    false_alarm_rate: float
+    threshold: float
+    skipped_rows: int
+    ignored_columns: tuple[str, ...]
+    messages: tuple[str, ...] = ()
+    channel_means: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
+
+    @property
+    def ranking(self) -> list[tuple[str, float]]:
+        """Channels by variance share, largest first."""
+        order = np.argsort(-self.variance_share)
+        return [(self.channels[i], float(self.variance_share[i])) for i in order]
+
+    def to_dataset(self) -> xr.Dataset:
+        """Dims ``entry`` (log rows kept), ``day``, ``channel``."""
+        ds = xr.Dataset(
+            {
+                "measured": ("entry", self.measured, {"units": self.units}),
+                "predicted": ("entry", self.predicted, {"units": self.units}),
+                "day_mean_inputs": (("day", "channel"), self.channel_means),
+                "entries": ("day", self.entries_per_day),
+                "reference": ("day", self.reference_days),
+                "measured_change": ("day", self.measured_change, {"units": self.units}),
+                "predicted_change": ("day", self.predicted_change, {"units": self.units}),
+                "attribution": (("day", "channel"), self.attribution, {"units": self.units}),
+                "remainder": ("day", self.remainder, {"units": self.units}),
+                "remainder_sigma": ("day", self.remainder_sigma, {"units": self.units}),
+                "z": ("day", self.z),
+                "flagged": ("day", self.flagged),
+                "variance_share": ("channel", self.variance_share),
+            },
+            coords={
+                "time": ("entry", self.timestamps.astype("datetime64[ns]")),
+                "day": self.days.astype("datetime64[ns]"),
+                "channel": list(self.channels),
+                "input": ("channel", list(self.inputs)),
+            },
+            attrs={
+                "output": self.output,
+                "reference_level": self.reference_level,
+                "false_alarm_rate": self.false_alarm_rate,
+                "threshold": self.threshold,
+                "skipped_rows": self.skipped_rows,
+                "ignored_columns": list(self.ignored_columns),
+                "messages": list(self.messages),
+            },
+        )
+        return ds
+
+
+def _reference_mask(days: np.ndarray, reference: Any, where: str) -> np.ndarray:
+    if reference in (None, "first-day"):
+        return days == days[0]
+    if isinstance(reference, str):
+        start = end = reference
+    elif isinstance(reference, Sequence) and len(reference) == 2:
+        start, end = reference
+    else:
+        raise DataError(
+            f"reference {reference!r} must be 'first-day', a date or a (start, end) pair of dates",
+            path=where,
+        )
+    try:
+        lo, hi = np.datetime64(str(start), "D"), np.datetime64(str(end), "D")
+    except ValueError:
+        raise DataError(
+            f"reference {reference!r} is not a date; write 'YYYY-MM-DD'", path=where
+        ) from None
+    mask = (days >= lo) & (days <= hi)
+    if not mask.any():
+        raise DataError(
+            f"reference {reference!r} matches no day of the log ({days[0]} to {days[-1]})",
+            path=where,
+        )
+    return mask
+
+
+def _constants_covariance(scenario: Any, model: Any) -> tuple[list[str], np.ndarray]:
+    """Names and covariance of the uncertain model constants of the scenario."""
+    inputs = getattr(scenario, "inputs", {}) or {}
+    names = [n for n in inputs if n in model.inputs and model.inputs[n].constant]
+    if not names:
+        return [], np.zeros((0, 0))
+    std = np.array([float(inputs[n].std()) for n in names])
+    corr = np.eye(len(names))
+    full = getattr(scenario, "correlation", None)
+    if full is not None:
+        order = list(inputs)
+        idx = [order.index(n) for n in names]
+        corr = np.asarray(full)[np.ix_(idx, idx)]
+    return names, corr * np.outer(std, std)
+
+
+def diagnose(
+    scenario: Any,
+    log: str | os.PathLike[str] | LogTable,
+    *,
+    reference: Any = "first-day",
+    false_alarm_rate: float = 0.01,
+    mapping: Mapping[str, Any] | None = None,
+    unexplained_noise: float = 0.0,
+) -> Diagnosis:
+    """Attribute day-to-day changes of the atom number to the monitored channels.
+
+    Parameters
+    ----------
+    scenario : Scenario
+        The (calibrated) scenario: its model, nominal values and the
+        uncertainty of its constants; ``[diagnosis]`` maps log columns.
+    log : path or LogTable
+        The monitoring log (format in the module docstring).
+    reference : "first-day", date string or (start, end) dates
+        Reference period the changes are taken against.
+    false_alarm_rate : float
+        Probability that a day with no unmonitored change is flagged
+        (two-sided, per day).
+    mapping : mapping, optional
+        The ``[diagnosis]`` table, overriding the scenario's.
+    unexplained_noise : float
+        Relative day-to-day scatter of the output expected even with nothing
+        changing (added in quadrature to the allowed remainder); 0 by default.
+
+    Returns
+    -------
+    Diagnosis
+
+    Notes
+    -----
+    Each day's channel values are averaged; the model predicts the output at
+    each day's means and at the reference period's means (other inputs at
+    the scenario's nominal values); the predicted change is split over the
+    channels by the exact Shapley value (:func:`shapley_attribution`), which
+    sums to it to rounding. The remainder
+    ``r = (mean measured - reference mean measured) - predicted change`` is
+    compared with its standard deviation from (i) measurement noise: the
+    given uncertainties, else the pooled within-day scatter of
+    measured - predicted, through the day's and the reference's means;
+    (ii) calibration: first-order propagation of the covariance of the
+    scenario's uncertain constants through the predicted change;
+    (iii) ``unexplained_noise``. A day is flagged when
+    ``|r| / sigma > z_(1 - alpha/2)``. The channels are ranked by the share
+    of the mean square attribution, ``sum_d phi_dc^2 / sum_dc phi_dc^2``
+    (sums to 1; unlike a covariance split it stays meaningful when two drifts
+    cancel in the total).
+    """
+    if not 0 < false_alarm_rate < 1:
+        raise DataError(f"false_alarm_rate {false_alarm_rate!r} must lie in (0, 1)")
+    table = log if isinstance(log, LogTable) else read_log(log)
+    model = scenario.model
+    where = str(getattr(scenario, "source", None) or "scenario")
+    config = _mapping_from(scenario, mapping)
+    output = config.get("output", "atom_number")
+    if output not in model.outputs:
+        raise ScenarioError(
+            f"output {output!r} is not a model output", path=where, key="diagnosis.output"
+        )
+    measured_name = config.get("measured", output)
+    if measured_name not in table.columns:
+        raise DataError(
+            f"the log has no measured column {measured_name!r}; add '{measured_name} [1]' "
+            "or set [diagnosis] measured",
+            path=table.where,
+        )
+    maps, ignored = _channel_maps(table, model, config, measured_name, where)
+    if not maps:
+        raise DataError(
+            "no log column maps to a model input; name columns after inputs or add "
+            "[diagnosis.columns]",
+            path=table.where,
+        )
+    nominal = dict(getattr(scenario, "nominal", {}) or {})
+    inputs = {m.column: _input_values(table, m, model, nominal) for m in maps}
+    measured = convert(
+        table.columns[measured_name],
+        table.written_units[measured_name],
+        target=model.outputs[output].unit,
+        where=f"{table.where}: {measured_name}",
+    )
+    u_name = f"{measured_name}_uncertainty"
+    given_u = (
+        convert(
+            table.columns[u_name],
+            table.written_units[u_name],
+            target=model.outputs[output].unit,
+            where=f"{table.where}: {u_name}",
+        )
+        if u_name in table.columns
+        else None
+    )
+    needed = [*inputs.values(), measured] + ([given_u] if given_u is not None else [])
+    keep = np.all(np.isfinite(np.column_stack(needed)), axis=1)
+    skipped = int(np.count_nonzero(~keep))
+    if not keep.any():
+        raise DataError("every log row misses a value in a used column", path=table.where)
+    stamps = table.timestamps[keep]
+    measured = measured[keep]
+    given_u = given_u[keep] if given_u is not None else None
+    inputs = {c: v[keep] for c, v in inputs.items()}
+    input_of = {m.column: m.input for m in maps}
+    base = {
+        name: float(nominal.get(name, spec.default))
+        for name, spec in model.inputs.items()
+        if name not in input_of.values()
+    }
+
+    entry_values = {
+        **{n: np.full(stamps.size, v) for n, v in base.items()},
+        **{input_of[c]: v for c, v in inputs.items()},
+    }
+    predicted = np.broadcast_to(
+        np.asarray(model.evaluate(entry_values)[output], dtype=float), stamps.shape
+    ).copy()
+
+    day_of = stamps.astype("datetime64[D]")
+    days, day_index, counts = np.unique(day_of, return_inverse=True, return_counts=True)
+    ref = _reference_mask(days, reference, where)
+    ref_rows = ref[day_index]
+
+    def day_mean(x: np.ndarray) -> np.ndarray:
+        return np.bincount(day_index, weights=x, minlength=days.size) / counts
+
+    channel_means = np.column_stack([day_mean(inputs[c]) for c in inputs])
+    ref_point = {input_of[c]: float(np.mean(inputs[c][ref_rows])) for c in inputs}
+    points = {input_of[c]: channel_means[:, j] for j, c in enumerate(inputs)}
+    attribution, predicted_change, at_reference = shapley_attribution(
+        model, reference=ref_point, points=points, base=base, output=output
+    )
+    measured_day = day_mean(measured)
+    measured_change = measured_day - float(np.mean(measured[ref_rows]))
+    remainder = measured_change - predicted_change
+
+    # (i) measurement noise of the day means
+    if given_u is not None:
+        var_day = np.bincount(day_index, weights=given_u**2, minlength=days.size) / counts**2
+        var_ref = float(np.sum(given_u[ref_rows] ** 2)) / ref_rows.sum() ** 2
+        noise_note = "the given measurement uncertainties"
+    else:
+        resid = measured - predicted
+        mean_resid = day_mean(resid)
+        ss = np.bincount(
+            day_index, weights=(resid - mean_resid[day_index]) ** 2, minlength=days.size
+        )
+        dof = counts - 1
+        if dof.sum() == 0:
+            raise DataError(
+                "one entry per day and no uncertainty column: the measurement noise cannot be "
+                f"estimated; add '{u_name}' or more entries per day",
+                path=table.where,
+            )
+        pooled = float(ss.sum() / dof.sum())
+        var_day = pooled / counts
+        var_ref = pooled / ref_rows.sum()
+        noise_note = "the pooled within-day scatter of measured - predicted"
+    var_meas = var_day + var_ref
+    # (ii) calibration uncertainty of the predicted change
+    var_cal = _calibration_variance(scenario, model, base, ref_point, points, output)
+    # (iii) stated unexplained day-to-day scatter
+    level = float(at_reference)
+    var_extra = (unexplained_noise * level) ** 2 * (1.0 + 1.0 / max(int(ref.sum()), 1))
+    sigma = np.sqrt(var_meas + var_cal + var_extra)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        z = np.where(sigma > 0, remainder / sigma, np.inf * np.sign(remainder))
+    threshold = float(stats.norm.isf(false_alarm_rate / 2))
+    flagged = (np.abs(z) > threshold) & ~ref
+
+    square = np.sum(attribution**2, axis=0)
+    share = square / square.sum() if square.sum() > 0 else np.zeros(len(inputs))
+
+    channels = tuple(inputs)
+    messages = _messages(
+        days,
+        ref,
+        flagged,
+        measured_change,
+        predicted_change,
+        remainder,
+        z,
+        attribution,
+        channels,
+        level,
+        false_alarm_rate,
+        noise_note,
+        skipped,
+        ignored,
+        share,
+    )
+    return Diagnosis(
+        channels=channels,
+        inputs=tuple(input_of[c] for c in channels),
+        output=output,
+        units=model.outputs[output].unit,
+        timestamps=stamps,
+        measured=measured,
+        predicted=predicted,
+        days=days,
+        entries_per_day=counts,
+        reference_days=ref,
+        reference_level=level,
+        measured_change=measured_change,
+        predicted_change=predicted_change,
+        attribution=attribution,
+        remainder=remainder,
+        remainder_sigma=sigma,
+        z=z,
+        flagged=flagged,
+        variance_share=share,
+        false_alarm_rate=false_alarm_rate,
+        threshold=threshold,
+        skipped_rows=skipped,
+        ignored_columns=tuple(ignored),
+        messages=tuple(messages),
+        channel_means=channel_means,
+    )
+
+
+def _calibration_variance(
+    scenario: Any,
+    model: Any,
+    base: Mapping[str, float],
+    ref_point: Mapping[str, float],
+    points: Mapping[str, np.ndarray],
+    output: str,
+) -> np.ndarray:
+    names, cov = _constants_covariance(scenario, model)
+    n_days = len(next(iter(points.values())))
+    if not names:
+        return np.zeros(n_days)
+    grads = np.empty((n_days, len(names)))
+    for j, name in enumerate(names):
+        centre = float(base.get(name, ref_point.get(name, model.inputs[name].default)))
+        h = 1e-4 * (math.sqrt(cov[j, j]) or abs(centre) or 1.0)
+        changes = []
+        for step in (h, -h):
+            common = {**base, name: centre + step}
+            day = model.evaluate({**common, **points})[output]
+            ref = model.evaluate({**common, **ref_point})[output]
+            changes.append(np.asarray(day, dtype=float) - np.asarray(ref, dtype=float))
+        grads[:, j] = (changes[0] - changes[1]) / (2 * h)
+    return np.einsum("di,ij,dj->d", grads, cov, grads)
+
+
+def _messages(
+    days,
+    ref,
+    flagged,
+    measured_change,
+    predicted_change,
+    remainder,
+    z,
+    attribution,
+    channels,
+    level,
+    alpha,
+    noise_note,
+    skipped,
+    ignored,
+    share,
+) -> list[str]:
+    out: list[str] = []
+    ranking = np.argsort(-share)
+    top = ", ".join(f"{channels[i]} ({share[i]:.0%})" for i in ranking[:3])
+    out.append(f"Day-to-day change of the predicted output is driven by: {top}.")
+    for d in np.flatnonzero(flagged):
+        largest = channels[int(np.argmax(np.abs(attribution[d])))]
+        out.append(
+            f"{days[d]}: measured change {measured_change[d] / level:+.1%}, predicted "
+            f"{predicted_change[d] / level:+.1%} (largest channel {largest}); the remainder "
+            f"{remainder[d] / level:+.1%} (z = {z[d]:+.1f}) exceeds what measurement noise and "
+            f"calibration allow at a false-alarm rate of {alpha:.2g} per day: it points at "
+            f"{UNMONITORED_HINT}."
+        )
+    if not flagged.any():
+        out.append(
+            f"No day's change exceeds what the monitored channels, measurement noise and "
+            f"calibration explain (false-alarm rate {alpha:.2g} per day)."
+        )
+    out.append(
+        f"Measurement noise from {noise_note}; reference days: "
+        f"{', '.join(str(d) for d in days[ref])}."
+    )
+    if skipped:
+        out.append(f"{skipped} log rows with a missing value were skipped.")
+    if ignored:
+        out.append(f"Log columns not mapped to any model input (not used): {', '.join(ignored)}.")
+    return out
