@@ -29,10 +29,13 @@ from trapbudget.reports.formatting import (
     format_quantity,
 )
 from trapbudget.reports.render import Figure, Section, Table, Text, register_section
+from trapbudget.reports.results import _dim_records, _plain
 
 __all__ = [
     "benefit_figure",
     "compare_section",
+    "comparison_json",
+    "comparison_rich_tables",
     "distribution_figure",
     "plain_summary",
 ]
@@ -69,8 +72,8 @@ def _output_rows(ds: xr.Dataset, option: str) -> list[list[str]]:
         rows.append(
             [
                 str(output),
-                f"{_q(float(o['mean_before']), unit)} -> {_q(float(o['mean_after']), unit)}",
-                f"{_q(float(o['std_before']), unit)} -> {_q(float(o['std_after']), unit)}",
+                f"{_q(float(o['mean_before']), unit)} → {_q(float(o['mean_after']), unit)}",
+                f"{_q(float(o['std_before']), unit)} → {_q(float(o['std_after']), unit)}",
                 f"[{_q(float(o['interval_low_before']), unit)}, "
                 f"{_q(float(o['interval_high_before']), unit)}]",
                 f"[{_q(float(o['interval_low_after']), unit)}, "
@@ -92,16 +95,14 @@ def _requirement_rows(ds: xr.Dataset) -> list[list[str]]:
             pb, pa = float(r["probability_before"]), float(r["probability_after"])
             if math.isfinite(pb):
                 change = (
-                    f"{format_percent(pb)} -> {format_percent(pa)} "
+                    f"{format_percent(pb)} → {format_percent(pa)} "
                     f"(+- {format_percent(float(r['shift_standard_error']), digits=2)})"
                 )
                 fb, fa = float(r["failing_per_day_before"]), float(r["failing_per_day_after"])
-                per_day = (
-                    f"{format_number(fb)} -> {format_number(fa)}" if math.isfinite(fb) else ""
-                )
+                per_day = f"{format_number(fb)} → {format_number(fa)}" if math.isfinite(fb) else ""
             else:
                 change = (
-                    f"spread {format_number(float(r['relative_spread_before']))} -> "
+                    f"spread {format_number(float(r['relative_spread_before']))} → "
                     f"{format_number(float(r['relative_spread_after']))}"
                 )
                 per_day = ""
@@ -207,6 +208,75 @@ def benefit_figure(ds: xr.Dataset) -> bytes:
     return _png(fig)
 
 
+def comparison_json(ds: xr.Dataset) -> dict[str, Any]:
+    """The machine-readable comparison: one entry per change, outputs and requirements."""
+    keys = (
+        "title",
+        "title_before",
+        "title_after",
+        "n_samples",
+        "method",
+        "seed",
+        "confidence_level",
+        "repetition_rate",
+        "currency",
+        "benefit_metric",
+    )
+    out: dict[str, Any] = {k: _plain(ds.attrs[k]) for k in keys if k in ds.attrs}
+    changes = []
+    for option in _options(ds):
+        item = _pick(ds, option)
+        entry: dict[str, Any] = {"name": option}
+        for key in ("cost", "benefit", "benefit_per_cost", "rank"):
+            if key in item:
+                entry[key] = _plain(item[key])
+        if "upgrade" not in ds.dims:
+            entry["cost"] = _plain(ds.attrs.get("cost", math.nan))
+        entry["outputs"] = _dim_records(item, "output")
+        if "requirement" in ds.dims:
+            entry["requirements"] = _dim_records(item, "requirement")
+        changes.append(entry)
+    out["changes"] = changes
+    return out
+
+
+def comparison_rich_tables(ds: xr.Dataset) -> list[Any]:
+    """Rich tables for the terminal: the ranking (upgrades) and each change's outputs."""
+    from rich.table import Table as RichTable
+
+    tables = []
+    if "upgrade" in ds.dims:
+        ranking = RichTable(title="Upgrades ranked by improvement per unit cost")
+        for column in ("Rank", "Upgrade", "Cost", "Benefit", "Per unit cost"):
+            ranking.add_column(column)
+        for row in _upgrade_rows(ds):
+            ranking.add_row(*row)
+        tables.append(ranking)
+    for option in _options(ds):
+        table = RichTable(title=f"{option}: before → after")
+        for column in (
+            "Output",
+            "Mean",
+            "Std",
+            "Interval before",
+            "Interval after",
+            "Variance removed",
+        ):
+            table.add_column(column)
+        for row in _output_rows(ds, option):
+            table.add_row(*row)
+        tables.append(table)
+    rows = _requirement_rows(ds)
+    if rows:
+        table = RichTable(title="Requirements before → after")
+        for column in ("Change", "Requirement", "Probability met", "Failing runs per day"):
+            table.add_column(column)
+        for row in rows:
+            table.add_row(*row)
+        tables.append(table)
+    return tables
+
+
 def compare_section(
     datasets: Mapping[str, xr.Dataset], study: Mapping[str, Any]
 ) -> Section | None:
@@ -230,7 +300,7 @@ def compare_section(
             Table(
                 ["Output", "Mean", "Std", "Interval before", "Interval after", "Variance removed"],
                 _output_rows(ds, option),
-                caption=f"{option}: outputs before -> after "
+                caption=f"{option}: outputs before → after "
                 f"({format_percent(float(ds.attrs.get('confidence_level', 0.95)))} intervals)",
                 numeric=[False, True, True, True, True, True],
             )
@@ -242,7 +312,7 @@ def compare_section(
             Table(
                 ["Change", "Requirement", "Probability met", "Failing runs per day"],
                 rows,
-                caption="Requirements before -> after (paired standard error of the shift)"
+                caption="Requirements before → after (paired standard error of the shift)"
                 + (f"; {format_number(rate)} runs per second" if math.isfinite(rate) else ""),
                 numeric=[False, False, True, True],
             )

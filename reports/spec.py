@@ -24,9 +24,12 @@ import xarray as xr
 from trapbudget.reports.figures import _STYLE, BLUE, GREY, ORANGE, _png
 from trapbudget.reports.formatting import format_number, format_percent, format_quantity
 from trapbudget.reports.render import Figure, Section, Table, Text, register_section
+from trapbudget.reports.results import _dim_records, _plain
 
 __all__ = [
     "LIMITS",
+    "allocation_json",
+    "allocation_rich_table",
     "plain_summary",
     "spec_rows",
     "spec_section",
@@ -54,7 +57,7 @@ def _tol(value: float, unit: str, text: str) -> str:
     if not math.isfinite(value):
         return "any"
     shown = format_quantity(value, unit) if unit else format_number(value)
-    return f"{text} ({shown})" if text and text != shown else shown
+    return f"{text} ({shown})" if text.strip().endswith("%") else shown
 
 
 def spec_rows(allocation: xr.Dataset) -> list[list[str]]:
@@ -116,7 +119,7 @@ def plain_summary(allocation: xr.Dataset) -> str:
             f"{attrs.get('reason', '')}. Nothing should be bought on the basis of this "
             "study until the requirement or the options change."
         )
-    changes, kept = [], []
+    changes, relaxed, kept = [], [], []
     for name in allocation["input"].values:
         item = allocation.sel(input=name)
         if not bool(item["free"].values):
@@ -126,6 +129,8 @@ def plain_summary(allocation: xr.Dataset) -> str:
         what = f"'{tier}' for {name}" if tier else f"{name} held to {item['required_text'].values}"
         if headroom > 1.0 + 1e-6:
             changes.append(f"{what} (about {format_number(headroom, digits=2)} times tighter)")
+        elif headroom < 1.0 - 1e-6:
+            relaxed.append(f"{name} (to {item['required_text'].values})")
         else:
             kept.append(str(name))
     reqs = []
@@ -138,8 +143,10 @@ def plain_summary(allocation: xr.Dataset) -> str:
         f"The cheapest way found to meet the requirements costs "
         f"{_money(float(attrs.get('total_cost', math.nan)), currency)} and buys {bought}."
     )
+    if relaxed:
+        text += f" These may be relaxed: {', '.join(relaxed)}."
     if kept:
-        text += f" {', '.join(kept)} can stay as they are, or even be relaxed."
+        text += f" These stay as they are: {', '.join(kept)}."
     if reqs:
         text += f" With these changes the simulation says {', and '.join(reqs)}."
     text += (
@@ -161,18 +168,65 @@ def tolerance_figure(allocation: xr.Dataset) -> bytes:
         ]
     )
     with plt.rc_context(_STYLE):
-        fig, ax = plt.subplots(figsize=(6.0, 0.45 * len(free) + 1.2))
+        fig, ax = plt.subplots(figsize=(6.0, 0.42 * len(free) + 1.3))
         y = np.arange(len(free))
-        ax.barh(y, np.ones(len(free)), height=0.35, color=GREY, alpha=0.5, label="present")
-        colors = [ORANGE if r < 1 else BLUE for r in ratio]
-        ax.barh(y + 0.35, ratio, height=0.35, color=colors, label="required")
-        ax.set_yticks(y + 0.175, [n.replace("_", " ") for n in free])
+        finite = np.where(np.isfinite(ratio), ratio, 1.0)
+        for k in range(len(free)):
+            ax.plot([1.0, finite[k]], [y[k], y[k]], color=GREY, lw=1.0, zorder=1)
+        ax.scatter(np.ones(len(free)), y, color=GREY, s=30, zorder=2, label="present")
+        colors = [ORANGE if r < 1 else BLUE for r in finite]
+        ax.scatter(finite, y, color=colors, s=40, marker="D", zorder=3, label="required")
+        ax.set_yticks(y, [n.replace("_", " ") for n in free])
         ax.set_xscale("log")
-        ax.axvline(1.0, color=GREY, lw=0.8)
-        ax.set_xlabel("tolerance relative to present (orange: must tighten)")
-        ax.invert_yaxis()
+        span = max(float(np.max(np.abs(np.log10(finite)))), 0.3)
+        ax.set_xlim(10 ** (-1.3 * span), 10 ** (1.3 * span))
+        ax.axvline(1.0, color=GREY, lw=0.8, ls=":")
+        ax.set_xlabel("required tolerance / present (orange: tighten, blue: may relax)")
+        ax.set_ylim(len(free) - 0.5, -0.5)
         ax.legend(loc="lower right")
     return _png(fig)
+
+
+def allocation_json(allocation: xr.Dataset) -> dict[str, Any]:
+    """The machine-readable allocation: attrs, one record per input and per requirement."""
+    keys = (
+        "title",
+        "feasible",
+        "reason",
+        "total_cost",
+        "currency",
+        "blocking_input",
+        "failing_requirement",
+        "n_samples",
+        "method",
+        "seed",
+        "iterations",
+    )
+    out: dict[str, Any] = {k: _plain(allocation.attrs.get(k, "")) for k in keys}
+    out["feasible"] = bool(allocation.attrs.get("feasible", False))
+    out["inputs"] = _dim_records(allocation, "input")
+    out["requirements"] = _dim_records(allocation, "requirement")
+    return out
+
+
+def allocation_rich_table(allocation: xr.Dataset) -> Any:
+    """The spec sheet as a rich table for the terminal."""
+    from rich.table import Table as RichTable
+
+    currency = str(allocation.attrs.get("currency", ""))
+    title = "Spec sheet: " + (
+        f"total cost {_money(float(allocation.attrs.get('total_cost', math.nan)), currency)}"
+        if bool(allocation.attrs.get("feasible", False))
+        else "no allocation meets every requirement"
+    )
+    table = RichTable(title=title)
+    for i, column in enumerate(
+        ["Input", "Present", "Required", "Headroom", "Tier", "Cost", "Set by"]
+    ):
+        table.add_column(column, justify="right" if i in (1, 2, 3, 5) else "left")
+    for row in spec_rows(allocation):
+        table.add_row(*row)
+    return table
 
 
 def spec_section(datasets: Mapping[str, xr.Dataset], study: Mapping[str, Any]) -> Section | None:
