@@ -1,0 +1,556 @@
+"""Monte Carlo propagation of distributions through a model, and its summary.
+
+Notes
+-----
+Coverage intervals follow JCGM 101:2008, section 7.7: with the M output
+values sorted, ``q = pM`` (rounded to the nearest integer); the
+probabilistically symmetric interval is ``[y_(r), y_(r+q)]`` with
+``r = (M - q)/2`` (rounded up to an integer when it is not); the shortest is
+the ``[y_(r), y_(r+q)]`` of least width over ``r = 1 .. M - q``.
+The adaptive procedure is that of JCGM 101:2008, section 7.9.
+
+References
+----------
+JCGM 101:2008, "Evaluation of measurement data - Supplement 1 to the GUM -
+Propagation of distributions using a Monte Carlo method".
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from collections.abc import Callable, Mapping, Sequence
+from importlib import metadata
+from typing import Any
+
+import numpy as np
+import xarray as xr
+from numpy.typing import ArrayLike
+
+from trapbudget.models.protocol import ModelError
+from trapbudget.sensitivity.errors import ScenarioError
+from trapbudget.sensitivity.protocol import as_model, evaluate_in_chunks, model_name
+from trapbudget.sensitivity.sampling import Method, is_distribution, sample_inputs
+
+__all__ = [
+    "ModelValidityWarning",
+    "coverage_interval",
+    "numerical_tolerance",
+    "propagate",
+    "propagate_adaptive",
+    "summarize",
+]
+
+
+class ModelValidityWarning(UserWarning):
+    """Some samples fell outside the model's region of validity."""
+
+
+def _version() -> str:
+    try:
+        return metadata.version("trapbudget")
+    except metadata.PackageNotFoundError:  # pragma: no cover - not installed
+        return "unknown"
+
+
+def _seed_attr(rng: Any) -> int | None:
+    if isinstance(rng, int | np.integer) and not isinstance(rng, bool):
+        return int(rng)
+    return None
+
+
+def _split_inputs(model: Any, inputs: Mapping[str, Any]):
+    uncertain: dict[str, Any] = {}
+    fixed: dict[str, float] = {}
+    for name, value in inputs.items():
+        if is_distribution(value):
+            uncertain[name] = value
+        else:
+            try:
+                fixed[name] = float(value)
+            except (TypeError, ValueError):
+                raise ScenarioError(
+                    f"input {name!r}: {value!r} is neither a frozen scipy.stats distribution "
+                    "nor a number",
+                    key=f"inputs.{name}",
+                ) from None
+    unknown = [name for name in inputs if name not in model.inputs]
+    if unknown:
+        raise ScenarioError(
+            f"model {model_name(model)} has no input {unknown[0]!r}; inputs are "
+            f"{', '.join(model.inputs)}",
+            key=f"inputs.{unknown[0]}",
+        )
+    return uncertain, fixed
+
+
+def _evaluate(model, columns, *, n_samples, chunk_size, progress):
+    try:
+        return evaluate_in_chunks(
+            model, columns, chunk_size=chunk_size, progress=progress, n_samples=n_samples
+        )
+    except ModelError as error:
+        raise ScenarioError(f"model {model_name(model)}: {error}") from error
+
+
+def _nominal_point(uncertain: Mapping[str, Any], nominal: Mapping[str, float] | None):
+    point = {name: float(dist.median()) for name, dist in uncertain.items()}
+    if nominal is not None:
+        point.update({k: float(v) for k, v in nominal.items() if k in uncertain})
+    return point
+
+
+def propagate(
+    model: Any,
+    inputs: Mapping[str, Any],
+    *,
+    n_samples: int,
+    method: Method = "sobol",
+    correlation: ArrayLike | None = None,
+    rng: Any = None,
+    outputs: Sequence[str] | None = None,
+    chunk_size: int = 65536,
+    progress: Callable[[int, int], None] | None = None,
+    nominal: Mapping[str, float] | None = None,
+    _stacklevel: int = 2,
+) -> xr.Dataset:
+    """Propagate input distributions through a model by Monte Carlo.
+
+    Parameters
+    ----------
+    model : model or callable
+        Model-protocol object or plain callable (see ``protocol.as_model``).
+    inputs : mapping name -> frozen scipy.stats distribution or float
+        Distributions are sampled (SI); floats are held fixed. Inputs not
+        given take the model's defaults.
+    n_samples : int
+        Number of samples M (a power of 2 for ``"sobol"``).
+    method : {"random", "latin", "sobol"}
+        Sample design (default scrambled Sobol').
+    correlation : array (d, d), optional
+        Gaussian-copula correlation in the order of the distribution-valued
+        entries of ``inputs``.
+    rng : seed or numpy.random.Generator, optional
+        Same seed, same numbers.
+    outputs : sequence of str, optional
+        Outputs to keep (default all; ``validity`` is always kept).
+    chunk_size : int
+        Samples per model call (bounded memory).
+    progress : callable(done, total), optional
+        Progress callback.
+    nominal : mapping name -> float, optional
+        Nominal input values (SI) at which the model is evaluated once for the
+        ``nominal_outputs`` attr; default the medians of the distributions.
+
+    Returns
+    -------
+    xarray.Dataset
+        Dim ``sample``; one variable per uncertain input (``role="input"``)
+        and per output (``role="output"``), ``validity`` (``role="validity"``)
+        when the model gives one; ``units`` and ``long_name`` on each. Attrs:
+        ``method``, ``n_samples``, ``seed``, ``model``, ``trapbudget_version``,
+        ``fixed_inputs`` (name -> SI value), ``nominal_inputs``,
+        ``nominal_outputs``, ``correlation`` (or None), and
+        ``validity_counts`` when the model reports validity.
+
+    Warns
+    -----
+    ModelValidityWarning
+        When some samples fall outside the model's region of validity.
+    """
+    model = as_model(model, input_names=inputs)
+    uncertain, fixed = _split_inputs(model, inputs)
+    columns = sample_inputs(
+        uncertain, n_samples=n_samples, method=method, correlation=correlation, rng=rng
+    )
+    columns_all = {**columns, **{k: np.full(int(n_samples), v) for k, v in fixed.items()}}
+    results = _evaluate(
+        model, columns_all, n_samples=n_samples, chunk_size=chunk_size, progress=progress
+    )
+    keep = list(results) if outputs is None else list(outputs)
+    missing = [name for name in keep if name not in results]
+    if missing:
+        raise ScenarioError(
+            f"model {model_name(model)} has no output {missing[0]!r}; outputs are "
+            f"{', '.join(results)}",
+            key="outputs.names",
+        )
+    if "validity" in results and "validity" not in keep:
+        keep.append("validity")
+
+    point = {**_nominal_point(uncertain, nominal), **fixed}
+    nominal_results = _evaluate(
+        model,
+        {k: np.array([v]) for k, v in point.items()},
+        n_samples=1,
+        chunk_size=1,
+        progress=None,
+    )
+    data_vars: dict[str, xr.DataArray] = {}
+    for name, values in columns.items():
+        spec = model.inputs[name]
+        data_vars[name] = xr.DataArray(
+            values,
+            dims="sample",
+            attrs={"units": spec.unit, "long_name": spec.description, "role": "input"},
+        )
+    for name in keep:
+        spec = model.outputs.get(name)
+        role = "validity" if name == "validity" else "output"
+        data_vars[name] = xr.DataArray(
+            results[name],
+            dims="sample",
+            attrs={
+                "units": spec.unit if spec is not None else "",
+                "long_name": spec.description if spec is not None else name,
+                "role": role,
+            },
+        )
+    attrs: dict[str, Any] = {
+        "method": method,
+        "n_samples": int(n_samples),
+        "seed": _seed_attr(rng),
+        "model": model_name(model),
+        "trapbudget_version": _version(),
+        "fixed_inputs": dict(fixed),
+        "nominal_inputs": point,
+        "nominal_outputs": {
+            name: float(np.asarray(nominal_results[name]).ravel()[0])
+            for name in keep
+            if name != "validity"
+        },
+        "correlation": None if correlation is None else np.asarray(correlation).tolist(),
+    }
+    ds = xr.Dataset(data_vars, coords={"sample": np.arange(int(n_samples))}, attrs=attrs)
+    if "validity" in results:
+        _report_validity(ds, model, stacklevel=_stacklevel + 1)
+    return ds
+
+
+def _report_validity(ds: xr.Dataset, model: Any, *, stacklevel: int) -> None:
+    mask = np.asarray(ds["validity"].values).astype(np.int64)
+    flags = getattr(model, "validity_flags", None)
+    counts: dict[str, int] = {}
+    if flags is not None:
+        for flag in flags:
+            value = int(flag)
+            if value:
+                counts[flag.name or str(value)] = int(np.count_nonzero(mask & value))
+    else:
+        counts["invalid"] = int(np.count_nonzero(mask))
+    n_invalid = int(np.count_nonzero(mask))
+    ds.attrs["validity_counts"] = counts
+    ds.attrs["invalid_fraction"] = n_invalid / mask.size
+    if n_invalid:
+        reasons = ", ".join(
+            f"{name} {count} ({100.0 * count / mask.size:.3g} %)"
+            for name, count in counts.items()
+            if count
+        )
+        warnings.warn(
+            f"{100.0 * n_invalid / mask.size:.3g} % of {mask.size} samples fell outside the "
+            f"validity of model {model_name(model)}: {reasons}",
+            ModelValidityWarning,
+            stacklevel=stacklevel,
+        )
+
+
+def coverage_interval(
+    values: ArrayLike, *, confidence_level: float = 0.95, shortest: bool = False
+) -> tuple[float, float]:
+    """Coverage interval from Monte Carlo values (JCGM 101:2008, 7.7).
+
+    Parameters
+    ----------
+    values : array
+        Output values (NaNs are ignored).
+    confidence_level : float
+        Coverage probability p.
+    shortest : bool
+        Shortest interval instead of the probabilistically symmetric one.
+
+    Returns
+    -------
+    (low, high) : tuple of float
+    """
+    if not 0 < confidence_level < 1:
+        raise ValueError(f"confidence_level must lie in (0, 1), got {confidence_level}")
+    y = np.sort(np.asarray(values, dtype=float).ravel())
+    y = y[np.isfinite(y)]
+    m = y.size
+    if m == 0:
+        return math.nan, math.nan
+    pm = confidence_level * m
+    q = int(pm) if float(pm).is_integer() else math.floor(pm + 0.5)
+    q = min(max(q, 0), m - 1)
+    if shortest:
+        widths = y[q:] - y[: m - q]
+        r = int(np.argmin(widths))
+        return float(y[r]), float(y[r + q])
+    half = (m - q) / 2
+    r = int(half) if float(half).is_integer() else math.floor((m - q + 1) / 2)
+    r = min(max(r, 1), m - q)
+    return float(y[r - 1]), float(y[r + q - 1])
+
+
+def _output_names(samples: xr.Dataset, outputs: Sequence[str] | None) -> list[str]:
+    if outputs is not None:
+        missing = [o for o in outputs if o not in samples]
+        if missing:
+            raise ScenarioError(
+                f"no output {missing[0]!r} in the samples; outputs are "
+                f"{', '.join(_output_names(samples, None))}",
+                key="outputs.names",
+            )
+        return list(outputs)
+    return [name for name, var in samples.data_vars.items() if var.attrs.get("role") == "output"]
+
+
+def summarize(
+    samples: xr.Dataset,
+    *,
+    outputs: Sequence[str] | None = None,
+    confidence_level: float = 0.95,
+    nominal: Mapping[str, float] | None = None,
+) -> xr.Dataset:
+    """Statistics and coverage intervals of the output samples.
+
+    Parameters
+    ----------
+    samples : xarray.Dataset
+        From :func:`propagate`.
+    outputs : sequence of str, optional
+        Default every variable with ``role="output"``.
+    confidence_level : float
+        Coverage probability p of the intervals.
+    nominal : mapping output -> float, optional
+        Output at the nominal inputs; default ``samples.attrs["nominal_outputs"]``.
+
+    Returns
+    -------
+    xarray.Dataset
+        Dim ``output``: ``mean``, ``std`` (ddof = 1), ``median``,
+        ``interval_low``/``interval_high`` (probabilistically symmetric),
+        ``shortest_low``/``shortest_high``, ``nominal``, ``relative_std``
+        (std / |mean|), ``n_finite``; coordinate ``units`` along ``output`` and
+        attrs ``units_<output>``, ``confidence_level``, ``n_samples``.
+    """
+    names = _output_names(samples, outputs)
+    if nominal is None:
+        nominal = samples.attrs.get("nominal_outputs") or {}
+    columns: dict[str, list[float]] = {
+        key: []
+        for key in (
+            "mean",
+            "std",
+            "median",
+            "interval_low",
+            "interval_high",
+            "shortest_low",
+            "shortest_high",
+            "nominal",
+            "relative_std",
+            "n_finite",
+        )
+    }
+    units = []
+    for name in names:
+        y = np.asarray(samples[name].values, dtype=float)
+        y = y[np.isfinite(y)]
+        mean = float(np.mean(y)) if y.size else math.nan
+        std = float(np.std(y, ddof=1)) if y.size > 1 else math.nan
+        low, high = coverage_interval(y, confidence_level=confidence_level)
+        slow, shigh = coverage_interval(y, confidence_level=confidence_level, shortest=True)
+        columns["mean"].append(mean)
+        columns["std"].append(std)
+        columns["median"].append(float(np.median(y)) if y.size else math.nan)
+        columns["interval_low"].append(low)
+        columns["interval_high"].append(high)
+        columns["shortest_low"].append(slow)
+        columns["shortest_high"].append(shigh)
+        columns["nominal"].append(float(nominal.get(name, math.nan)))
+        columns["relative_std"].append(std / abs(mean) if mean else math.nan)
+        columns["n_finite"].append(y.size)
+        units.append(samples[name].attrs.get("units", ""))
+    long_names = {
+        "mean": "mean",
+        "std": "standard deviation (standard uncertainty)",
+        "median": "median",
+        "interval_low": "low end of the probabilistically symmetric coverage interval",
+        "interval_high": "high end of the probabilistically symmetric coverage interval",
+        "shortest_low": "low end of the shortest coverage interval",
+        "shortest_high": "high end of the shortest coverage interval",
+        "nominal": "output at the nominal inputs",
+        "relative_std": "standard deviation / |mean|",
+        "n_finite": "number of finite samples",
+    }
+    data_vars = {
+        key: xr.DataArray(
+            np.asarray(values, dtype=int if key == "n_finite" else float),
+            dims="output",
+            attrs={"long_name": long_names[key]},
+        )
+        for key, values in columns.items()
+    }
+    ds = xr.Dataset(
+        data_vars,
+        coords={"output": names, "units": ("output", units)},
+        attrs={
+            "confidence_level": float(confidence_level),
+            "n_samples": int(samples.sizes.get("sample", 0)),
+            **{f"units_{n}": u for n, u in zip(names, units, strict=True)},
+        },
+    )
+    for key in ("method", "seed", "model"):
+        if key in samples.attrs:
+            ds.attrs[key] = samples.attrs[key]
+    return ds
+
+
+def numerical_tolerance(value: float, *, significant_digits: int = 2) -> float:
+    """Numerical tolerance ``delta = 0.5 * 10^l`` of a value written ``c * 10^l``.
+
+    ``c`` is an integer with ``significant_digits`` digits (JCGM 101:2008, 7.9.2).
+    """
+    value = abs(float(value))
+    if value == 0 or not math.isfinite(value):
+        return math.nan
+    exponent = math.floor(math.log10(value)) - (int(significant_digits) - 1)
+    # rounding may carry into one more digit (e.g. 0.0996 with 2 digits -> 0.10)
+    if round(value / 10.0**exponent) >= 10 ** int(significant_digits):
+        exponent += 1
+    return 0.5 * 10.0**exponent
+
+
+def _batch_statistics(ds: xr.Dataset, names: Sequence[str], confidence_level: float):
+    out = np.empty((len(names), 4))
+    for i, name in enumerate(names):
+        y = np.asarray(ds[name].values, dtype=float)
+        y = y[np.isfinite(y)]
+        low, high = coverage_interval(y, confidence_level=confidence_level)
+        out[i] = (np.mean(y), np.std(y, ddof=1), low, high)
+    return out
+
+
+def propagate_adaptive(
+    model: Any,
+    inputs: Mapping[str, Any],
+    *,
+    confidence_level: float = 0.95,
+    significant_digits: int = 2,
+    max_trials: int = 2_000_000,
+    rng: Any = None,
+    method: Method = "random",
+    correlation: ArrayLike | None = None,
+    outputs: Sequence[str] | None = None,
+    chunk_size: int = 65536,
+    progress: Callable[[int, int], None] | None = None,
+    nominal: Mapping[str, float] | None = None,
+) -> xr.Dataset:
+    """Adaptive Monte Carlo propagation (JCGM 101:2008, section 7.9).
+
+    Batches of ``M = max(ceil(100 / (1 - p)), 10^4)`` trials (the next power
+    of two for ``"sobol"``, each batch an independent scramble) are drawn
+    until, for every output, twice the standard deviation of the batch means
+    of y, u(y) and both coverage-interval ends is below the numerical
+    tolerance ``delta = 0.5 * 10^l`` of u(y) written with
+    ``significant_digits`` significant digits.
+
+    Parameters
+    ----------
+    model, inputs, method, correlation, outputs, chunk_size, nominal
+        As for :func:`propagate`.
+    confidence_level : float
+        Coverage probability p.
+    significant_digits : int
+        n_dig, significant digits of u(y) to stabilise.
+    max_trials : int
+        Stop (unconverged) after this many trials in all.
+    rng : seed or Generator
+        One child stream per batch is spawned from it.
+    progress : callable(done, total), optional
+        Called after each batch with (trials so far, max_trials).
+
+    Returns
+    -------
+    xarray.Dataset
+        All samples, as from :func:`propagate`, with attrs ``converged``
+        (bool), ``n_batches``, ``batch_size``, ``numerical_tolerance`` and
+        ``achieved_tolerance`` (output -> [mean, std, low, high], 2 s of the
+        batch means), ``confidence_level`` and ``significant_digits``.
+    """
+    if not 0 < confidence_level < 1:
+        raise ValueError(f"confidence_level must lie in (0, 1), got {confidence_level}")
+    batch = max(math.ceil(100.0 / (1.0 - confidence_level)), 10_000)
+    if method == "sobol":
+        batch = 1 << (batch - 1).bit_length()
+    parent = np.random.default_rng(rng)
+    batches: list[xr.Dataset] = []
+    stats: list[np.ndarray] = []
+    names: list[str] = []
+    converged = False
+    delta: dict[str, float] = {}
+    achieved: dict[str, list[float]] = {}
+    while (len(batches) + 1) * batch <= max(max_trials, batch):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", ModelValidityWarning)
+            ds = propagate(
+                model,
+                inputs,
+                n_samples=batch,
+                method=method,
+                correlation=correlation,
+                rng=parent.spawn(1)[0],
+                outputs=outputs,
+                chunk_size=chunk_size,
+                nominal=nominal,
+            )
+        if not names:
+            names = _output_names(ds, outputs)
+        batches.append(ds)
+        stats.append(_batch_statistics(ds, names, confidence_level))
+        if progress is not None:
+            progress(len(batches) * batch, max_trials)
+        if len(batches) < 2:
+            continue
+        table = np.stack(stats)  # (h, outputs, 4)
+        h = table.shape[0]
+        spread = 2.0 * table.std(axis=0, ddof=1) / math.sqrt(h)
+        done = True
+        for i, name in enumerate(names):
+            y = np.concatenate([np.asarray(b[name].values, dtype=float) for b in batches])
+            u = float(np.std(y[np.isfinite(y)], ddof=1))
+            tol = numerical_tolerance(u, significant_digits=significant_digits)
+            delta[name] = tol
+            achieved[name] = [float(v) for v in spread[i]]
+            if math.isfinite(tol) and not np.all(spread[i] < tol):
+                done = False
+        if done:
+            converged = True
+            break
+    result = xr.concat(batches, dim="sample", combine_attrs="override")
+    result = result.assign_coords(sample=np.arange(result.sizes["sample"]))
+    n_total = int(result.sizes["sample"])
+    result.attrs.update(
+        {
+            "n_samples": n_total,
+            "seed": _seed_attr(rng),
+            "converged": bool(converged),
+            "n_batches": len(batches),
+            "batch_size": int(batch),
+            "numerical_tolerance": delta,
+            "achieved_tolerance": achieved,
+            "confidence_level": float(confidence_level),
+            "significant_digits": int(significant_digits),
+        }
+    )
+    if "validity" in result:
+        _report_validity(result, as_model(model), stacklevel=3)
+    if not converged:
+        warnings.warn(
+            f"adaptive Monte Carlo did not converge within max_trials={max_trials}; "
+            "raise max_trials or lower significant_digits",
+            RuntimeWarning,
+            stacklevel=2,
+        )
+    return result

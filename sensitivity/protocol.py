@@ -1,0 +1,257 @@
+"""The engine's side of the model protocol: checking, wrapping, binding, chunked evaluation.
+
+A model is any object with ``inputs`` (name -> InputSpec), ``outputs``
+(name -> OutputSpec) and ``evaluate(values) -> dict``; a plain callable
+``f(mapping) -> mapping`` is wrapped by :func:`as_model`.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from collections.abc import Callable, Iterable, Mapping
+from typing import Any, Protocol, runtime_checkable
+
+import numpy as np
+from numpy.typing import ArrayLike
+
+from trapbudget.models.protocol import InputSpec, ModelError, OutputSpec
+
+__all__ = [
+    "BoundModel",
+    "CallableModel",
+    "Model",
+    "as_model",
+    "evaluate_in_chunks",
+    "model_name",
+]
+
+
+@runtime_checkable
+class Model(Protocol):
+    """What the engine needs from a model."""
+
+    inputs: Mapping[str, InputSpec]
+    outputs: Mapping[str, OutputSpec]
+
+    def evaluate(self, values: Mapping[str, ArrayLike]) -> dict[str, np.ndarray]: ...
+
+
+class CallableModel:
+    """A plain callable ``f(mapping) -> mapping`` seen as a model.
+
+    Parameters
+    ----------
+    function : callable
+        Takes a mapping name -> array, returns a mapping name -> array.
+    input_names : iterable of str, optional
+        Names of the inputs (from the scenario or the ``inputs`` of
+        ``propagate``); they have no default and an unbounded range.
+    units : mapping name -> str, optional
+        SI units of inputs and outputs, for result attrs.
+
+    Notes
+    -----
+    Outputs are discovered on the first call of :meth:`evaluate`.
+    """
+
+    def __init__(
+        self,
+        function: Callable[[Mapping[str, Any]], Mapping[str, Any]],
+        input_names: Iterable[str] = (),
+        *,
+        units: Mapping[str, str] | None = None,
+    ) -> None:
+        self.function = function
+        self.units = dict(units or {})
+        self.inputs: dict[str, InputSpec] = {}
+        self.add_inputs(input_names)
+        self.outputs: dict[str, OutputSpec] = {}
+
+    def add_inputs(self, names: Iterable[str]) -> None:
+        """Declare more input names (a callable accepts whatever it is given)."""
+        for name in names:
+            if name not in self.inputs:
+                self.inputs[name] = InputSpec(
+                    name,
+                    self.units.get(name, ""),
+                    math.nan,
+                    -math.inf,
+                    math.inf,
+                    "input of a plain callable",
+                )
+
+    def evaluate(self, values: Mapping[str, ArrayLike]) -> dict[str, np.ndarray]:
+        result = self.function(dict(values))
+        if not isinstance(result, Mapping):
+            raise ModelError(
+                f"model callable {getattr(self.function, '__name__', self.function)!r} returned "
+                f"{type(result).__name__}, not a mapping name -> array"
+            )
+        out = {str(k): np.asarray(v) for k, v in result.items()}
+        for name in out:
+            if name not in self.outputs:
+                self.outputs[name] = OutputSpec(name, self.units.get(name, ""), "callable output")
+        return out
+
+
+def as_model(obj: Any, *, input_names: Iterable[str] = (), units=None) -> Any:
+    """Return ``obj`` as a model-protocol object.
+
+    Parameters
+    ----------
+    obj : model or callable
+        An object with ``inputs``, ``outputs`` and ``evaluate`` is checked and
+        returned unchanged; a plain callable is wrapped in :class:`CallableModel`.
+    input_names : iterable of str
+        For a callable: its input names.
+    units : mapping name -> str, optional
+        For a callable: SI units of inputs and outputs.
+
+    Raises
+    ------
+    ModelError
+        If ``obj`` is neither, or its ``inputs``/``outputs`` are not mappings
+        of specs.
+    """
+    if all(hasattr(obj, attr) for attr in ("inputs", "outputs", "evaluate")):
+        for attr in ("inputs", "outputs"):
+            if not isinstance(getattr(obj, attr), Mapping):
+                raise ModelError(
+                    f"model {model_name(obj)}: .{attr} must be a mapping name -> spec, got "
+                    f"{type(getattr(obj, attr)).__name__}"
+                )
+        if not callable(obj.evaluate):
+            raise ModelError(f"model {model_name(obj)}: .evaluate is not callable")
+        if isinstance(obj, CallableModel):
+            obj.add_inputs(input_names)
+        return obj
+    if callable(obj):
+        return CallableModel(obj, input_names, units=units)
+    raise ModelError(
+        f"{type(obj).__name__} is not a model: give an object with inputs, outputs and "
+        "evaluate, or a callable f(mapping) -> mapping"
+    )
+
+
+def model_name(model: Any) -> str:
+    """A short name for a model (class name; the wrapped one for bound models)."""
+    base = getattr(model, "base", None)
+    if base is not None and isinstance(model, BoundModel):
+        return model_name(base)
+    if isinstance(model, CallableModel):
+        return getattr(model.function, "__name__", "callable")
+    return type(model).__name__
+
+
+class BoundModel:
+    """A model whose defaults are replaced by fixed values (a scenario's fixed inputs).
+
+    Parameters
+    ----------
+    model : model
+        The wrapped model (``.base``).
+    fixed : mapping name -> float
+        SI values that replace the defaults of these inputs.
+
+    Notes
+    -----
+    Same ``inputs`` (with new defaults), ``outputs`` and ``evaluate`` as the
+    base; values given to :meth:`evaluate` still override. ``.nominal`` maps
+    every input to its (new) default. Other attributes (``validity_flags``,
+    ...) are those of the base model.
+    """
+
+    def __init__(self, model: Any, fixed: Mapping[str, float]) -> None:
+        base = as_model(model, input_names=fixed)
+        self.base = base
+        self.fixed = {str(k): float(v) for k, v in fixed.items()}
+        unknown = [k for k in self.fixed if k not in base.inputs]
+        if unknown:
+            raise ModelError(
+                f"model {model_name(base)}: unknown input {unknown[0]!r}; "
+                f"inputs are {', '.join(base.inputs)}"
+            )
+        self.inputs = {
+            name: dataclasses.replace(spec, default=self.fixed[name])
+            if name in self.fixed and spec.low <= self.fixed[name] <= spec.high
+            else spec
+            for name, spec in base.inputs.items()
+        }
+
+    @property
+    def outputs(self) -> Mapping[str, OutputSpec]:
+        return self.base.outputs
+
+    @property
+    def nominal(self) -> dict[str, float]:
+        """Every input's value when not given: fixed value or the base default."""
+        out = {name: float(spec.default) for name, spec in self.base.inputs.items()}
+        out.update(self.fixed)
+        return out
+
+    def evaluate(self, values: Mapping[str, ArrayLike]) -> dict[str, np.ndarray]:
+        return self.base.evaluate({**self.fixed, **values})
+
+    def __getattr__(self, name: str) -> Any:
+        if name == "base":  # not yet set during unpickling
+            raise AttributeError(name)
+        return getattr(self.base, name)
+
+    def __repr__(self) -> str:
+        return f"BoundModel({model_name(self.base)}, fixed={self.fixed!r})"
+
+
+def evaluate_in_chunks(
+    model: Any,
+    columns: Mapping[str, np.ndarray],
+    *,
+    chunk_size: int = 65536,
+    progress: Callable[[int, int], None] | None = None,
+    n_samples: int | None = None,
+) -> dict[str, np.ndarray]:
+    """Evaluate ``model`` on 1-D sample columns in chunks of bounded memory.
+
+    Parameters
+    ----------
+    model : model
+        Model-protocol object (see :func:`as_model`).
+    columns : mapping name -> 1-D array
+        One column per varied input, all of the same length n.
+    chunk_size : int
+        Samples per model call (default 65536).
+    progress : callable(done, total), optional
+        Called after each chunk.
+    n_samples : int, optional
+        Number of samples when ``columns`` is empty (every input fixed).
+
+    Returns
+    -------
+    dict name -> 1-D array
+        Each output over the n samples (scalars broadcast to n).
+    """
+    model = as_model(model, input_names=columns)
+    arrays = {name: np.asarray(col) for name, col in columns.items()}
+    lengths = {a.shape[0] for a in arrays.values() if a.ndim >= 1}
+    if any(a.ndim != 1 for a in arrays.values()) or len(lengths) > 1:
+        raise ValueError("evaluate_in_chunks: columns must be 1-D arrays of one length")
+    total = lengths.pop() if lengths else int(n_samples or 0)
+    if total == 0:
+        raise ValueError("evaluate_in_chunks: no samples (give columns or n_samples)")
+    if chunk_size < 1:
+        raise ValueError(f"chunk_size must be >= 1, got {chunk_size}")
+    pieces: dict[str, list[np.ndarray]] = {}
+    for start in range(0, total, chunk_size):
+        stop = min(start + chunk_size, total)
+        chunk = {name: a[start:stop] for name, a in arrays.items()}
+        if not chunk:
+            chunk = {}
+        result = model.evaluate(chunk)
+        for name, value in result.items():
+            value = np.asarray(value)
+            if value.ndim == 0 or value.shape[0] != stop - start:
+                value = np.broadcast_to(value, (stop - start, *value.shape[value.ndim > 0 :]))
+            pieces.setdefault(name, []).append(np.array(value))
+        if progress is not None:
+            progress(stop, total)
+    return {name: np.concatenate(parts) for name, parts in pieces.items()}

@@ -1,0 +1,256 @@
+"""Sample designs on the unit hypercube and their transformation to input distributions.
+
+Notes
+-----
+Correlated inputs use a Gaussian copula: unit values become normal scores
+``z = Phi^-1(u)``, the scores are correlated with the Cholesky factor ``L`` of
+the correlation matrix ``R`` (``z' = z L^T``), mapped back through ``Phi`` and
+then through each marginal's ppf. The coefficients of ``R`` are therefore the
+Pearson correlations of the normal scores, not of the inputs themselves (they
+coincide for normal marginals). A Spearman rank correlation ``rho_s`` converts
+to the copula coefficient by ``2 sin(pi rho_s / 6)``
+(:func:`rank_correlation_to_copula`; Kruskal 1958).
+
+References
+----------
+I. M. Sobol', "On the distribution of points in a cube and the approximate
+evaluation of integrals", USSR Comput. Math. Math. Phys. 7, 86 (1967);
+M. D. McKay, R. J. Beckman and W. J. Conover, "A comparison of three methods
+for selecting values of input variables", Technometrics 21, 239 (1979);
+W. H. Kruskal, "Ordinal measures of association", J. Am. Stat. Assoc. 53, 814 (1958).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from typing import Any, Literal
+
+import numpy as np
+from numpy.typing import ArrayLike
+from scipy import stats
+from scipy.stats import qmc
+
+from trapbudget.sensitivity.errors import ScenarioError
+
+__all__ = [
+    "METHODS",
+    "Method",
+    "check_correlation",
+    "is_distribution",
+    "is_power_of_two",
+    "rank_correlation_to_copula",
+    "sample_inputs",
+    "transform",
+    "unit_design",
+]
+
+Method = Literal["random", "latin", "sobol"]
+METHODS: tuple[str, ...] = ("random", "latin", "sobol")
+
+# Unit values are kept this far from 0 and 1 so that unbounded ppfs stay finite.
+_EDGE = float(np.finfo(float).eps)
+
+
+def is_power_of_two(n: int) -> bool:
+    """True for n = 1, 2, 4, 8, ..."""
+    return n >= 1 and (n & (n - 1)) == 0
+
+
+def _next_power_of_two(n: int) -> int:
+    return 1 << max(0, int(n - 1).bit_length())
+
+
+def unit_design(
+    n_samples: int,
+    dimension: int,
+    *,
+    method: Method = "sobol",
+    rng: Any = None,
+) -> np.ndarray:
+    """Sample points in the open unit hypercube (0, 1)^d.
+
+    Parameters
+    ----------
+    n_samples : int
+        Number of points n (a power of 2 for ``"sobol"``).
+    dimension : int
+        Dimension d.
+    method : {"random", "latin", "sobol"}
+        Pseudo-random, Latin hypercube (``scipy.stats.qmc.LatinHypercube``) or
+        scrambled Sobol' (``scipy.stats.qmc.Sobol``).
+    rng : seed or numpy.random.Generator, optional
+        Anything ``numpy.random.default_rng`` accepts.
+
+    Returns
+    -------
+    numpy.ndarray, shape (n, d)
+        Values clipped to [eps, 1 - eps].
+
+    Raises
+    ------
+    ValueError
+        Unknown method, n < 1, d < 0, or n not a power of 2 for Sobol'.
+    """
+    n_samples = int(n_samples)
+    dimension = int(dimension)
+    if method not in METHODS:
+        raise ValueError(f"method={method!r} is not known; use one of {', '.join(METHODS)}")
+    if n_samples < 1:
+        raise ValueError(f"n_samples must be >= 1, got {n_samples}")
+    if dimension < 0:
+        raise ValueError(f"dimension must be >= 0, got {dimension}")
+    generator = np.random.default_rng(rng)
+    if dimension == 0:
+        return np.empty((n_samples, 0))
+    if method == "random":
+        points = generator.random((n_samples, dimension))
+    elif method == "latin":
+        points = qmc.LatinHypercube(d=dimension, rng=generator).random(n_samples)
+    else:
+        if not is_power_of_two(n_samples):
+            raise ValueError(
+                f"method='sobol' requires n_samples to be a power of 2; got {n_samples}, "
+                f"use {_next_power_of_two(n_samples)}"
+            )
+        engine = qmc.Sobol(d=dimension, scramble=True, rng=generator)
+        points = engine.random_base2(int(n_samples).bit_length() - 1)
+    return np.clip(points, _EDGE, 1.0 - _EDGE)
+
+
+def rank_correlation_to_copula(spearman: ArrayLike) -> np.ndarray:
+    """Gaussian-copula coefficient from a Spearman rank correlation: ``2 sin(pi rho / 6)``.
+
+    References
+    ----------
+    W. H. Kruskal, J. Am. Stat. Assoc. 53, 814 (1958).
+    """
+    rho = np.asarray(spearman, dtype=float)
+    if np.any(np.abs(rho) > 1):
+        raise ValueError("rank correlations must lie in [-1, 1]")
+    return 2.0 * np.sin(np.pi * rho / 6.0)
+
+
+def check_correlation(
+    correlation: ArrayLike,
+    names: Sequence[str] | None = None,
+    *,
+    path: object | None = None,
+    key: str = "correlations",
+) -> np.ndarray:
+    """Check a correlation matrix and return it as a float array.
+
+    Raises
+    ------
+    ScenarioError
+        Not square of the right size, not symmetric, diagonal not 1,
+        coefficients outside [-1, 1], or not positive definite (the message
+        names the inputs that carry the offending combination).
+    """
+    matrix = np.asarray(correlation, dtype=float)
+    d = matrix.shape[0] if matrix.ndim == 2 else -1
+    labels = list(names) if names is not None else [f"#{i}" for i in range(max(d, 0))]
+    if matrix.ndim != 2 or matrix.shape[1] != d or (names is not None and d != len(labels)):
+        raise ScenarioError(
+            f"correlation matrix has shape {matrix.shape}; it must be {len(labels)} x "
+            f"{len(labels)} in the order of the uncertain inputs",
+            path=path,
+            key=key,
+        )
+    if not np.all(np.isfinite(matrix)) or not np.allclose(matrix, matrix.T, atol=1e-12):
+        raise ScenarioError("correlation matrix must be finite and symmetric", path=path, key=key)
+    if not np.allclose(np.diag(matrix), 1.0, atol=1e-12):
+        raise ScenarioError("correlation matrix must have 1 on the diagonal", path=path, key=key)
+    if np.any(np.abs(matrix) > 1.0):
+        i, j = np.unravel_index(np.argmax(np.abs(matrix)), matrix.shape)
+        raise ScenarioError(
+            f"coefficient {matrix[i, j]:g} between {labels[i]!r} and {labels[j]!r} lies outside "
+            "[-1, 1]",
+            path=path,
+            key=key,
+        )
+    eigenvalues, eigenvectors = np.linalg.eigh(matrix)
+    if eigenvalues[0] <= 1e-10:
+        weights = np.abs(eigenvectors[:, 0])
+        involved = [labels[i] for i in np.argsort(-weights) if weights[i] > 0.1]
+        raise ScenarioError(
+            f"correlation matrix is not positive definite (smallest eigenvalue "
+            f"{eigenvalues[0]:.3g}); the coefficients among {', '.join(map(repr, involved))} "
+            "contradict each other: weaken them",
+            path=path,
+            key=key,
+        )
+    return matrix
+
+
+def transform(
+    unit: ArrayLike,
+    distributions: Sequence[Any],
+    *,
+    correlation: ArrayLike | None = None,
+) -> np.ndarray:
+    """Map unit-hypercube points to samples of the given marginals.
+
+    Parameters
+    ----------
+    unit : array, shape (n, d)
+        Points in (0, 1)^d, e.g. from :func:`unit_design`.
+    distributions : sequence of d frozen scipy.stats distributions
+        The marginals, in column order.
+    correlation : array (d, d), optional
+        Gaussian-copula correlation of the normal scores (see module notes).
+
+    Returns
+    -------
+    numpy.ndarray, shape (n, d)
+    """
+    points = np.clip(np.asarray(unit, dtype=float), _EDGE, 1.0 - _EDGE)
+    if points.ndim != 2 or points.shape[1] != len(distributions):
+        raise ValueError(
+            f"unit has shape {points.shape}; expected (n, {len(distributions)}) for "
+            f"{len(distributions)} distributions"
+        )
+    if correlation is not None and len(distributions) > 1:
+        matrix = check_correlation(correlation)
+        if not np.allclose(matrix, np.eye(matrix.shape[0])):
+            scores = stats.norm.ppf(points) @ np.linalg.cholesky(matrix).T
+            points = np.clip(stats.norm.cdf(scores), _EDGE, 1.0 - _EDGE)
+    out = np.empty_like(points)
+    for j, dist in enumerate(distributions):
+        out[:, j] = dist.ppf(points[:, j])
+    return out
+
+
+def sample_inputs(
+    inputs: Mapping[str, Any],
+    *,
+    n_samples: int,
+    method: Method = "sobol",
+    correlation: ArrayLike | None = None,
+    rng: Any = None,
+) -> dict[str, np.ndarray]:
+    """Draw n samples of the uncertain inputs.
+
+    Parameters
+    ----------
+    inputs : mapping name -> frozen distribution or float
+        Floats are fixed and not sampled (not in the result).
+    n_samples, method, rng
+        As for :func:`unit_design`.
+    correlation : array, optional
+        Copula correlation in the order of the distribution-valued inputs.
+
+    Returns
+    -------
+    dict name -> 1-D array of n samples, for the distribution-valued inputs.
+    """
+    uncertain = {name: dist for name, dist in inputs.items() if is_distribution(dist)}
+    points = unit_design(n_samples, len(uncertain), method=method, rng=rng)
+    if correlation is not None:
+        check_correlation(correlation, list(uncertain))
+    values = transform(points, list(uncertain.values()), correlation=correlation)
+    return {name: values[:, j] for j, name in enumerate(uncertain)}
+
+
+def is_distribution(value: Any) -> bool:
+    """True for a frozen scipy.stats distribution (anything with ppf and rvs)."""
+    return hasattr(value, "ppf") and hasattr(value, "rvs")

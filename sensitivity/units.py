@@ -1,0 +1,379 @@
+"""The one unit registry, and conversion of written quantities to SI floats.
+
+Scenario and data files carry a unit on every value; this module turns them
+into plain SI floats once, at the boundary, and formats SI floats back into a
+readable unit for reports.
+
+Conventions
+-----------
+- ``G`` and ``gauss`` are the SI-defined gauss, 1 G = 1e-4 T (pint's default
+  gauss belongs to the Gaussian CGS system and does not convert to tesla).
+- ``%`` and ``ppm`` are dimensionless (0.01 and 1e-6).
+- Temperatures written in ``degC`` (or ``degF``) are absolute temperatures when
+  they are values (``"22 degC"`` is 295.15 K) and differences when they are
+  tolerances (``"0.1 degC"`` as a tolerance is 0.1 K). A relative tolerance
+  (``"2 %"``) on a temperature written in an offset unit is ambiguous and is
+  rejected.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+import re
+from pathlib import Path
+
+import pint
+
+from trapbudget.sensitivity.errors import ScenarioError
+
+__all__ = [
+    "DISPLAY_UNITS",
+    "format_quantity",
+    "parse_quantity",
+    "parse_tolerance",
+    "parse_tolerance_text",
+    "ureg",
+]
+
+
+def _build_registry() -> pint.UnitRegistry:
+    folder = Path(pint.__file__).parent
+    text = (folder / "default_en.txt").read_text(encoding="utf-8")
+    replacements = {
+        "gauss = dyne / franklin = G": "gauss = 1e-4 * tesla = G = Gs",
+        "oersted = dyne / maxwell": "oersted = 1000 / (4 * pi) * ampere / meter",
+        "@import constants_en.txt": "",
+    }
+    for old, new in replacements.items():
+        if old not in text:  # pragma: no cover - depends on the pint release
+            raise ImportError(f"pint definitions changed: {old!r} not found")
+        text = text.replace(old, new)
+    registry = pint.UnitRegistry(None)
+    registry.load_definitions(str(folder / "constants_en.txt"))
+    registry.load_definitions(text.splitlines())
+    return registry
+
+
+ureg: pint.UnitRegistry = _build_registry()
+"""The project's single unit registry (SI gauss, see the module notes)."""
+
+_NUMBER = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
+_RELATIVE_UNITS = {"%": 1e-2, "percent": 1e-2, "ppm": 1e-6, "ppb": 1e-9, "permille": 1e-3}
+_OFFSET_TO_DELTA = {"degree_Celsius": "delta_degC", "degree_Fahrenheit": "delta_degF"}
+
+# Units an experimentalist writes, offered as suggestions for a misspelt unit.
+_COMMON_UNITS = (
+    "W mW uW nW kW m mm um nm cm km s ms us ns min h Hz kHz MHz GHz T mT uT G mG "
+    "T/m G/cm mT/m G/mm K mK uK nK degC delta_degC Pa mbar hPa torr mtorr bar atm "
+    "A mA kA V mV kg g u 1/s m/s m**3/s cm**3/s 1/m**3 1/cm**3 W/m**2 mW/cm**2 "
+    "1/(Pa*s) 1/(torr*s) sr rad mrad urad deg % ppm"
+).split()
+
+DISPLAY_UNITS: dict[str, str] = {
+    "W": "mW",
+    "Hz": "MHz",
+    "T/m": "G/cm",
+    "T": "G",
+    "Pa": "mbar",
+    "m": "mm",
+    "K": "auto",
+    "s": "auto",
+    "1/m**3": "1/cm**3",
+    "m**3/s": "cm**3/s",
+    "W/m**2": "mW/cm**2",
+}
+"""Preferred display unit for each SI unit; ``"auto"`` picks a prefix by size."""
+
+_AUTO_PREFIXES = {
+    "K": (("nK", 1e-9), ("uK", 1e-6), ("mK", 1e-3), ("K", 1.0)),
+    "s": (("us", 1e-6), ("ms", 1e-3), ("s", 1.0)),
+}
+
+
+def _si_unit(unit: str) -> pint.Unit:
+    return ureg.parse_units(unit) if unit not in ("", "1") else ureg.dimensionless
+
+
+def _suggest(bad: str, unit: str) -> str:
+    """Return ``"; did you mean 'mW'?"`` for a misspelt unit, preferring matching dimensions."""
+    try:
+        target = _si_unit(unit).dimensionality
+    except (pint.errors.PintError, ValueError, AttributeError, TypeError):
+        target = None
+    compatible = []
+    for name in _COMMON_UNITS:
+        try:
+            if target is not None and ureg.parse_units(name).dimensionality == target:
+                compatible.append(name)
+        except (pint.errors.PintError, ValueError, AttributeError, TypeError):
+            continue
+    for pool, cutoff in ((compatible, 0.4), (list(_COMMON_UNITS), 0.6)):
+        matches = difflib.get_close_matches(bad, pool, n=3, cutoff=cutoff)
+        if matches:
+            return "; did you mean " + " or ".join(repr(m) for m in matches) + "?"
+    if compatible:
+        return f"; write it in e.g. {compatible[0]!r}"
+    return ""
+
+
+def _split(text: str | float | int, *, unit: str, where: str, path: object | None):
+    """Split a written quantity into (magnitude, unit text)."""
+    if isinstance(text, bool):
+        raise ScenarioError(
+            f"{text!r} is not a quantity; write e.g. '1 {unit}'", key=where, path=path
+        )
+    if isinstance(text, int | float):
+        return float(text), ""
+    if not isinstance(text, str):
+        raise ScenarioError(
+            f"{text!r} is not a quantity; write a string such as '1 {unit or ''}'".rstrip(),
+            path=path,
+            key=where,
+        )
+    match = _NUMBER.match(text.replace("°C", "degC").replace("°F", "degF").replace("µ", "u"))
+    if match is None:
+        raise ScenarioError(
+            f"{text!r} is not a number with a unit; write e.g. '1 {unit}'", path=path, key=where
+        )
+    return float(match.group(1)), match.group(2)
+
+
+def _units_of(unit_text: str, *, text: object, unit: str, where: str, path: object | None):
+    try:
+        return ureg.parse_units(unit_text)
+    except pint.errors.UndefinedUnitError as error:
+        names = getattr(error, "unit_names", None) or (unit_text,)
+        bad = names[0] if isinstance(names, list | tuple) else str(names)
+        raise ScenarioError(
+            f"{text!r}: {bad!r} is not a unit{_suggest(unit_text, unit)}", path=path, key=where
+        ) from None
+    except (pint.errors.PintError, ValueError, AttributeError, TypeError, SyntaxError):
+        raise ScenarioError(
+            f"{text!r}: {unit_text!r} is not a unit{_suggest(unit_text, unit)}",
+            path=path,
+            key=where,
+        ) from None
+
+
+def _convert(magnitude: float, units: pint.Unit, *, text, unit, where, path) -> float:
+    target = _si_unit(unit)
+    try:
+        return float(ureg.Quantity(magnitude, units).to(target).magnitude)
+    except pint.errors.DimensionalityError:
+        want = unit or "dimensionless"
+        raise ScenarioError(
+            f"{text!r} is not in units of {want!r}; write it in e.g. {_example(unit)!r}",
+            path=path,
+            key=where,
+        ) from None
+
+
+def _example(unit: str) -> str:
+    if unit in ("", "1"):
+        return "0.5"
+    display = DISPLAY_UNITS.get(unit, unit)
+    if display == "auto":
+        display = unit
+    return f"1 {display}"
+
+
+def parse_quantity(
+    text: str | float | int, *, unit: str, where: str, path: object | None = None
+) -> float:
+    """Convert a written quantity to a float in the SI unit ``unit``.
+
+    Parameters
+    ----------
+    text : str or float or int
+        The value as written, e.g. ``"8 mW"``, ``"-12 MHz"``, ``"22 degC"``. A
+        bare number is accepted only for a dimensionless ``unit``.
+    unit : str
+        The SI unit of the result as pint spells it (``""`` for dimensionless).
+    where : str
+        Key of the value, for error messages (e.g. ``"inputs.beam_power.nominal"``).
+    path : path-like, optional
+        File the value came from, for error messages.
+
+    Returns
+    -------
+    float
+        The value in ``unit``.
+
+    Raises
+    ------
+    ScenarioError
+        Unknown unit (with close matches), wrong dimension, or a bare number
+        for a dimensional quantity.
+    """
+    magnitude, unit_text = _split(text, unit=unit, where=where, path=path)
+    if not unit_text:
+        if unit in ("", "1"):
+            return magnitude
+        raise ScenarioError(
+            f"{text!r} has no unit; write it with a unit, e.g. '{_fmt_num(magnitude)} "
+            f"{_example(unit).split(' ', 1)[1]}'",
+            path=path,
+            key=where,
+        )
+    units = _units_of(unit_text, text=text, unit=unit, where=where, path=path)
+    return _convert(magnitude, units, text=text, unit=unit, where=where, path=path)
+
+
+def _fmt_num(value: float) -> str:
+    return f"{value:g}"
+
+
+def parse_tolerance_text(
+    text: str | float | int,
+    *,
+    unit: str,
+    nominal: float,
+    where: str,
+    path: object | None = None,
+    nominal_text: str | float | int | None = None,
+) -> tuple[float, bool]:
+    """Convert a written tolerance to ``(absolute SI value, written as relative)``.
+
+    See :func:`parse_tolerance`; the second item tells whether the tolerance
+    was written relative to the nominal (``%``, ``ppm``, ``ppb``, ``permille``).
+    """
+    magnitude, unit_text = _split(text, unit=unit, where=where, path=path)
+    if unit_text in _RELATIVE_UNITS:
+        if _is_temperature(unit) and (
+            nominal_text is None or _written_in_offset_unit(nominal_text)
+        ):
+            raise ScenarioError(
+                f"{text!r}: a relative tolerance of a temperature on an offset scale (degC) is "
+                f"ambiguous; write it absolute, e.g. '0.1 K'",
+                path=path,
+                key=where,
+            )
+        value = magnitude * _RELATIVE_UNITS[unit_text] * abs(nominal)
+        relative = True
+    elif not unit_text:
+        if unit not in ("", "1"):
+            raise ScenarioError(
+                f"{text!r} has no unit; write it relative ('{_fmt_num(magnitude)} %') or "
+                f"absolute with a unit (e.g. '{_fmt_num(magnitude)} "
+                f"{_example(unit).split(' ', 1)[1]}')",
+                path=path,
+                key=where,
+            )
+        value, relative = magnitude, False
+    else:
+        units = _units_of(unit_text, text=text, unit=unit, where=where, path=path)
+        name = str(units)
+        if name in _OFFSET_TO_DELTA:
+            units = ureg.parse_units(_OFFSET_TO_DELTA[name])
+        value = _convert(magnitude, units, text=text, unit=unit, where=where, path=path)
+        relative = False
+    if not math.isfinite(value) or value < 0:
+        raise ScenarioError(
+            f"tolerance {text!r} must be a finite non-negative amount; write e.g. '1 %'",
+            path=path,
+            key=where,
+        )
+    return value, relative
+
+
+def parse_tolerance(
+    text: str | float | int,
+    *,
+    unit: str,
+    nominal: float,
+    where: str,
+    path: object | None = None,
+    nominal_text: str | float | int | None = None,
+) -> float:
+    """Convert a written tolerance to an absolute amount in the SI unit ``unit``.
+
+    Parameters
+    ----------
+    text : str or float or int
+        Relative (``"2 %"``, ``"50 ppm"``: of ``|nominal|``) or absolute with a
+        unit (``"0.1 mW"``, ``"0.1 K"``, ``"0.1 delta_degC"``; ``"0.1 degC"``
+        is read as a temperature difference). A bare number only for a
+        dimensionless quantity, where it is absolute.
+    unit : str
+        SI unit of the quantity.
+    nominal : float
+        Nominal value in ``unit`` (SI), the reference of a relative tolerance.
+    where : str
+        Key for error messages.
+    path : path-like, optional
+        File the value came from.
+    nominal_text : str, optional
+        The nominal as written. A relative tolerance of a temperature is
+        accepted only when the nominal is known to be written in an absolute
+        scale (e.g. ``"300 K"``).
+
+    Returns
+    -------
+    float
+        The tolerance in ``unit``, non-negative.
+
+    Raises
+    ------
+    ScenarioError
+        Bad unit, wrong dimension, negative value, or a relative tolerance on a
+        temperature written in degC.
+    """
+    return parse_tolerance_text(
+        text, unit=unit, nominal=nominal, where=where, path=path, nominal_text=nominal_text
+    )[0]
+
+
+def _is_temperature(unit: str) -> bool:
+    try:
+        return _si_unit(unit).dimensionality == ureg.kelvin.dimensionality
+    except (pint.errors.PintError, ValueError, AttributeError, TypeError):
+        return False
+
+
+def _written_in_offset_unit(text: str | float | int) -> bool:
+    if not isinstance(text, str):
+        return False
+    match = _NUMBER.match(text.replace("°C", "degC").replace("°F", "degF"))
+    if match is None or not match.group(2):
+        return False
+    try:
+        return str(ureg.parse_units(match.group(2))) in _OFFSET_TO_DELTA
+    except (pint.errors.PintError, ValueError, AttributeError, TypeError):
+        return False
+
+
+def format_quantity(value: float, unit: str, *, digits: int = 3) -> str:
+    """Format an SI value in a readable unit for reports.
+
+    Parameters
+    ----------
+    value : float
+        The value in ``unit``.
+    unit : str
+        Its SI unit; :data:`DISPLAY_UNITS` gives the unit shown (``"T/m"`` is
+        shown in G/cm, ``"Pa"`` in mbar, ``"K"`` in nK/uK/mK/K by size).
+    digits : int
+        Significant digits.
+
+    Returns
+    -------
+    str
+        E.g. ``"4 mW"``, ``"-12 MHz"``, ``"12 G/cm"``, ``"145 uK"``.
+    """
+    display = DISPLAY_UNITS.get(unit)
+    if display is None:
+        text = f"{value:.{digits}g}"
+        return f"{text} {unit}" if unit not in ("", "1") else text
+    if display == "auto":
+        display = unit
+        magnitude = abs(value)
+        if magnitude > 0 and math.isfinite(magnitude):
+            for name, scale in _AUTO_PREFIXES[unit]:
+                if magnitude < 1000 * scale:
+                    display = name
+                    break
+            else:
+                display = _AUTO_PREFIXES[unit][-1][0]
+    shown = ureg.Quantity(value, _si_unit(unit)).to(display).magnitude
+    return f"{shown:.{digits}g} {display}"
