@@ -534,8 +534,10 @@ def first_order_given_data(
     n, d = x.shape
     m = y2.shape[1]
     n_bins = default_bins(n) if n_bins is None else int(n_bins)
-    ranks = np.argsort(np.argsort(x, axis=0, kind="stable"), axis=0)
-    classes = (ranks * n_bins) // n  # (n, d), equal-count classes 0..n_bins-1
+    ranks = np.argsort(np.argsort(x, axis=0, kind="stable"), axis=0) + 1  # 1..n
+    # Equal-count classes: rank r in class c when edges[c] < r <= edges[c + 1].
+    edges = np.linspace(0, n, n_bins + 1)
+    classes = np.searchsorted(edges, ranks, side="left") - 1  # (n, d), 0..n_bins-1
     # onehot[n, d*n_bins]: class membership of each row for each input.
     onehot = np.zeros((n, d * n_bins))
     onehot[np.arange(n)[:, None], classes + n_bins * np.arange(d)[None, :]] = 1.0
