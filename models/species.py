@@ -26,7 +26,7 @@ from scipy import constants
 
 from trapbudget.models.protocol import ModelError
 
-__all__ = ["SPECIES", "Species", "VaporPressure", "species", "species_table"]
+__all__ = ["SPECIES", "Citations", "Species", "VaporPressure", "species", "species_table"]
 
 _HBAR = constants.hbar
 _C = constants.c
@@ -49,6 +49,39 @@ _HF_FACTORS = (
     "symbols, as tabulated by Steck (D Line Data, section 'Hyperfine dipole matrix elements')"
 )
 _LANDE = "g_F from g_J and I (Lande formula; g_J = 2, g_J' = 4/3), as in Steck's D Line Data"
+
+
+class Citations(Mapping[str, str]):
+    """Read-only field -> citation mapping that hashes and pickles (unlike a mappingproxy)."""
+
+    __slots__ = ("_items",)
+
+    def __init__(self, items: Mapping[str, str] | None = None) -> None:
+        self._items = tuple(dict(items or {}).items())
+
+    def __getitem__(self, key: str) -> str:
+        for k, v in self._items:
+            if k == key:
+                return v
+        raise KeyError(key)
+
+    def __iter__(self):
+        return (k for k, _ in self._items)
+
+    def __len__(self) -> int:
+        return len(self._items)
+
+    def __hash__(self) -> int:
+        return hash(self._items)
+
+    def __eq__(self, other: object) -> bool:
+        return isinstance(other, Mapping) and dict(self) == dict(other)
+
+    def __repr__(self) -> str:
+        return f"Citations({dict(self._items)!r})"
+
+    def __reduce__(self):
+        return (Citations, (dict(self._items),))
 
 
 @dataclass(frozen=True)
@@ -153,7 +186,11 @@ class Species:
     leak_branching: float
     leak_relative_strength: float
     leak_probability_floor: float
-    sources: Mapping[str, str] = field(default_factory=dict)
+    sources: Mapping[str, str] = field(default_factory=Citations)
+
+    def __post_init__(self) -> None:
+        if not isinstance(self.sources, Citations):
+            object.__setattr__(self, "sources", Citations(self.sources))
 
     @property
     def wavenumber(self) -> float:
@@ -229,8 +266,8 @@ class Species:
 
         ``p = floor + (1 - floor) b r / (1 + r)``.
 
-        For Rb-87 near the usual MOT detunings (-1 to -3 Gamma) this gives about
-        1e-4 per photon. ``S`` is the isotropic (polarization-averaged)
+        For Rb-87 near the usual MOT detunings (-1 to -2 Gamma) this gives 1e-4 to
+        4e-4 per photon. ``S`` is the isotropic (polarization-averaged)
         hyperfine strength ratio: in a MOT the light polarization at the atom is
         mixed, so the stretched-state selection rule does not hold.
 
@@ -313,7 +350,7 @@ def _alkali(
         leak_branching=float(branching),
         leak_relative_strength=float(strength),
         leak_probability_floor=0.0,
-        sources=MappingProxyType(base),
+        sources=base,
     )
 
 
@@ -475,17 +512,15 @@ _RECORDS.append(
         leak_branching=0.0,
         leak_relative_strength=0.0,
         leak_probability_floor=2.0e-5,
-        sources=MappingProxyType(
-            {
-                "wavelength": "460.862 nm vacuum (from memory), checked against arc",
-                "linewidth": _PULJIC,
-                "saturation_intensity": _FORMULA_ISAT,
-                "mass": _NIST_MASS + " (from memory)",
-                "g_upper": "1P1 g_J = 1 (LS coupling, common practice)",
-                "leak_probability_floor": "1P1 -> 1D2 about 1 in 50 000 (from memory)",
-                "vapor": "no Alcock row used: give the density directly",
-            }
-        ),
+        sources={
+            "wavelength": "460.862 nm vacuum (from memory), checked against arc",
+            "linewidth": _PULJIC,
+            "saturation_intensity": _FORMULA_ISAT,
+            "mass": _NIST_MASS + " (from memory)",
+            "g_upper": "1P1 g_J = 1 (LS coupling, common practice)",
+            "leak_probability_floor": "1P1 -> 1D2 about 1 in 50 000 (from memory)",
+            "vapor": "no Alcock row used: give the density directly",
+        },
     )
 )
 _SR_GAMMA_689 = 2.0 * math.pi * 7.5e3
@@ -507,17 +542,15 @@ _RECORDS.append(
         leak_branching=0.0,
         leak_relative_strength=0.0,
         leak_probability_floor=0.0,
-        sources=MappingProxyType(
-            {
-                "wavelength": "689.449 nm vacuum (from memory)",
-                "linewidth": "Gamma/2pi = 7.5 kHz (7.4 kHz also used); T_D = 179 nK",
-                "saturation_intensity": _FORMULA_ISAT,
-                "mass": _NIST_MASS + " (from memory)",
-                "g_upper": "3P1 g_J = 3/2 (LS coupling, common practice)",
-                "leak_probability_floor": "3P1 decays only to 1S0 (closed line)",
-                "vapor": "no Alcock row used: give the density directly",
-            }
-        ),
+        sources={
+            "wavelength": "689.449 nm vacuum (from memory), checked against arc",
+            "linewidth": "Gamma/2pi = 7.5 kHz, 3P1 lifetime ~21 us (from memory; also 7.4 kHz)",
+            "saturation_intensity": _FORMULA_ISAT,
+            "mass": _NIST_MASS + " (from memory)",
+            "g_upper": "3P1 g_J = 3/2 (LS coupling, common practice)",
+            "leak_probability_floor": "3P1 decays only to 1S0 (closed line)",
+            "vapor": "no Alcock row used: give the density directly",
+        },
     )
 )
 

@@ -329,6 +329,11 @@ def test_species_passthrough_and_pickle():
         rb.mass = 1.0
     assert set(SPECIES) == {"Rb87", "Rb85", "Cs133", "K39", "Na23", "Li7", "Sr88", "Sr88-689"}
     assert pickle.loads(pickle.dumps(rb.vapor)) == rb.vapor
+    for s in SPECIES.values():
+        again = pickle.loads(pickle.dumps(s))
+        assert repr(again) == repr(s)  # repr: NaN splittings compare unequal
+        assert isinstance(hash(again), int)  # hashable (frozen, usable as a cache key)
+    assert dict(rb.sources) == dict(pickle.loads(pickle.dumps(rb.sources)))
 
 
 def test_every_value_has_a_source():
