@@ -179,7 +179,9 @@ def _riccati(loading_rate, loss_rate, two_body):
     root = np.sqrt(loss_rate**2 + 4.0 * two_body * loading_rate)
     total = loss_rate + root
     with np.errstate(divide="ignore", invalid="ignore"):
-        n_plus = np.where(total > 0, 2.0 * loading_rate / total, np.inf)
+        n_plus = np.where(
+            total > 0, 2.0 * loading_rate / total, np.where(loading_rate > 0, np.inf, 0.0)
+        )
         ratio = np.where(total > 0, -4.0 * two_body * loading_rate / total**2, 0.0)
     return n_plus, ratio, root
 
@@ -201,7 +203,8 @@ def _coefficients(loading_rate, loss_rate, two_body_coefficient, cloud_radius, d
         volume = _GAUSS_VOLUME * sigma**3
         b = np.where(np.isfinite(volume), _MEAN_OVER_PEAK * beta / volume, 0.0)
         n_crit = n_lim * volume  # atom number at which n0 reaches the limit
-    c_dense = c + _MEAN_OVER_PEAK * beta * n_lim  # linear loss rate once density-limited
+        # linear loss rate once density-limited
+        c_dense = c + np.where(beta > 0, _MEAN_OVER_PEAK * beta * n_lim, 0.0)
     return r, c, b, volume, n_crit, n_lim, c_dense
 
 
