@@ -37,7 +37,7 @@ from trapbudget.sensitivity.measurements import (
     to_observations,
 )
 
-__all__ = ["Calibration", "FlatDirection", "calibrate", "toml_dumps"]
+__all__ = ["Calibration", "FlatDirection", "calibrate"]
 
 CovarianceScaling = Literal["auto", "always", "never"]
 _SCALINGS = ("auto", "always", "never")
@@ -270,6 +270,8 @@ class Calibration:
             f"# chi2/dof = {self.reduced_chi2:.4g} (dof {self.dof}); "
             f"covariance {'scaled by chi2/dof' if self.covariance_scaled else 'not scaled'}.\n"
         )
+        from trapbudget.sensitivity.scenario import toml_dumps
+
         return header + toml_dumps(self.scenario_mapping())
 
     def write_scenario(self, path: str | os.PathLike[str]) -> Path:
@@ -295,108 +297,6 @@ def _scenario_source_mapping(scenario: Any) -> dict[str, Any]:
             "the scenario has no source file to extend; load it from a TOML file"
         ) from None
     return tomllib.loads(scenario_to_toml(scenario))
-
-
-# ----------------------------------------------------------------------- TOML writer
-
-
-def _toml_key(key: str) -> str:
-    if key and all(c.isalnum() or c in "_-" for c in key):
-        return key
-    return _toml_string(key)
-
-
-def _toml_string(text: str) -> str:
-    out = []
-    for ch in text:
-        if ch in '"\\':
-            out.append("\\" + ch)
-        elif ch == "\n":
-            out.append("\\n")
-        elif ch == "\t":
-            out.append("\\t")
-        elif ord(ch) < 0x20 or ord(ch) == 0x7F:
-            out.append(f"\\u{ord(ch):04x}")
-        else:
-            out.append(ch)
-    return '"' + "".join(out) + '"'
-
-
-def _toml_value(value: Any) -> str:
-    if isinstance(value, bool | np.bool_):
-        return "true" if value else "false"
-    if isinstance(value, int | np.integer):
-        return str(int(value))
-    if isinstance(value, float | np.floating):
-        v = float(value)
-        if math.isnan(v):
-            return "nan"
-        if math.isinf(v):
-            return "inf" if v > 0 else "-inf"
-        text = repr(v)
-        return text if any(c in text for c in ".en") else text + ".0"
-    if isinstance(value, str):
-        return _toml_string(value)
-    if isinstance(value, _dt.datetime | _dt.date):
-        return value.isoformat()
-    if isinstance(value, Mapping):
-        inner = ", ".join(f"{_toml_key(k)} = {_toml_value(v)}" for k, v in value.items())
-        return "{ " + inner + " }" if inner else "{}"
-    if isinstance(value, list | tuple | np.ndarray):
-        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
-    raise TypeError(f"cannot write {type(value).__name__} to TOML")
-
-
-def _is_table_array(value: Any) -> bool:
-    return (
-        isinstance(value, list | tuple)
-        and len(value) > 0
-        and all(isinstance(v, Mapping) for v in value)
-    )
-
-
-def toml_dumps(data: Mapping[str, Any]) -> str:
-    """Write a mapping as TOML (tables, arrays of tables, inline values).
-
-    Parameters
-    ----------
-    data : Mapping
-        Nested mappings of str, numbers, bools, dates and lists.
-
-    Returns
-    -------
-    str
-        TOML 1.0 text that ``tomllib.loads`` reads back to ``data``.
-    """
-    lines: list[str] = []
-
-    def emit(table: Mapping[str, Any], prefix: tuple[str, ...]) -> None:
-        scalars = [
-            (k, v)
-            for k, v in table.items()
-            if not isinstance(v, Mapping) and not _is_table_array(v)
-        ]
-        for key, value in scalars:
-            lines.append(f"{_toml_key(key)} = {_toml_value(value)}")
-        for key, value in table.items():
-            path = (*prefix, key)
-            dotted = ".".join(_toml_key(p) for p in path)
-            if isinstance(value, Mapping):
-                has_scalars = any(
-                    not isinstance(v, Mapping) and not _is_table_array(v) for v in value.values()
-                )
-                if has_scalars or not value:
-                    lines.append("")
-                    lines.append(f"[{dotted}]")
-                emit(value, path)
-            elif _is_table_array(value):
-                for item in value:
-                    lines.append("")
-                    lines.append(f"[[{dotted}]]")
-                    emit(item, path)
-
-    emit(data, ())
-    return "\n".join(lines).lstrip("\n") + "\n"
 
 
 # ----------------------------------------------------------------------- the fit

@@ -13,8 +13,8 @@ the measured output (``atom_number [1]``, optionally
 Mapping columns to model inputs
 -------------------------------
 A column named after a model input is that input (units converted). Other
-columns are mapped in a ``[diagnosis]`` table of the scenario (or the
-``mapping=`` argument)::
+columns are mapped in a ``[diagnosis]`` table: the ``mapping=`` argument (a
+mapping, or a TOML file holding the table), else the scenario's::
 
     [diagnosis]
     output = "atom_number"          # model output compared (default atom_number)
@@ -59,7 +59,15 @@ try:
 except ImportError:  # pragma: no cover - Python 3.10
     import tomli as tomllib
 
-__all__ = ["ChannelMap", "Diagnosis", "LogTable", "diagnose", "read_log", "shapley_attribution"]
+__all__ = [
+    "ChannelMap",
+    "Diagnosis",
+    "LogTable",
+    "diagnose",
+    "load_mapping",
+    "read_log",
+    "shapley_attribution",
+]
 
 _HEADER = re.compile(r"^\s*(?P<name>[A-Za-z_][A-Za-z0-9_]*)\s*(?:\[(?P<unit>[^\]]*)\])?\s*$")
 MAX_CHANNELS = 16
@@ -207,7 +215,22 @@ class ChannelMap:
     offset: str | None = None
 
 
-def _mapping_from(scenario: Any, mapping: Mapping[str, Any] | None) -> dict[str, Any]:
+def load_mapping(path: str | os.PathLike[str]) -> dict[str, Any]:
+    """Read a column mapping from a TOML file: its ``[diagnosis]`` table (or the whole file)."""
+    file = Path(path)
+    try:
+        with open(file, "rb") as handle:
+            data = tomllib.load(handle)
+    except FileNotFoundError:
+        raise DataError("mapping file not found; check the path", path=str(file)) from None
+    except tomllib.TOMLDecodeError as exc:
+        raise DataError(f"not valid TOML ({exc}); fix the file", path=str(file)) from None
+    return dict(data.get("diagnosis", data))
+
+
+def _mapping_from(scenario: Any, mapping: Any) -> dict[str, Any]:
+    if isinstance(mapping, str | os.PathLike):
+        return load_mapping(mapping)
     if mapping is not None:
         return dict(mapping)
     table = getattr(scenario, "diagnosis", None)
@@ -518,7 +541,7 @@ def diagnose(
     *,
     reference: Any = "first-day",
     false_alarm_rate: float = 0.01,
-    mapping: Mapping[str, Any] | None = None,
+    mapping: Mapping[str, Any] | str | os.PathLike[str] | None = None,
     unexplained_noise: float = 0.0,
 ) -> Diagnosis:
     """Attribute day-to-day changes of the atom number to the monitored channels.
@@ -535,8 +558,9 @@ def diagnose(
     false_alarm_rate : float
         Probability that a day with no unmonitored change is flagged
         (two-sided, per day).
-    mapping : mapping, optional
-        The ``[diagnosis]`` table, overriding the scenario's.
+    mapping : mapping or path, optional
+        The ``[diagnosis]`` table (or a TOML file holding it), overriding the
+        scenario's.
     unexplained_noise : float
         Relative day-to-day scatter of the output expected even with nothing
         changing (added in quadrature to the allowed remainder); 0 by default.

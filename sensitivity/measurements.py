@@ -655,7 +655,8 @@ def fit_loading_curve(
     -------
     CurveFit
         Parameters ``steady_state``, ``time_constant`` (and
-        ``two_body_fraction``); ``derived`` holds ``loading_rate`` = R,
+        ``two_body_fraction``); ``derived`` holds ``loading_time`` (from
+        empty to 1 - 1/e of N_s), ``loading_rate`` = R,
         ``one_body_time`` = tau_1 and, with two-body, ``two_body_rate`` = b
         (signal units), each with a first-order uncertainty.
 
@@ -714,7 +715,13 @@ def _with_loading_derived(fit: CurveFit) -> CurveFit:
     def chi(p):
         return p[2] if p.size > 2 else 0.0
 
+    def rise_time(p):
+        # N(t)/N_s = f = 1 - 1/e at t = tau ln((1 + chi f) / (1 - f)); tau itself when chi = 0
+        f = 1 - math.exp(-1)
+        return p[1] * math.log((1 + chi(p) * f) / (1 - f))
+
     derived = {
+        "loading_time": _first_order(rise_time, fit.values, fit.covariance),
         "loading_rate": _first_order(
             lambda p: p[0] / (p[1] * (1 + chi(p))), fit.values, fit.covariance
         ),
@@ -896,9 +903,9 @@ def to_observations(
       repeats; with no repeats at all the uncertainty stays unknown (nan).
     - loading-curve: rows with identical settings form one curve, fitted by
       :func:`fit_loading_curve`; each curve gives the steady-state signal (as
-      ``atom_number`` or ``fluorescence``) and ``loading_time`` (the
-      one-body time tau_1, equal to the time constant without two-body loss),
-      with their fit uncertainties.
+      ``atom_number`` or ``fluorescence``) and ``loading_time`` (the time from
+      empty to 1 - 1/e of the steady state, equal to the time constant
+      without two-body loss), with their fit uncertainties.
     - time-of-flight: each group gives ``temperature``, fitted by
       :func:`fit_time_of_flight`.
     """
@@ -960,7 +967,7 @@ def to_observations(
                         f"{mset.label}: curve {k}",
                     )
                 )
-                tau, u_tau = fit.derived["one_body_time"]
+                tau, u_tau = fit.derived["loading_time"]
                 rows_out.append(("loading_time", tau, u_tau, settings, f"{mset.label}: curve {k}"))
             else:
                 fit = fit_time_of_flight(

@@ -12,7 +12,7 @@ import tomllib
 from scipy import optimize, stats
 
 from trapbudget.models import InputSpec, ModelError, OutputSpec
-from trapbudget.sensitivity.calibrate import calibrate, toml_dumps
+from trapbudget.sensitivity.calibrate import calibrate
 from trapbudget.sensitivity.errors import DataError, ScenarioError
 from trapbudget.sensitivity.measurements import Observations
 
@@ -249,18 +249,6 @@ def test_calibrated_scenario_round_trips_as_toml(tmp_path):
     (corr,) = data["correlations"]
     assert corr["coefficient"] == pytest.approx(cal.correlation[0, 1], abs=1e-6)
     assert source.read_text(encoding="utf-8").startswith("[scenario]")  # input untouched
-
-
-def test_toml_writer_round_trips_through_tomllib():
-    # tomllib (Python standard library) is the reference reader
-    data = {
-        "scenario": {"title": 'quote " and \\ back', "options": {"a": 1}},
-        "inputs": {"x": {"nominal": "1 mW", "bounds": ["0 mW", "2 mW"], "flag": True}},
-        "settings": {"n_samples": 1024, "ratio": 1e-9, "level": 0.95},
-        "correlations": [{"inputs": ["a", "b"], "coefficient": -0.5}],
-        "costs": {"x": {"tiers": [{"name": "t", "tolerance": "1 %", "cost": 0}]}},
-    }
-    assert tomllib.loads(toml_dumps(data)) == data
 
 
 def test_dataset_carries_fit_and_residuals():

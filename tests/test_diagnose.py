@@ -298,3 +298,22 @@ def test_dataset_has_day_and_channel_dims(tmp_path):
     np.testing.assert_allclose(
         ds["attribution"].sum("channel"), ds["predicted_change"], rtol=1e-10, atol=1e-3
     )
+
+
+def test_mapping_from_a_toml_file(tmp_path):
+    path = write_log(tmp_path / "week.csv", np.random.default_rng(6), fault_day=2)
+    mapping = tmp_path / "mapping.toml"
+    mapping.write_text(
+        "[diagnosis.columns]\n"
+        'room_temperature = { input = "cell_temperature" }\n'
+        'photodiode = { input = "beam_power", scale = "2 mW/V" }\n'
+        'lock_error = { input = "detuning", offset = "nominal" }\n'
+        'ion_pump_current = { input = "background_pressure", scale = "1e-9 mbar/nA" }\n',
+        encoding="utf-8",
+    )
+    from_file = diagnose(scenario(diagnosis=None), path, mapping=mapping)
+    from_table = diagnose(scenario(), path)
+    np.testing.assert_array_equal(from_file.attribution, from_table.attribution)
+    assert list(np.flatnonzero(from_file.flagged)) == [2]
+    with pytest.raises(DataError, match="mapping file not found"):
+        diagnose(scenario(), path, mapping=tmp_path / "absent.toml")

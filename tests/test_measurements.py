@@ -163,6 +163,15 @@ def test_two_body_fit_recovers_rate_equation_constants():
     # steady state: positive root of R - N/tau1 - b N^2 = 0
     n_s = (-1 / tau1 + math.sqrt(1 / tau1**2 + 4 * b * rate)) / (2 * b)
     assert fit.value("steady_state") == pytest.approx(n_s, rel=1e-7)
+    # the ODE solution reaches 1 - 1/e of N_s at the reported loading time
+    reached = integrate.solve_ivp(
+        lambda _t, n: rate - n / tau1 - b * n**2,
+        (0, fit.derived["loading_time"][0]),
+        [0.0],
+        rtol=1e-12,
+        atol=1e-3,
+    ).y[0, -1]
+    assert reached == pytest.approx((1 - math.exp(-1)) * n_s, rel=1e-6)
 
 
 # ----------------------------------------------------------------- time of flight
