@@ -31,7 +31,8 @@ def _quiet_salib(seed: int) -> Iterator[None]:
     state = np.random.get_state()  # noqa: NPY002 - SALib seeds the legacy global state
     formatter = warnings.formatwarning
     try:
-        with warnings.catch_warnings():
+        # record=True swallows SALib's notices even after it resets the filters itself.
+        with warnings.catch_warnings(record=True):
             warnings.simplefilter("ignore")
             np.random.seed(seed)  # noqa: NPY002
             yield
