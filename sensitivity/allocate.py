@@ -513,7 +513,9 @@ def _infeasibility_named(problem: LinearProblem, fixed_parts: Mapping[str, np.nd
     total = np.asarray(problem.fixed_variance, dtype=float).copy()
     for v in tight.values():
         total = total + v
-    r = int(np.argmax(total / problem.budgets))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        pressure = np.where(problem.budgets > 0, total / problem.budgets, np.inf)
+    r = int(np.argmax(pressure))
     parts = {name: float(v[r]) for name, v in {**dict(fixed_parts), **tight}.items()}
     blocking = max(parts, key=parts.get) if parts else ""
     return problem.requirements[r], blocking
@@ -762,6 +764,7 @@ def allocate(
     max_iterations: int = 8,
     safety_margin: float = 1.0,
     max_loosen: float = 4.0,
+    rtol: float = 0.02,
     progress: object = None,
 ) -> Allocation:
     """Find the tolerances that meet every requirement at least cost.
@@ -790,6 +793,9 @@ def allocate(
     max_loosen : float
         A smooth-cost tolerance may be loosened to at most this multiple of
         its present value (the linear model is not trusted far outside).
+    rtol : float
+        Refinement stops once every requirement passes and no binding bound
+        would move by more than this fraction.
     progress : callable, optional
         ``progress(done, total)`` for each verification.
 
@@ -846,6 +852,8 @@ def allocate(
     reason = ""
     failing = blocking = ""
     rounds = max(1, int(max_iterations)) if refine else 1
+    seen: dict = {}  # candidate allocation -> its Monte Carlo check (same design: reuse)
+    repeats = 0
     for _ in range(rounds):
         problem = _problem(scenario, setup, bounds, max_loosen)
         solution = allocate_tiers(problem, fixed_parts=_fixed_parts(scenario, setup))
@@ -854,11 +862,23 @@ def allocate(
             last = (problem, solution, None, None)
             break
         tolerances = _tolerances(scenario, setup, solution)
-        candidate = scenario.with_tolerances(tolerances)  # type: ignore[attr-defined]
-        (samples,) = common_random_samples(
-            [candidate], n_samples=n, method=m, unit=unit, progress=progress
-        )  # type: ignore[arg-type]
-        checks = _check(samples, requirements, safety_margin=safety_margin)
+        key = (
+            solution.tier_index,
+            tuple(np.round(np.log(solution.smooth_tolerance) / math.log1p(rtol / 10)).astype(int)),
+        )
+        if key in seen:
+            repeats += 1
+            if repeats >= 2:
+                break
+            candidate, samples, checks = seen[key]
+        else:
+            repeats = 0
+            candidate = scenario.with_tolerances(tolerances)  # type: ignore[attr-defined]
+            (samples,) = common_random_samples(
+                [candidate], n_samples=n, method=m, unit=unit, progress=progress
+            )  # type: ignore[arg-type]
+            checks = _check(samples, requirements, safety_margin=safety_margin)
+            seen[key] = (candidate, samples, checks)
         passed = all(c["met"] for c in checks)
         history.append((solution.cost, passed))
         last = (problem, solution, tolerances, (candidate, samples, checks))
@@ -867,7 +887,7 @@ def allocate(
         factors = np.array([min(max(c["factor"], 0.5), 2.0) for c in checks])
         used = solution.variance / np.where(np.isfinite(problem.budgets), problem.budgets, np.inf)
         active = used > 0.9
-        if passed and np.all(np.abs(np.log(factors[active])) < math.log(1.05)):
+        if passed and np.all(np.abs(np.log(factors[active])) < math.log1p(rtol)):
             break
         for r, check in enumerate(checks):
             if check["met"] and not active[r]:

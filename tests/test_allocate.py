@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import itertools
 import math
 
@@ -12,10 +13,14 @@ from scipy import optimize, stats
 from trapbudget.sensitivity.allocate import (
     LinearProblem,
     TierOption,
+    allocate,
     allocate_tiers,
     lagrange_allocation,
     uncertainty_bound,
 )
+from trapbudget.sensitivity.errors import ScenarioError
+from trapbudget.sensitivity.propagate import propagate
+from trapbudget.sensitivity.scenario import Scenario
 
 # ---------------------------------------------------------------- bounds from requirements
 
@@ -232,3 +237,164 @@ def test_mixed_tiers_and_smooth_costs_beat_every_tier_choice():
     solution = allocate_tiers(problem)
     assert solution.feasible
     assert solution.cost == pytest.approx(min(costs), rel=1e-8)
+
+
+# ---------------------------------------------------------------- the scenario-level driver
+
+B = {"x1": 2.0, "x2": -1.0, "x3": 0.5}
+OFFSET = 10.0
+N_MC = 2**14
+
+
+def _linear_scenario(
+    *, limit, costs, probability=0.95, tolerances=None, kind="at_least", n_samples=N_MC, seed=7
+):
+    tolerances = tolerances or {"x1": 0.2, "x2": 0.2, "x3": 0.1}
+    requirement = {"output": "y", kind: limit, "label": "enough"}
+    if probability is not None:
+        requirement["probability"] = probability
+    return Scenario.from_dict(
+        {
+            "scenario": {
+                "title": "linear allocation test",
+                "model": "linear",
+                "options": {"coefficients": B, "offset": OFFSET},
+            },
+            "inputs": {n: {"nominal": 0.0, "tolerance": t} for n, t in tolerances.items()},
+            "outputs": {"names": ["y"]},
+            "settings": {"n_samples": n_samples, "method": "sobol", "seed": seed},
+            "requirements": [requirement],
+            "costs": costs,
+        }
+    )
+
+
+SMOOTH = {
+    "x1": {"smooth": {"tolerance": 0.2, "cost": 100.0, "exponent": 1.0}},
+    "x2": {"smooth": {"tolerance": 0.2, "cost": 300.0, "exponent": 1.0}},
+}
+
+
+def _mc_relative_error(p, n, safety_margin):
+    # relative error of the bound U = (mu - x)/z implied by a binomial error on P:
+    # dU/U = dz/z, dz = se / phi(z), se = sqrt(p (1 - p) / n); the margin shifts by that many se
+    z = stats.norm.ppf(p)
+    se = math.sqrt(p * (1 - p) / n)
+    return (safety_margin + 3.0) * se / (stats.norm.pdf(z) * z)
+
+
+def test_smooth_allocation_matches_the_closed_form_lagrange_optimum():
+    scenario = _linear_scenario(limit=9.0, costs=SMOOTH)
+    allocation = allocate(scenario, max_loosen=100.0)
+    assert allocation.feasible, allocation.reason
+    # closed form (derived in _closed_form_equal_exponent): a_i = b_i^2 (normal, u = t),
+    # fixed variance b3^2 u3^2, U = (mu - x)/z_p
+    a = np.array([B["x1"] ** 2, B["x2"] ** 2])
+    u_bound = (OFFSET - 9.0) / stats.norm.ppf(0.95)
+    budget = u_bound**2 - (B["x3"] * 0.1) ** 2
+    expected = _closed_form_equal_exponent(
+        a, np.array([100.0, 300.0]), np.full(2, 0.2), 1.0, budget
+    )
+    got = np.array([allocation.tolerances["x1"].value, allocation.tolerances["x2"].value])
+    # the ratio t1/t2 does not depend on the bound: exact
+    assert got[0] / got[1] == pytest.approx(expected[0] / expected[1], rel=1e-6)
+    # the scale follows the Monte Carlo estimate of P: within its error (+ the stop band)
+    rel = (_mc_relative_error(0.95, N_MC, 1.0) + 0.02) * u_bound**2 / budget
+    np.testing.assert_allclose(got, expected, rtol=rel)
+    spec = allocation.spec
+    assert spec["binding"].sel(input="x1").item() == "enough"
+    assert not bool(spec["free"].sel(input="x3"))
+    assert float(spec["required_tolerance"].sel(input="x3")) == 0.1
+
+
+def test_allocated_tolerances_meet_the_claimed_probability_in_an_independent_sample():
+    scenario = _linear_scenario(limit=9.0, costs=SMOOTH)
+    allocation = allocate(scenario)
+    claimed = float(allocation.requirements["probability"].item())
+    claimed_se = float(allocation.requirements["standard_error"].item())
+    # independent check: a fresh pseudo-random sample through H3's propagate, other seed
+    samples = propagate(
+        allocation.scenario.model,
+        allocation.scenario.inputs,
+        n_samples=2**15,
+        method="random",
+        rng=2024,
+        outputs=["y"],
+    )
+    p = float(np.mean(samples["y"].values >= 9.0))
+    se = math.sqrt(p * (1 - p) / 2**15)
+    assert p >= 0.95 - 4 * se
+    assert p == pytest.approx(claimed, abs=4 * math.hypot(se, claimed_se))
+
+
+def _tiers(values, costs):
+    return {
+        "tiers": [
+            {"name": f"t{v}", "tolerance": v, "cost": c}
+            for v, c in zip(values, costs, strict=True)
+        ]
+    }
+
+
+TIERS = {
+    "x1": _tiers([0.3, 0.15, 0.05], [0.0, 100.0, 400.0]),
+    "x2": _tiers([0.4, 0.2, 0.1], [0.0, 150.0, 300.0]),
+}
+
+
+@pytest.mark.parametrize("limit", [9.25, 9.55, 9.7])
+def test_tiered_allocation_matches_brute_force_over_exact_probabilities(limit):
+    scenario = _linear_scenario(limit=limit, costs=TIERS)
+    # brute force: every tier combination, exact normal P(Y >= x) (scipy.stats.norm.sf)
+    options = []
+    for (t1, c1), (t2, c2) in itertools.product(
+        zip([0.3, 0.15, 0.05], [0.0, 100.0, 400.0], strict=True),
+        zip([0.4, 0.2, 0.1], [0.0, 150.0, 300.0], strict=True),
+    ):
+        sd = math.sqrt((B["x1"] * t1) ** 2 + (B["x2"] * t2) ** 2 + (B["x3"] * 0.1) ** 2)
+        options.append((c1 + c2, stats.norm.sf(limit, OFFSET, sd), (t1, t2)))
+    se = math.sqrt(0.95 * 0.05 / N_MC)
+    # the test is only sharp when no option sits within the Monte Carlo error of the target
+    assert all(abs(p - 0.95) > 6 * se for _, p, _ in options)
+    cost, _, (t1, t2) = min((o for o in options if o[1] >= 0.95), key=lambda o: o[0])
+    allocation = allocate(scenario)
+    assert allocation.feasible, allocation.reason
+    assert allocation.total_cost == pytest.approx(cost)
+    assert allocation.tolerances["x1"].value == pytest.approx(t1)
+    assert allocation.tolerances["x2"].value == pytest.approx(t2)
+
+
+def test_tightening_a_requirement_never_lowers_the_cost():
+    # mixed tiers and smooth costs; stricter limits in turn (monotonicity of the optimum)
+    costs = {"x1": TIERS["x1"], "x2": SMOOTH["x2"]}
+    found = [
+        allocate(_linear_scenario(limit=x, costs=costs), n_samples=2**12).total_cost
+        for x in (8.8, 9.0, 9.2, 9.4, 9.6)
+    ]
+    assert all(b >= a - 1e-9 for a, b in itertools.pairwise(found)), found
+
+
+def test_infeasible_requirement_names_the_blocking_input():
+    # x3 has no cost model and alone spreads y by 0.5 * 2 = 1: P(Y >= 9.5) < 0.95 whatever
+    scenario = _linear_scenario(
+        limit=9.5, costs=TIERS, tolerances={"x1": 0.2, "x2": 0.2, "x3": 2.0}
+    )
+    allocation = allocate(scenario)
+    assert not allocation.feasible
+    assert allocation.blocking_input == "x3"
+    assert "enough" in allocation.reason and "'x3'" in allocation.reason
+    assert math.isinf(allocation.total_cost)
+
+
+def test_requirement_failing_at_the_nominal_point_is_reported():
+    allocation = allocate(_linear_scenario(limit=10.5, costs=TIERS))
+    assert not allocation.feasible
+    assert "fails at the nominal point" in allocation.reason
+
+
+def test_allocation_without_requirements_or_costs_is_refused():
+    scenario = _linear_scenario(limit=9.0, costs=TIERS)
+    with pytest.raises(ScenarioError, match="no requirements to allocate against"):
+        allocate(dataclasses.replace(scenario, requirements=()))
+    with pytest.raises(ScenarioError, match=r"no cost tables, so no input is free"):
+        allocate(dataclasses.replace(scenario, costs={}))
