@@ -192,8 +192,13 @@ class _Checked:
     """y = x, flagged NEGATIVE below 0 and HUGE above 2."""
 
     validity_flags = _Flags
-    inputs = {"x": InputSpec("x", "", 0.0, -10, 10, "input")}
-    outputs = {"y": OutputSpec("y", "", "output"), "validity": OutputSpec("validity", "", "mask")}
+
+    def __init__(self):
+        self.inputs = {"x": InputSpec("x", "", 0.0, -10, 10, "input")}
+        self.outputs = {
+            "y": OutputSpec("y", "", "output"),
+            "validity": OutputSpec("validity", "", "mask"),
+        }
 
     def evaluate(self, values):
         x = np.asarray(values.get("x", 0.0), dtype=float)
