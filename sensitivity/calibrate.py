@@ -503,7 +503,9 @@ def calibrate(
                 share = np.abs(vt[-1])
                 k = int(np.argmax(share))
                 relative = {
-                    fitted[i]: float(direction[i]) for i in np.argsort(-share) if share[i] > 0.05
+                    fitted[i]: float(direction[i])
+                    for i in np.argsort(-np.abs(direction))
+                    if abs(direction[i]) >= 0.05
                 }
                 flats.append(FlatDirection(relative, float(s[-1] / s[0]), fitted[k]))
                 values[fitted[k]] = start[fitted[k]]
@@ -544,7 +546,7 @@ def calibrate(
         if values[name] != 0 and u > abs(values[name]):
             notes.append(f"{name} is weakly determined: its uncertainty exceeds its value")
         low, high = model.inputs[name].low, model.inputs[name].high
-        if np.isclose(values[name], low) or np.isclose(values[name], high):
+        if any(np.isclose(values[name], b, rtol=1e-9, atol=0.0) for b in (low, high)):
             notes.append(f"{name} ended at a bound of its valid range [{low:g}, {high:g}]")
     predicted = _predict(model, base_values, obs, values)
     return Calibration(
