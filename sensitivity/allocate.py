@@ -884,7 +884,17 @@ def allocate(
         last = (problem, solution, tolerances, (candidate, samples, checks))
         if passed and (best is None or solution.cost <= best[1].cost):
             best = last
-        factors = np.array([min(max(c["factor"], 0.5), 2.0) for c in checks])
+        # a failing requirement is aimed a little inside its limit, so the bound is not
+        # approached from the wrong side forever
+        factors = np.array(
+            [
+                min(
+                    max(c["factor"] if c["met"] else min(c["factor"], 1.0) * (1 - rtol / 2), 0.5),
+                    2.0,
+                )
+                for c in checks
+            ]
+        )
         used = solution.variance / np.where(np.isfinite(problem.budgets), problem.budgets, np.inf)
         active = used > 0.9
         if passed and np.all(np.abs(np.log(factors[active])) < math.log1p(rtol)):

@@ -445,11 +445,20 @@ def compare(
     return ds
 
 
-def _benefit(ds: xr.Dataset) -> float:
-    """Improvement used to rank changes: probability gained, else variance removed."""
-    if "probability_shift" in ds and np.isfinite(ds["probability_shift"].values).any():
-        return float(np.nansum(ds["probability_shift"].values))
-    return float(ds["variance_removed_fraction"].values[0])
+def _benefit(parts: Sequence[xr.Dataset]) -> tuple[np.ndarray, str]:
+    """Improvement of each change, one metric for the whole set: probability gained, or
+    (when no change moves any probability) the fraction of variance of the first output removed.
+    """
+    shifts = [
+        np.nan_to_num(p["probability_shift"].values, nan=0.0) if "probability_shift" in p else None
+        for p in parts
+    ]
+    if any(s is not None and np.any(s != 0) for s in shifts):
+        values = np.array([float(np.sum(s)) if s is not None else 0.0 for s in shifts])
+        return values, "probability gained, summed over requirements"
+    first = str(parts[0]["output"].values[0])
+    values = np.array([float(p["variance_removed_fraction"].sel(output=first)) for p in parts])
+    return values, f"fraction of Var({first}) removed"
 
 
 def compare_upgrades(
@@ -530,7 +539,7 @@ def compare_upgrades(
         if key in ds:
             ds[key] = ds[key].isel(upgrade=0, drop=True)
     costs = np.array([float(u.cost) for u in upgrades])  # type: ignore[attr-defined]
-    benefit = np.array([_benefit(p) for p in parts])
+    benefit, metric = _benefit(parts)
     with np.errstate(divide="ignore", invalid="ignore"):
         per_cost = np.where(
             costs > 0,
@@ -550,10 +559,6 @@ def compare_upgrades(
         currency=str(getattr(scenario, "currency", "") or ""),
         method=m,
         seed=r if isinstance(r, int) else "",
-        benefit_metric=(
-            "probability gained, summed over requirements"
-            if "probability_shift" in ds and np.isfinite(ds["probability_shift"].values).any()
-            else f"fraction of Var({outs[0]}) removed"
-        ),
+        benefit_metric=metric,
     )
     return ds

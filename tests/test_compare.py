@@ -9,8 +9,15 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from trapbudget.sensitivity.compare import common_random_samples, compare_samples
+from trapbudget.sensitivity.compare import (
+    common_random_samples,
+    compare,
+    compare_samples,
+    compare_upgrades,
+)
+from trapbudget.sensitivity.errors import ScenarioError
 from trapbudget.sensitivity.requirements import Requirement
+from trapbudget.sensitivity.scenario import Scenario
 from trapbudget.sensitivity.testfunctions import LinearModel
 
 N = 2**14
@@ -133,3 +140,87 @@ def test_unpaired_samples_are_refused():
     b = common_random_samples([_side()], n_samples=512, rng=1)[0]
     with pytest.raises(ValueError, match="same number of paired samples"):
         compare_samples(a, b)
+
+
+# ---------------------------------------------------------------- scenario-level drivers
+
+LIN = {"x1": 2.0, "x2": -1.0, "x3": 0.5}
+
+
+def _scenario(upgrades=(), *, limit=9.4, n_samples=N):
+    return Scenario.from_dict(
+        {
+            "scenario": {
+                "title": "linear compare test",
+                "model": "linear",
+                "options": {"coefficients": LIN, "offset": OFFSET},
+                "currency": "EUR",
+            },
+            "inputs": {
+                "x1": {"nominal": 0.0, "tolerance": 0.2},
+                "x2": {"nominal": 0.0, "tolerance": 0.3},
+                "x3": {"nominal": 0.0, "tolerance": 0.4},
+            },
+            "outputs": {"names": ["y"]},
+            "settings": {"n_samples": n_samples, "method": "sobol", "seed": 9},
+            "requirements": [
+                {"output": "y", "at_least": limit, "probability": 0.95, "label": "enough"}
+            ],
+            "upgrades": list(upgrades),
+        }
+    )
+
+
+def test_compare_scenario_with_itself_is_exactly_zero():
+    scenario = _scenario()
+    ds = compare(scenario, scenario)
+    assert float(ds["mean_change"].item()) == 0.0
+    assert float(ds["variance_removed"].item()) == 0.0
+    assert float(ds["probability_shift"].item()) == 0.0
+
+
+def test_new_nominal_shifts_the_mean_by_the_linear_coefficient():
+    # linear model: dY = b1 dx1 exactly, and with common random numbers for every sample
+    scenario = _scenario()
+    ds = compare(scenario, scenario.with_nominal({"x1": 0.05}))
+    assert float(ds["mean_change"].item()) == pytest.approx(LIN["x1"] * 0.05, rel=1e-9)
+    assert float(ds["mean_change_standard_error"].item()) == pytest.approx(0.0, abs=1e-12)
+
+
+def test_compare_upgrades_ranks_by_exact_probability_gain_per_cost():
+    upgrades = [
+        {"name": "halve x1", "cost": 1000, "changes": {"x1": {"tolerance": 0.1}}},
+        {"name": "halve x2", "cost": 500, "changes": {"x2": {"tolerance": 0.15}}},
+        {"name": "halve x3", "cost": 100, "changes": {"x3": {"tolerance": 0.2}}},
+    ]
+    scenario = _scenario(upgrades)
+    ds = compare_upgrades(scenario, repetition_rate=1.0)
+    sd = {"x1": 0.2, "x2": 0.3, "x3": 0.4}
+
+    def exact_p(change):  # exact normal P(Y >= 9.4), scipy.stats.norm.sf
+        s = dict(sd, **change)
+        return stats.norm.sf(9.4, OFFSET, math.sqrt(sum((LIN[k] * s[k]) ** 2 for k in s)))
+
+    p0 = exact_p({})
+    gains = [exact_p({"x1": 0.1}) - p0, exact_p({"x2": 0.15}) - p0, exact_p({"x3": 0.2}) - p0]
+    for k, name in enumerate(["halve x1", "halve x2", "halve x3"]):
+        item = ds.sel(upgrade=name)
+        se = float(item["shift_standard_error"].item())
+        assert float(item["probability_shift"].item()) == pytest.approx(
+            gains[k], abs=4 * se + 1 / N
+        )
+        # variance removed: b^2 u^2 (1 - 1/4) / Var (references.md, linear model [F])
+        var = sum((LIN[j] * sd[j]) ** 2 for j in sd)
+        expected = (LIN[f"x{k + 1}"] * sd[f"x{k + 1}"]) ** 2 * 0.75 / var
+        assert float(item["variance_removed_fraction"].item()) == pytest.approx(
+            expected, abs=5 * math.sqrt(2.0 / N)
+        )
+    per_cost = np.array(gains) / np.array([1000.0, 500.0, 100.0])
+    expected_rank = np.argsort(np.argsort(-per_cost)) + 1
+    np.testing.assert_array_equal(ds["rank"].values, expected_rank)
+    assert ds.attrs["benefit_metric"].startswith("probability gained")
+
+
+def test_compare_upgrades_without_upgrades_is_refused():
+    with pytest.raises(ScenarioError, match=r"no upgrades to compare; add \[\[upgrades\]\]"):
+        compare_upgrades(_scenario())
