@@ -1,0 +1,254 @@
+"""Report section for a calibration (``trapbudget calibrate``).
+
+Built from the ``calibration`` Dataset (:meth:`Calibration.to_dataset
+<trapbudget.sensitivity.calibrate.Calibration.to_dataset>`): the fitted
+constants with their uncertainties, their correlations, the quality of the
+fit, the residuals, and plainly what the data could not pin down.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from typing import Any
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+import matplotlib.pyplot as plt
+import numpy as np
+import xarray as xr
+
+from trapbudget.reports.figures import _STYLE, BLUE, GREY, ORANGE, _png
+from trapbudget.reports.formatting import format_number, format_percent, format_quantity
+from trapbudget.reports.render import Figure, Section, Table, Text, register_section
+
+__all__ = ["calibration_json", "calibration_section", "constant_rows", "residual_figure"]
+
+
+def _value(value: float, unit: str) -> str:
+    if not math.isfinite(value):
+        return "n/a"
+    return format_quantity(value, unit) if unit and unit != "1" else format_number(value, digits=4)
+
+
+def constant_rows(ds: xr.Dataset) -> list[list[str]]:
+    """Rows: constant, start, fitted, standard uncertainty, relative uncertainty, status."""
+    units = ds.attrs.get("units", {}) or {}
+    rows = []
+    for i, name in enumerate(ds["constant"].values):
+        name = str(name)
+        unit = str(units.get(name, ""))
+        value = float(ds["value"][i])
+        u = float(ds["uncertainty"][i])
+        fitted = bool(ds["fitted"][i])
+        rows.append(
+            [
+                name,
+                _value(float(ds["start"][i]), unit),
+                _value(value, unit) if fitted else "not fitted",
+                _value(u, unit) if fitted else "-",
+                format_percent(u / abs(value)) if fitted and value else "-",
+                "fitted" if fitted else "held: not determined by the data",
+            ]
+        )
+    return rows
+
+
+def residual_figure(ds: xr.Dataset) -> bytes:
+    """Normalised residuals (measured - predicted) / u per observation, by output."""
+    outputs = [str(o) for o in ds["output"].values]
+    residual = np.asarray(ds["normalized_residual"].values, dtype=float)
+    colours = [BLUE, ORANGE, GREY, "#4d8b57", "#7a4d8b"]
+    with plt.rc_context(_STYLE):
+        fig, ax = plt.subplots(figsize=(6.4, 2.8))
+        for k, name in enumerate(dict.fromkeys(outputs)):
+            idx = np.flatnonzero(np.array(outputs) == name)
+            ax.plot(
+                idx,
+                residual[idx],
+                "o",
+                ms=4,
+                color=colours[k % len(colours)],
+                label=name.replace("_", " "),
+            )
+        for level in (-2, 2):
+            ax.axhline(level, color=GREY, lw=0.8, ls="--")
+        ax.axhline(0, color="#444444", lw=0.8)
+        ax.set_xlabel("observation")
+        ax.set_ylabel("(measured - predicted) / u")
+        ax.legend(loc="upper right", ncols=min(3, len(set(outputs))))
+        return _png(fig)
+
+
+def _correlation_table(ds: xr.Dataset) -> Table | None:
+    names = [str(n) for n in ds["constant_fit"].values]
+    if len(names) < 2:
+        return None
+    corr = np.asarray(ds["correlation"].values, dtype=float)
+    rows = [[a] + [f"{corr[i, j]:+.3f}" for j in range(len(names))] for i, a in enumerate(names)]
+    return Table(
+        ["", *names],
+        rows,
+        caption="Correlations of the fitted constants",
+        numeric=[False] + [True] * len(names),
+    )
+
+
+def _residual_rows(ds: xr.Dataset, *, top: int = 12) -> list[list[str]]:
+    residual = np.asarray(ds["normalized_residual"].values, dtype=float)
+    order = np.argsort(-np.abs(residual))[:top]
+    rows = []
+    for i in order:
+        rows.append(
+            [
+                str(ds["source"].values[i]),
+                str(ds["output"].values[i]).replace("_", " "),
+                format_number(float(ds["measured"][i])),
+                format_number(float(ds["predicted"][i])),
+                format_number(float(ds["measurement_uncertainty"][i])),
+                f"{residual[i]:+.2f}",
+            ]
+        )
+    return rows
+
+
+def _fit_summary(attrs: Mapping[str, Any], n_fit: int, n_obs: int) -> str:
+    loss = ", soft-L1 loss" if attrs.get("robust") else ""
+    chi = format_number(attrs.get("reduced_chi2", math.nan))
+    p = format_number(attrs.get("p_value", math.nan), digits=2)
+    scaling = (
+        "the covariance is scaled by chi2/dof."
+        if attrs.get("covariance_scaled")
+        else "the given measurement uncertainties are taken as they are (covariance not scaled)."
+    )
+    return (
+        f"{n_fit} model constants fitted to {n_obs} observations by weighted least squares "
+        f"(bounded by the constants' valid ranges{loss}). Chi-square per degree of freedom "
+        f"{chi} with {attrs.get('dof')} degrees of freedom (p = {p}); {scaling}"
+    )
+
+
+def calibration_section(
+    datasets: Mapping[str, xr.Dataset], study: Mapping[str, Any]
+) -> Section | None:
+    """The calibration section, or None without a ``calibration`` Dataset."""
+    ds = datasets.get("calibration")
+    if ds is None:
+        return None
+    attrs = ds.attrs
+    n_obs = ds.sizes["observation"]
+    n_fit = int(np.count_nonzero(ds["fitted"].values))
+    blocks: list[Any] = [
+        Text(_fit_summary(attrs, n_fit, n_obs)),
+        Table(
+            ["constant", "start", "fitted", "standard uncertainty", "relative", "status"],
+            constant_rows(ds),
+            caption="Model constants (standard uncertainties, coverage factor 1)",
+            numeric=[False, True, True, True, True, False],
+        ),
+    ]
+    corr = _correlation_table(ds)
+    if corr is not None:
+        blocks.append(corr)
+    flats = list(attrs.get("flat_directions", []) or [])
+    if flats:
+        blocks.append(Text("What the data cannot pin down:", kind="note"))
+        blocks += [Text(line, kind="note") for line in flats]
+    else:
+        blocks.append(
+            Text(
+                "Every constant asked for is determined by the data (no flat "
+                "direction of the fit).",
+                kind="note",
+            )
+        )
+    for note in attrs.get("notes", []) or []:
+        blocks.append(Text(str(note), kind="note"))
+    blocks.append(
+        Figure(
+            "calibration-residuals",
+            residual_figure(ds),
+            caption="Normalised residuals; dashed lines at +-2",
+        )
+    )
+    blocks.append(
+        Table(
+            ["observation", "output", "measured", "predicted", "uncertainty", "residual / u"],
+            _residual_rows(ds),
+            caption="Largest residuals (SI units)",
+            numeric=[False, False, True, True, True, True],
+        )
+    )
+    blocks.append(
+        Text(
+            "The calibrated scenario carries the fitted constants as inputs with this joint "
+            "normal distribution; constants not determined keep what the scenario said. A fit "
+            "is only as good as the model: check residual patterns before trusting a constant.",
+            kind="note",
+        )
+    )
+    return Section("Calibration to measurements", blocks)
+
+
+def _num(value: Any) -> float | None:
+    value = float(value)
+    return value if math.isfinite(value) else None
+
+
+def calibration_json(ds: xr.Dataset) -> dict[str, Any]:
+    """Machine-readable calibration result (plain Python values)."""
+    units = ds.attrs.get("units", {}) or {}
+    constants = {}
+    for i, name in enumerate(ds["constant"].values):
+        name = str(name)
+        fitted = bool(ds["fitted"][i])
+        constants[name] = {
+            "value": float(ds["value"][i]),
+            "start": float(ds["start"][i]),
+            "uncertainty": _num(ds["uncertainty"][i]) if fitted else None,
+            "unit": str(units.get(name, "")),
+            "fitted": fitted,
+        }
+    names = [str(n) for n in ds["constant_fit"].values]
+    return {
+        "constants": constants,
+        "correlation": {
+            "constants": names,
+            "matrix": np.asarray(ds["correlation"].values, dtype=float).round(12).tolist(),
+        },
+        "chi2": _num(ds.attrs["chi2"]),
+        "dof": int(ds.attrs["dof"]),
+        "reduced_chi2": _num(ds.attrs["reduced_chi2"]),
+        "p_value": _num(ds.attrs["p_value"]),
+        "covariance_scaled": bool(ds.attrs["covariance_scaled"]),
+        "flat_directions": list(ds.attrs.get("flat_directions", []) or []),
+        "notes": list(ds.attrs.get("notes", []) or []),
+        "n_observations": int(ds.sizes["observation"]),
+    }
+
+
+register_section(calibration_section)
+
+
+def calibration_rich_table(ds: xr.Dataset) -> Any:
+    """A rich table of the fitted constants, with the fit quality and flat directions below."""
+    from rich.table import Table as RichTable
+
+    table = RichTable(
+        title="Calibrated constants",
+        caption=_fit_summary(
+            ds.attrs, int(np.count_nonzero(ds["fitted"].values)), ds.sizes["observation"]
+        )
+        + "".join(f"\n{line}" for line in ds.attrs.get("flat_directions", []) or []),
+    )
+    for column, justify in zip(
+        ["constant", "start", "fitted", "std. uncertainty", "relative", "status"],
+        ["left", "right", "right", "right", "right", "left"],
+        strict=True,
+    ):
+        table.add_column(column, justify=justify)
+    for row in constant_rows(ds):
+        table.add_row(*row)
+    return table
