@@ -31,8 +31,11 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import optimize, stats
 
+from trapbudget.sensitivity.errors import ScenarioError
+
 __all__ = [
     "Allocation",
+    "InfeasibleError",
     "LinearProblem",
     "TierOption",
     "TierSolution",
@@ -41,6 +44,10 @@ __all__ = [
     "lagrange_allocation",
     "uncertainty_bound",
 ]
+
+
+class InfeasibleError(ScenarioError):
+    """No affordable choice of tolerances meets the scenario's requirements (exit code 1)."""
 
 
 # ---------------------------------------------------------------------------
@@ -653,7 +660,6 @@ class _Setup:
 
 
 def _linear_setup(scenario, requirements, labels) -> _Setup:
-    from trapbudget.sensitivity.errors import ScenarioError
     from trapbudget.sensitivity.linear import linear_propagation
 
     source = getattr(scenario, "source", None)
@@ -820,7 +826,6 @@ def allocate(
     random numbers), and the cheapest allocation that passes is kept.
     """
     from trapbudget.sensitivity.compare import common_random_samples
-    from trapbudget.sensitivity.errors import ScenarioError
     from trapbudget.sensitivity.sampling import unit_design
 
     requirements = tuple(scenario.requirements)  # type: ignore[attr-defined]
