@@ -673,7 +673,6 @@ def _rank_given_data(
         output_names=runner.outputs,
         confidence_level=confidence_level,
         n_bootstrap=n_bootstrap,
-        delta_bootstrap=min(n_bootstrap, 20),
         rng=rng,
     )
     ds = table.sel(input=runner.names)

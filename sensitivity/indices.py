@@ -486,6 +486,19 @@ def default_bins(n: int) -> int:
     return int(min(int(np.ceil(n**exponent)), 48))
 
 
+def rank_classes(x: np.ndarray, n_bins: int) -> np.ndarray:
+    """Equal-count class (0..n_bins-1) of each row of each column of x (n, d).
+
+    Rank r (1..n, ties by order) falls in class c when edges[c] < r <= edges[c+1],
+    edges = linspace(0, n, n_bins + 1): the partition of Plischke et al. (2013)
+    as SALib's delta method draws it.
+    """
+    n = x.shape[0]
+    ranks = np.argsort(np.argsort(x, axis=0, kind="stable"), axis=0) + 1
+    edges = np.linspace(0, n, n_bins + 1)
+    return np.searchsorted(edges, ranks, side="left") - 1
+
+
 def first_order_given_data(
     x: np.ndarray,
     y: np.ndarray,
@@ -534,10 +547,7 @@ def first_order_given_data(
     n, d = x.shape
     m = y2.shape[1]
     n_bins = default_bins(n) if n_bins is None else int(n_bins)
-    ranks = np.argsort(np.argsort(x, axis=0, kind="stable"), axis=0) + 1  # 1..n
-    # Equal-count classes: rank r in class c when edges[c] < r <= edges[c + 1].
-    edges = np.linspace(0, n, n_bins + 1)
-    classes = np.searchsorted(edges, ranks, side="left") - 1  # (n, d), 0..n_bins-1
+    classes = rank_classes(x, n_bins)
     # onehot[n, d*n_bins]: class membership of each row for each input.
     onehot = np.zeros((n, d * n_bins))
     onehot[np.arange(n)[:, None], classes + n_bins * np.arange(d)[None, :]] = 1.0
