@@ -29,7 +29,7 @@ from numpy.typing import ArrayLike
 
 from trapbudget.models.protocol import ModelError
 from trapbudget.sensitivity.errors import ScenarioError
-from trapbudget.sensitivity.protocol import as_model, evaluate_in_chunks, model_name
+from trapbudget.sensitivity.protocol import BoundModel, as_model, evaluate_in_chunks, model_name
 from trapbudget.sensitivity.sampling import Method, is_distribution, sample_inputs
 
 __all__ = [
@@ -163,9 +163,10 @@ def propagate(
     columns = sample_inputs(
         uncertain, n_samples=n_samples, method=method, correlation=correlation, rng=rng
     )
-    columns_all = {**columns, **{k: np.full(int(n_samples), v) for k, v in fixed.items()}}
+    # fixed values are bound as scalars: the model broadcasts them (bounded memory)
+    runner = BoundModel(model, fixed) if fixed else model
     results = _evaluate(
-        model, columns_all, n_samples=n_samples, chunk_size=chunk_size, progress=progress
+        runner, columns, n_samples=n_samples, chunk_size=chunk_size, progress=progress
     )
     keep = list(results) if outputs is None else list(outputs)
     missing = [name for name in keep if name not in results]
@@ -523,7 +524,7 @@ def propagate_adaptive(
             tol = numerical_tolerance(u, significant_digits=significant_digits)
             delta[name] = tol
             achieved[name] = [float(v) for v in spread[i]]
-            if math.isfinite(tol) and not np.all(spread[i] < tol):
+            if math.isfinite(tol) and not np.all(spread[i] <= tol):
                 done = False
         if done:
             converged = True

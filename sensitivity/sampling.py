@@ -60,6 +60,13 @@ def _next_power_of_two(n: int) -> int:
     return 1 << max(0, int(n - 1).bit_length())
 
 
+def _engine(cls: Any, dimension: int, generator: np.random.Generator, **options: Any) -> Any:
+    try:
+        return cls(d=dimension, rng=generator, **options)
+    except TypeError:  # scipy < 1.15 names the argument `seed`
+        return cls(d=dimension, seed=generator, **options)
+
+
 def unit_design(
     n_samples: int,
     dimension: int,
@@ -105,14 +112,14 @@ def unit_design(
     if method == "random":
         points = generator.random((n_samples, dimension))
     elif method == "latin":
-        points = qmc.LatinHypercube(d=dimension, rng=generator).random(n_samples)
+        points = _engine(qmc.LatinHypercube, dimension, generator).random(n_samples)
     else:
         if not is_power_of_two(n_samples):
             raise ValueError(
                 f"method='sobol' requires n_samples to be a power of 2; got {n_samples}, "
                 f"use {_next_power_of_two(n_samples)}"
             )
-        engine = qmc.Sobol(d=dimension, scramble=True, rng=generator)
+        engine = _engine(qmc.Sobol, dimension, generator, scramble=True)
         points = engine.random_base2(int(n_samples).bit_length() - 1)
     return np.clip(points, _EDGE, 1.0 - _EDGE)
 

@@ -20,7 +20,11 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-import tomllib
+
+try:
+    import tomllib
+except ImportError:  # pragma: no cover - Python 3.10
+    import tomli as tomllib
 
 from trapbudget.models.protocol import ModelError
 from trapbudget.sensitivity.costs import CostModel, SmoothCost, TieredCost, parse_costs

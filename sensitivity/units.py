@@ -14,6 +14,9 @@ Conventions
   tolerances (``"0.1 degC"`` as a tolerance is 0.1 K). A relative tolerance
   (``"2 %"``) on a temperature written in an offset unit is ambiguous and is
   rejected.
+- A relative tolerance (``%``, ``ppm``) is always a fraction of ``|nominal|``,
+  for dimensionless inputs too: "2 %" of a fraction 0.05 is 0.001. Write an
+  absolute tolerance of a dimensionless input as a bare number (``0.01``).
 """
 
 from __future__ import annotations
@@ -246,6 +249,14 @@ def parse_tolerance_text(
             raise ScenarioError(
                 f"{text!r}: a relative tolerance of a temperature on an offset scale (degC) is "
                 f"ambiguous; write it absolute, e.g. '0.1 K'",
+                path=path,
+                key=where,
+            )
+        if nominal == 0 and magnitude != 0:
+            example = "0.01" if unit in ("", "1") else f"'0.1 {_example(unit).split(' ', 1)[1]}'"
+            raise ScenarioError(
+                f"{text!r}: a relative tolerance of a zero nominal is zero; write it "
+                f"absolute, e.g. {example}",
                 path=path,
                 key=where,
             )

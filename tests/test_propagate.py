@@ -208,8 +208,11 @@ class _Checked:
 
 def test_validity_counts_and_warning():
     n = 4096
-    with pytest.warns(ModelValidityWarning, match=r"% of 4096 samples fell outside the validity"):
+    with pytest.warns(
+        ModelValidityWarning, match=r"% of 4096 samples fell outside the validity"
+    ) as record:
         ds = propagate(_Checked(), {"x": stats.uniform(-1, 4)}, n_samples=n, rng=1)
+    assert record[0].filename == __file__  # stacklevel points at the caller
     counts = ds.attrs["validity_counts"]
     # U(-1, 3): P(x < 0) = 1/4, P(x > 2) = 1/4 (uniform cdf); binomial std error sqrt(p(1-p)/n)
     for name in ("NEGATIVE", "HUGE"):

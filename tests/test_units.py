@@ -110,6 +110,8 @@ def test_tolerance_errors():
         parse_tolerance("0.1", unit="W", nominal=1e-3, where="t")
     with pytest.raises(ScenarioError, match=r"finite non-negative"):
         parse_tolerance("-1 %", unit="W", nominal=1e-3, where="t")
+    with pytest.raises(ScenarioError, match=r"relative tolerance of a zero nominal.*'0.1 mm'"):
+        parse_tolerance("2 %", unit="m", nominal=0.0, where="inputs.beam_offset.tolerance")
 
 
 def test_registry_gauss_is_si():
