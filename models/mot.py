@@ -176,9 +176,12 @@ class SteadyState(NamedTuple):
 
 def _riccati(loading_rate, loss_rate, two_body):
     """N+, r = N+/N- and the rate S of dN/dt = R - c N - b N^2 (b >= 0)."""
-    root = np.sqrt(loss_rate**2 + 4.0 * two_body * loading_rate)
-    total = loss_rate + root
     with np.errstate(divide="ignore", invalid="ignore"):
+        quadratic = np.where(
+            (loading_rate > 0) & (two_body > 0), 4.0 * two_body * loading_rate, 0.0
+        )
+        root = np.sqrt(loss_rate**2 + quadratic)
+        total = loss_rate + root
         n_plus = np.where(
             total > 0, 2.0 * loading_rate / total, np.where(loading_rate > 0, np.inf, 0.0)
         )

@@ -41,32 +41,39 @@ _CHUNK = 1 << 14
 class Validity(enum.IntFlag):
     """Reasons why a sample lies outside the model's region of validity (bit mask).
 
+    Each member carries its own one-line ``__doc__`` (set from ``_FLAG_DOCS``).
+
     0 (``OK``) means every condition holds. Where a flag says there is no
     trap, the model returns zero atoms, zero fluorescence, zero loading rate,
     zero peak density and cloud radius, and the loss-limited loading time.
     """
 
     OK = 0
-    """Every condition of validity holds."""
     NO_POWER = enum.auto()
-    """No cooling light (beam power or saturation is zero): no atoms."""
     BLUE_DETUNING = enum.auto()
-    """Detuning >= 0: the light heats instead of cooling; no atoms, temperature inf."""
     NO_GRADIENT = enum.auto()
-    """Zero field gradient: an optical molasses slows atoms but does not trap them; no atoms."""
     NO_CAPTURE = enum.auto()
-    """The force stops no atom inside the light (capture velocity 0): no atoms."""
     NO_VAPOR = enum.auto()
-    """Zero vapor density: nothing to load; no atoms."""
     CENTRE_IN_DARK = enum.auto()
-    """The field zero lies where there is no cooling light (offset or bias too large): no atoms."""
     NO_REPUMP = enum.auto()
-    """The cycling line leaks and there is no repump light: atoms go dark; no atoms."""
     NO_LOSS = enum.auto()
-    """No loss process at all: the atom number grows without bound (inf)."""
     OUTSIDE_RANGE = enum.auto()
-    """At least one input lies outside its valid range (the result is extrapolated)."""
 
+
+_FLAG_DOCS = {
+    "OK": "Every condition of validity holds.",
+    "NO_POWER": "No cooling light (beam power or saturation is zero): no atoms.",
+    "BLUE_DETUNING": "Detuning >= 0 (or within 1e-6 Gamma of 0): no cooling, no atoms, T = inf.",
+    "NO_GRADIENT": "Zero gradient: a molasses slows atoms but does not trap them; no atoms.",
+    "NO_CAPTURE": "The force stops no atom inside the light (capture velocity 0): no atoms.",
+    "NO_VAPOR": "Zero vapor density: nothing to load; no atoms.",
+    "CENTRE_IN_DARK": "The field zero lies outside the light (large offset or bias): no atoms.",
+    "NO_REPUMP": "The cycling line leaks and there is no repump light: atoms go dark; no atoms.",
+    "NO_LOSS": "No loss process at all: the atom number grows without bound (inf).",
+    "OUTSIDE_RANGE": "An input lies outside its valid range (the result is extrapolated).",
+}
+for _name, _doc in _FLAG_DOCS.items():
+    Validity[_name].__doc__ = _doc
 
 _NO_TRAP = (
     Validity.NO_POWER
@@ -381,7 +388,10 @@ class VaporCellMOT:
         out["validity"] = np.empty(n, dtype=np.int64)
         for start in range(0, n, _CHUNK):
             stop = min(n, start + _CHUNK)
-            part = self._evaluate_flat({k: a[start:stop] for k, a in flat.items()})
+            # extreme but valid inputs may overflow to inf (e.g. a vanishing gradient moves the
+            # trap centre to infinity); every such inf is then handled as a limit below
+            with np.errstate(over="ignore", under="ignore"):
+                part = self._evaluate_flat({k: a[start:stop] for k, a in flat.items()})
             for key, value in part.items():
                 out[key][start:stop] = value
         return {key: value.reshape(shape) for key, value in out.items()}
@@ -412,6 +422,9 @@ class VaporCellMOT:
         radial = field.radial_gradient(axial)
 
         power, waist, detuning = x["beam_power"], x["beam_waist"], x["detuning"]
+        # red of resonance by more than 1e-6 linewidths: otherwise no cooling (honest limit)
+        cools = detuning < -1e-6 * sp.linewidth_hz
+        cooling_detuning = np.where(cools, detuning, 0.0)
         aperture, imbalance = x["aperture_radius"], x["beam_imbalance"]
         i_sat = sp.saturation_intensity * x["saturation_scale"]
         peak_saturation = light.peak_intensity(power, waist) / i_sat
@@ -436,7 +449,7 @@ class VaporCellMOT:
         radius = capture.capture_radius(waist, aperture)
         v_capture = capture.capture_velocity(
             peak_saturation,
-            detuning,
+            cooling_detuning,
             waist=waist,
             capture_radius=radius,
             gradient=radial,
@@ -465,7 +478,7 @@ class VaporCellMOT:
 
         temp = cooling.temperature(
             s_total,
-            detuning,
+            cooling_detuning,
             gamma,
             sub_doppler_coefficient=x["sub_doppler_coefficient"],
             recoil_temperature=sp.recoil_temperature,
@@ -485,10 +498,10 @@ class VaporCellMOT:
         )
 
         flags[~(peak_saturation > 0)] |= Validity.NO_POWER
-        flags[~(detuning < 0)] |= Validity.BLUE_DETUNING
+        flags[~cools] |= Validity.BLUE_DETUNING
         flags[~(axial > 0)] |= Validity.NO_GRADIENT
         flags[~(density > 0)] |= Validity.NO_VAPOR
-        flags[(v_capture <= 0) & (peak_saturation > 0) & (detuning < 0)] |= Validity.NO_CAPTURE
+        flags[(v_capture <= 0) & (peak_saturation > 0) & cools] |= Validity.NO_CAPTURE
         flags[~(s_beam > 0) & (peak_saturation > 0)] |= Validity.CENTRE_IN_DARK
         flags[(leak > 0) & ~(x["repump_power"] > 0)] |= Validity.NO_REPUMP
         no_trap = (flags & int(_NO_TRAP)) != 0
