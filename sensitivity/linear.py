@@ -34,9 +34,9 @@ from scipy import stats
 
 from trapbudget.models.protocol import ModelError
 from trapbudget.sensitivity.errors import ScenarioError
-from trapbudget.sensitivity.propagate import numerical_tolerance
+from trapbudget.sensitivity.propagate import numerical_tolerance, select_outputs
 from trapbudget.sensitivity.protocol import as_model, model_name
-from trapbudget.sensitivity.sampling import check_correlation, is_distribution
+from trapbudget.sensitivity.sampling import check_correlation, split_inputs
 
 __all__ = ["compare_linear_monte_carlo", "jacobian", "linear_propagation"]
 
@@ -81,14 +81,7 @@ def jacobian(
         result = model.evaluate(columns)
     except ModelError as error:
         raise ScenarioError(f"model {model_name(model)}: {error}") from error
-    keep = [o for o in result if o != "validity"] if outputs is None else list(outputs)
-    missing = [o for o in keep if o not in result]
-    if missing:
-        raise ScenarioError(
-            f"model {model_name(model)} has no output {missing[0]!r}; outputs are "
-            f"{', '.join(result)}",
-            key="outputs.names",
-        )
+    keep = select_outputs(model, result, outputs)
     jac = np.zeros((len(keep), d))
     nominal = {}
     for i, out in enumerate(keep):
@@ -139,8 +132,7 @@ def linear_propagation(
         ``coverage_factor``, ``units_<output>``, ``units_<input>``.
     """
     model = as_model(model, input_names=inputs)
-    uncertain = {k: v for k, v in inputs.items() if is_distribution(v)}
-    fixed = {k: float(v) for k, v in inputs.items() if not is_distribution(v)}
+    uncertain, fixed = split_inputs(inputs)
     names = list(uncertain)
     u = np.array([float(dist.std()) for dist in uncertain.values()])
     x0 = {k: float(dist.mean()) for k, dist in uncertain.items()}

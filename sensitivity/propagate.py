@@ -30,7 +30,7 @@ from numpy.typing import ArrayLike
 from trapbudget.models.protocol import ModelError
 from trapbudget.sensitivity.errors import ScenarioError
 from trapbudget.sensitivity.protocol import BoundModel, as_model, evaluate_in_chunks, model_name
-from trapbudget.sensitivity.sampling import Method, is_distribution, sample_inputs
+from trapbudget.sensitivity.sampling import Method, sample_inputs, split_inputs
 
 __all__ = [
     "ModelValidityWarning",
@@ -38,6 +38,7 @@ __all__ = [
     "numerical_tolerance",
     "propagate",
     "propagate_adaptive",
+    "select_outputs",
     "summarize",
 ]
 
@@ -60,20 +61,7 @@ def _seed_attr(rng: Any) -> int | None:
 
 
 def _split_inputs(model: Any, inputs: Mapping[str, Any]):
-    uncertain: dict[str, Any] = {}
-    fixed: dict[str, float] = {}
-    for name, value in inputs.items():
-        if is_distribution(value):
-            uncertain[name] = value
-        else:
-            try:
-                fixed[name] = float(value)
-            except (TypeError, ValueError):
-                raise ScenarioError(
-                    f"input {name!r}: {value!r} is neither a frozen scipy.stats distribution "
-                    "nor a number",
-                    key=f"inputs.{name}",
-                ) from None
+    uncertain, fixed = split_inputs(inputs)
     unknown = [name for name in inputs if name not in model.inputs]
     if unknown:
         raise ScenarioError(
@@ -82,6 +70,27 @@ def _split_inputs(model: Any, inputs: Mapping[str, Any]):
             key=f"inputs.{unknown[0]}",
         )
     return uncertain, fixed
+
+
+def select_outputs(
+    model: Any, results: Mapping[str, Any], outputs: Sequence[str] | None
+) -> list[str]:
+    """Names of the outputs to keep (default all but ``validity``); unknown names raise.
+
+    Raises
+    ------
+    ScenarioError
+        For a name the model did not return.
+    """
+    keep = [o for o in results if o != "validity"] if outputs is None else list(outputs)
+    missing = [name for name in keep if name not in results]
+    if missing:
+        raise ScenarioError(
+            f"model {model_name(model)} has no output {missing[0]!r}; outputs are "
+            f"{', '.join(o for o in results if o != 'validity')}",
+            key="outputs.names",
+        )
+    return keep
 
 
 def _evaluate(model, columns, *, n_samples, chunk_size, progress):
@@ -168,14 +177,7 @@ def propagate(
     results = _evaluate(
         runner, columns, n_samples=n_samples, chunk_size=chunk_size, progress=progress
     )
-    keep = list(results) if outputs is None else list(outputs)
-    missing = [name for name in keep if name not in results]
-    if missing:
-        raise ScenarioError(
-            f"model {model_name(model)} has no output {missing[0]!r}; outputs are "
-            f"{', '.join(results)}",
-            key="outputs.names",
-        )
+    keep = select_outputs(model, results, outputs)
     if "validity" in results and "validity" not in keep:
         keep.append("validity")
 

@@ -40,6 +40,7 @@ __all__ = [
     "is_power_of_two",
     "rank_correlation_to_copula",
     "sample_inputs",
+    "split_inputs",
     "transform",
     "unit_design",
 ]
@@ -256,6 +257,31 @@ def sample_inputs(
         check_correlation(correlation, list(uncertain))
     values = transform(points, list(uncertain.values()), correlation=correlation)
     return {name: values[:, j] for j, name in enumerate(uncertain)}
+
+
+def split_inputs(inputs: Mapping[str, Any]) -> tuple[dict[str, Any], dict[str, float]]:
+    """Split ``inputs`` into (name -> distribution, name -> fixed float).
+
+    Raises
+    ------
+    ScenarioError
+        For a value that is neither a frozen distribution nor a number.
+    """
+    uncertain: dict[str, Any] = {}
+    fixed: dict[str, float] = {}
+    for name, value in inputs.items():
+        if is_distribution(value):
+            uncertain[name] = value
+            continue
+        try:
+            fixed[name] = float(value)
+        except (TypeError, ValueError):
+            raise ScenarioError(
+                f"{value!r} is neither a frozen scipy.stats distribution nor a number; give "
+                "e.g. scipy.stats.norm(4e-3, 8e-5) or 4e-3",
+                key=f"inputs.{name}",
+            ) from None
+    return uncertain, fixed
 
 
 def is_distribution(value: Any) -> bool:
