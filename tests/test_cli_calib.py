@@ -1,0 +1,194 @@
+"""`trapbudget calibrate` and `trapbudget diagnose` on the invented demo data, in-process."""
+
+from __future__ import annotations
+
+import json
+import shutil
+from importlib import resources
+from pathlib import Path
+
+import pytest
+
+from trapbudget.examples import make_demo_data
+from trapbudget.sensitivity.cli import main
+from trapbudget.sensitivity.scenario import load_scenario
+
+FREE = (
+    "loading_prefactor,vapor_loss_coefficient,background_loss_coefficient,"
+    "sub_doppler_coefficient,detector_efficiency"
+)
+CALIBRATION_FILES = (
+    "harrier-loading-curves.csv",
+    "harrier-detuning-scan.csv",
+    "harrier-time-of-flight.csv",
+)
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory) -> Path:
+    """The shipped demo files, copied to a scratch folder."""
+    folder = tmp_path_factory.mktemp("demo")
+    package = resources.files("trapbudget.examples")
+    for name in (
+        "harrier-rb87.toml",
+        "harrier-log-mapping.toml",
+        "harrier-week-log.csv",
+        *CALIBRATION_FILES,
+    ):
+        with resources.as_file(package / name) as source:
+            shutil.copyfile(source, folder / name)
+    return folder
+
+
+def run_json(capsys, argv: list[str]) -> dict:
+    code = main(argv)
+    captured = capsys.readouterr()
+    assert code == 0, captured.err
+    return json.loads(captured.out)
+
+
+@pytest.fixture(scope="module")
+def calibrated(demo, tmp_path_factory):
+    out = tmp_path_factory.mktemp("calibration") / "report"
+    argv = [
+        "calibrate",
+        str(demo / "harrier-rb87.toml"),
+        *[str(demo / n) for n in CALIBRATION_FILES],
+        "--free",
+        FREE,
+        "--out",
+        str(out),
+        "--json",
+    ]
+    return argv, out
+
+
+def test_calibrate_recovers_the_constants_the_demo_was_made_with(capsys, calibrated):
+    argv, out = calibrated
+    result = run_json(capsys, argv)
+    constants = result["constants"]
+    for name, true in make_demo_data.TRUE_CONSTANTS.items():
+        entry = constants[name]
+        assert entry["fitted"]
+        # 4 standard uncertainties (normal tail 6e-5); the demo data are model + noise
+        assert abs(entry["value"] - true) < 4 * entry["uncertainty"], name
+    # the background loss is negligible beside the vapor loss at this vapor density: the
+    # data cannot determine it, and the output says so instead of quoting a number
+    assert not constants["background_loss_coefficient"]["fitted"]
+    assert any("background_loss_coefficient" in line for line in result["flat_directions"])
+    assert (out / "report.html").is_file() and (out / "calibration.nc").is_file()
+    html = (out / "report.html").read_text(encoding="utf-8")
+    assert "Calibration to measurements" in html and "laser-safety officer" in html
+    # the calibrated scenario is a scenario like any other
+    calibrated_scenario = load_scenario(result["calibrated_scenario"])
+    dist = calibrated_scenario.inputs["loading_prefactor"]
+    assert float(dist.mean()) == pytest.approx(constants["loading_prefactor"]["value"], rel=1e-9)
+    assert float(dist.std()) == pytest.approx(
+        constants["loading_prefactor"]["uncertainty"], rel=1e-9
+    )
+
+
+def test_calibrate_is_reproducible(capsys, calibrated, tmp_path):
+    argv, _ = calibrated
+    first = run_json(capsys, argv)
+    again = run_json(capsys, [*argv[:-3], "--out", str(tmp_path / "again"), "--json"])
+    for result in (first, again):
+        result.pop("report")
+        result.pop("calibrated_scenario")
+    assert first == again
+
+
+def test_diagnose_flags_the_injected_fault_day(capsys, demo, calibrated, tmp_path):
+    argv, out = calibrated
+    if not (out / "harrier-rb87-calibrated.toml").is_file():
+        run_json(capsys, argv)
+    result = run_json(
+        capsys,
+        [
+            "diagnose",
+            str(out / "harrier-rb87-calibrated.toml"),
+            str(demo / "harrier-week-log.csv"),
+            "--mapping",
+            str(demo / "harrier-log-mapping.toml"),
+            "--out",
+            str(tmp_path / "d"),
+            "--json",
+        ],
+    )
+    assert result["flagged_days"] == ["2026-11-27"]  # make_demo_data.FAULT_DAY = 4
+    assert make_demo_data.FAULT_DAY == 4
+    assert result["ranking"][0]["channel"] == "lock_error"  # the slipping lock
+    assert result["ignored_columns"] == ["lab_humidity"]
+    for day in result["days"]:
+        total = sum(day["attribution"].values())
+        assert total == pytest.approx(day["predicted_change"], rel=1e-9, abs=1e-3)
+    assert (tmp_path / "d" / "figures" / "drift-attribution.png").is_file()
+
+
+@pytest.mark.parametrize(
+    ("argv", "match"),
+    [
+        (
+            [
+                "calibrate",
+                "{demo}/harrier-rb87.toml",
+                "{demo}/absent.csv",
+                "--free",
+                "loading_prefactor",
+            ],
+            "DataError: .*absent.csv: file not found",
+        ),
+        (
+            [
+                "calibrate",
+                "{demo}/harrier-rb87.toml",
+                "{demo}/harrier-detuning-scan.csv",
+                "--free",
+                "loading_prefator",
+            ],
+            "ScenarioError: .*did you mean 'loading_prefactor'",
+        ),
+        (
+            ["calibrate", "{demo}/harrier-rb87.toml", "{demo}/harrier-detuning-scan.csv"],
+            "ScenarioError: .*calibration.free: no constants to fit",
+        ),
+        (
+            [
+                "diagnose",
+                "{demo}/harrier-rb87.toml",
+                "{demo}/harrier-week-log.csv",
+                "--false-alarm-rate",
+                "2",
+            ],
+            "DataError: false_alarm_rate 2.0 must lie in",
+        ),
+        (
+            [
+                "diagnose",
+                "{demo}/harrier-rb87.toml",
+                "{demo}/harrier-week-log.csv",
+                "--mapping",
+                "{demo}/absent.toml",
+            ],
+            "DataError: .*mapping file not found",
+        ),
+    ],
+)
+def test_bad_input_is_one_line_and_exit_1(capsys, demo, argv, match, tmp_path):
+    import re
+
+    argv = [a.format(demo=demo) for a in argv] + ["--out", str(tmp_path / "x")]
+    assert main(argv) == 1
+    err = capsys.readouterr().err.strip()
+    assert "\n" not in err and "Traceback" not in err
+    assert re.search(match, err)
+
+
+def test_demo_data_regenerate_identically(tmp_path):
+    # the shipped files are exactly what make_demo_data writes (fixed seed)
+    written = make_demo_data.main(tmp_path)
+    package = resources.files("trapbudget.examples")
+    for path in written:
+        assert path.read_bytes() == (package / path.name).read_bytes(), path.name
+    text = (tmp_path / "harrier-week-log.csv").read_text(encoding="utf-8")
+    assert text.startswith("# INVENTED DEMO DATA")
