@@ -41,7 +41,6 @@ import datetime as _dt
 import difflib
 import math
 import os
-import re
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -52,7 +51,7 @@ import xarray as xr
 from scipy import stats
 
 from trapbudget.sensitivity.errors import DataError, ScenarioError
-from trapbudget.sensitivity.measurements import convert, registry
+from trapbudget.sensitivity.measurements import convert, parse_header, registry
 
 try:
     import tomllib
@@ -69,7 +68,6 @@ __all__ = [
     "shapley_attribution",
 ]
 
-_HEADER = re.compile(r"^\s*(?P<name>[A-Za-z_][A-Za-z0-9_]*)\s*(?:\[(?P<unit>[^\]]*)\])?\s*$")
 MAX_CHANNELS = 16
 
 UNMONITORED_HINT = (
@@ -143,18 +141,7 @@ def read_log(path: str | os.PathLike[str]) -> LogTable:
     if not lines:
         raise DataError("no header line; add 'timestamp,name [unit],...'", path=where)
     reader = csv.reader(lines)
-    header = next(reader)
-    names: list[str] = []
-    units: dict[str, str] = {}
-    for cell in header:
-        match = _HEADER.match(cell)
-        if match is None:
-            raise DataError(
-                f"header cell {cell!r} is not 'name [unit]'; write e.g. 'coil_current [A]'",
-                path=where,
-            )
-        names.append(match["name"])
-        units[match["name"]] = (match["unit"] or "").strip()
+    names, units = parse_header(next(reader), where=where, example="coil_current [A]")
     if "timestamp" not in names:
         raise DataError("no 'timestamp' column; add ISO 8601 timestamps", path=where)
     stamps: list[np.datetime64] = []

@@ -74,6 +74,7 @@ __all__ = [
     "fit_loading_curve",
     "fit_time_of_flight",
     "loading_curve",
+    "parse_header",
     "read_measurements",
     "registry",
     "time_of_flight_radius",
@@ -327,19 +328,8 @@ def read_measurements(path: str | os.PathLike[str], *, model: Any | None = None)
             "no header line found; add 'name [unit],...' after the comments", path=where
         )
     reader = csv.reader(lines[start:])
-    header = next(reader)
-    names: list[str] = []
-    written: dict[str, str] = {}
-    for cell in header:
-        match = _HEADER.match(cell)
-        if match is None:
-            raise DataError(
-                f"header cell {cell!r} is not 'name [unit]'; write e.g. 'beam_power [mW]'",
-                path=where,
-            )
-        name = match["name"]
-        if name in written:
-            raise DataError(f"column {name!r} appears twice; keep one", path=where)
+    names, written = parse_header(next(reader), where=where, example="beam_power [mW]")
+    for name in names:
         if not _is_known(name, model):
             choices = [*list(KNOWN_UNITS), "time"]
             if model is not None:
@@ -349,8 +339,6 @@ def read_measurements(path: str | os.PathLike[str], *, model: Any | None = None)
             raise DataError(
                 f"column {name!r} is not a model input, output or 'time'{hint}", path=where
             )
-        names.append(name)
-        written[name] = (match["unit"] or "").strip()
     raw: list[list[float]] = []
     for row_number, row in enumerate(reader, start=start + 2):
         if not row or all(not cell.strip() for cell in row):
@@ -409,6 +397,33 @@ def read_measurements(path: str | os.PathLike[str], *, model: Any | None = None)
         path=file,
         skipped_rows=skipped,
     )
+
+
+def parse_header(
+    cells: Sequence[str], *, where: str, example: str
+) -> tuple[list[str], dict[str, str]]:
+    """Split header cells ``name [unit]`` into names and units as written.
+
+    Raises
+    ------
+    DataError
+        A cell that is not ``name [unit]`` (the message shows ``example``), or
+        a name that appears twice.
+    """
+    names: list[str] = []
+    units: dict[str, str] = {}
+    for cell in cells:
+        match = _HEADER.match(cell)
+        if match is None:
+            raise DataError(
+                f"header cell {cell!r} is not 'name [unit]'; write e.g. {example!r}", path=where
+            )
+        name = match["name"]
+        if name in units:
+            raise DataError(f"column {name!r} appears twice; keep one", path=where)
+        names.append(name)
+        units[name] = (match["unit"] or "").strip()
+    return names, units
 
 
 def _parse_setting(text: str, unit: str | None, where: str) -> float:
