@@ -47,6 +47,11 @@ _LIMITS = (
 )
 
 
+def _plain_text(text: str) -> str:
+    """Text for matplotlib with '$' shown literally (not as mathtext)."""
+    return str(text).replace("$", r"\$")
+
+
 def _options(ds: xr.Dataset) -> list[str]:
     return [str(u) for u in ds["upgrade"].values] if "upgrade" in ds.dims else ["after"]
 
@@ -185,7 +190,13 @@ def distribution_figure(ds: xr.Dataset, output: str) -> bytes:
         ax.plot(base * scale, levels, color=GREY, lw=1.6, label="before")
         for k, option in enumerate(_options(ds)[: len(colors)]):
             after = _pick(ds, option)["quantiles_after"].sel(output=output).values
-            ax.plot(np.asarray(after) * scale, levels, color=colors[k], lw=1.2, label=option)
+            ax.plot(
+                np.asarray(after) * scale,
+                levels,
+                color=colors[k],
+                lw=1.2,
+                label=_plain_text(option),
+            )
         text = output.replace("_", " ")
         ax.set_xlabel(f"{text} ({label})" if label and label != "1" else text)
         ax.set_ylabel("fraction of runs below")
@@ -201,7 +212,9 @@ def benefit_figure(ds: xr.Dataset) -> bytes:
         fig, ax = plt.subplots(figsize=(6.0, 3.6))
         ax.scatter(costs, benefit, color=BLUE, zorder=3)
         for name, x, y in zip(_options(ds), costs, benefit, strict=True):
-            ax.annotate(name, (x, y), xytext=(4, 4), textcoords="offset points", fontsize=7)
+            ax.annotate(
+                _plain_text(name), (x, y), xytext=(4, 4), textcoords="offset points", fontsize=7
+            )
         ax.axhline(0.0, color=GREY, lw=0.8)
         ax.set_xlabel(f"cost ({ds.attrs.get('currency', '')})".replace(" ()", ""))
         ax.set_ylabel(str(ds.attrs.get("benefit_metric", "benefit")))

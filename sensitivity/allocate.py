@@ -29,6 +29,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
+import xarray as xr
 from scipy import optimize, stats
 
 from trapbudget.sensitivity.errors import ScenarioError
@@ -570,25 +571,23 @@ class Allocation:
     feasible: bool
     reason: str
     total_cost: float
-    spec: object
-    requirements: object
+    spec: xr.Dataset
+    requirements: xr.Dataset
     tolerances: Mapping[str, object]
     scenario: object | None = None
-    samples: object | None = None
+    samples: xr.Dataset | None = None
     iterations: int = 0
     history: tuple[tuple[float, bool], ...] = ()
 
     @property
     def blocking_input(self) -> str:
         """Input named as blocking an infeasible requirement ('' if feasible)."""
-        return str(self.spec.attrs.get("blocking_input", ""))  # type: ignore[attr-defined]
+        return str(self.spec.attrs.get("blocking_input", ""))
 
-    def to_dataset(self):
+    def to_dataset(self) -> xr.Dataset:
         """Spec sheet and requirement checks merged into one Dataset (dims input, requirement)."""
-        import xarray as xr
-
         ds = xr.merge([self.spec, self.requirements], combine_attrs="override")
-        ds.attrs = {**self.requirements.attrs, **self.spec.attrs}  # type: ignore[attr-defined]
+        ds.attrs = {**self.requirements.attrs, **self.spec.attrs}
         return ds
 
 
@@ -990,8 +989,6 @@ def _result(
     history,
     max_loosen,
 ) -> Allocation:
-    import xarray as xr
-
     names = list(scenario.inputs)
     tol = scenario.tolerances
     tolerances = tolerances or {}

@@ -436,3 +436,30 @@ def test_trap_allocation_holds_up_in_an_independent_monte_carlo_sample():
         claimed_se = math.sqrt(max(claimed * (1 - claimed), 1.0 / 1024) / 1024)
         assert p >= req.probability - 4 * se
         assert p == pytest.approx(claimed, abs=4 * math.hypot(se, claimed_se))
+
+
+def test_within_requirement_is_allocated_and_holds_in_an_independent_sample():
+    # two-sided requirement P(9.5 <= Y <= 10.6) >= 0.9 on the linear-Gaussian model;
+    # exact probability of the allocation from scipy.stats.norm.cdf
+    scenario = _linear_scenario(limit=[9.5, 10.6], costs=SMOOTH, kind="within", probability=0.9)
+    allocation = allocate(scenario)
+    assert allocation.feasible, allocation.reason
+    u = {n: t.standard_uncertainty for n, t in allocation.scenario.tolerances.items()}
+    sd = math.sqrt(sum((B[n] * u[n]) ** 2 for n in u))
+    exact = stats.norm.cdf(10.6, OFFSET, sd) - stats.norm.cdf(9.5, OFFSET, sd)
+    se = math.sqrt(0.9 * 0.1 / N_MC)
+    assert exact >= 0.9 - 3 * se
+    assert float(allocation.requirements["probability"].item()) == pytest.approx(exact, abs=4 * se)
+
+
+def test_relative_spread_requirement_is_allocated_to_the_limit():
+    # std(Y)/|mean| <= 2 %: for the linear model std = sqrt(sum b^2 u^2) exactly (references.md)
+    scenario = _linear_scenario(
+        limit=0.02, costs=SMOOTH, kind="relative_spread_at_most", probability=None
+    )
+    allocation = allocate(scenario, max_loosen=100.0)
+    assert allocation.feasible, allocation.reason
+    u = {n: t.standard_uncertainty for n, t in allocation.scenario.tolerances.items()}
+    spread = math.sqrt(sum((B[n] * u[n]) ** 2 for n in u)) / OFFSET
+    # at or just inside the limit: the refinement stops within rtol = 2 %
+    assert 0.02 * (1 - 0.03) <= spread <= 0.02 * (1 + 1.0 / math.sqrt(N_MC))

@@ -214,3 +214,19 @@ def test_spec_on_the_invented_upgrade_example(tmp_path, capsys):
     md = (tmp_path / "h" / "report.md").read_text(encoding="utf-8")
     assert "| Input | Present | Required | Headroom | Tier | Cost | Set by |" in md
     assert "laser-safety officer" in md
+
+
+def test_compare_report_escapes_names(tmp_path, capsys):
+    # autoescape (Jinja2): an upgrade named like markup must render as text
+    text = (
+        _write(tmp_path)
+        .read_text(encoding="utf-8")
+        .replace('name = "halve x2"', 'name = "<script>alert(1)</script>"')
+    )
+    path = tmp_path / "escape.toml"
+    path.write_text(text, encoding="utf-8")
+    code, _, err = _run(capsys, ["compare", path, "--quiet", "--out", tmp_path / "e"])
+    assert code == 0, err
+    html = (tmp_path / "e" / "report.html").read_text(encoding="utf-8")
+    assert "&lt;script&gt;alert(1)&lt;/script&gt;" in html
+    assert "<script>alert(1)</script>" not in html

@@ -224,3 +224,27 @@ def test_compare_upgrades_ranks_by_exact_probability_gain_per_cost():
 def test_compare_upgrades_without_upgrades_is_refused():
     with pytest.raises(ScenarioError, match=r"no upgrades to compare; add \[\[upgrades\]\]"):
         compare_upgrades(_scenario())
+
+
+def test_a_different_component_changes_the_variance_as_its_coefficient_predicts():
+    # "after" swaps in a component with half the sensitivity to x1 (a different model):
+    # Var removed = (b1^2 - (b1/2)^2) u1^2 (linear model, references.md [F])
+    before = _scenario()
+    after = Scenario.from_dict(
+        {
+            **{k: v for k, v in before.to_dict().items() if k != "scenario"},
+            "scenario": {
+                "title": "after: less sensitive component",
+                "model": "linear",
+                "options": {"coefficients": dict(LIN, x1=1.0), "offset": OFFSET},
+            },
+        }
+    )
+    ds = compare(before, after)
+    var = sum((LIN[k] * s) ** 2 for k, s in {"x1": 0.2, "x2": 0.3, "x3": 0.4}.items())
+    expected = (LIN["x1"] ** 2 - 1.0) * 0.2**2
+    assert float(ds["variance_removed"].item()) == pytest.approx(
+        expected, abs=5 * math.sqrt(2.0 / N) * var
+    )
+    # mean change = (b1' - b1) * mean(x1 samples): zero up to the sample mean's error u1/sqrt(n)
+    assert float(ds["mean_change"].item()) == pytest.approx(0.0, abs=5 * 0.2 / math.sqrt(N))
