@@ -123,6 +123,9 @@ def test_diagnose_flags_the_injected_fault_day(capsys, demo, calibrated, tmp_pat
         total = sum(day["attribution"].values())
         assert total == pytest.approx(day["predicted_change"], rel=1e-9, abs=1e-3)
     assert (tmp_path / "d" / "figures" / "drift-attribution.png").is_file()
+    markdown = (tmp_path / "d" / "report.md").read_text(encoding="utf-8")
+    assert "## Day-to-day drift" in markdown and "FLAGGED" in markdown
+    assert "laser-safety officer" in markdown
 
 
 @pytest.mark.parametrize(
