@@ -84,6 +84,7 @@ _TOP_KEYS = (
     "costs",
     "upgrades",
     "calibration",
+    "diagnosis",
 )
 _SCENARIO_KEYS = ("title", "description", "species", "model", "currency", "options")
 _INPUT_KEYS = (
@@ -321,6 +322,9 @@ class Scenario:
     costs : dict name -> CostModel
     upgrades : tuple of Upgrade
     calibration : dict
+        The ``[calibration]`` table (``free``: constants to fit; other keys as written).
+    diagnosis : dict
+        The ``[diagnosis]`` table as written (log-column mapping, read by diagnose).
     groups : dict name -> str
     source : Path or None
     sha256 : str
@@ -351,6 +355,7 @@ class Scenario:
     costs: dict[str, CostModel] = field(default_factory=dict)
     upgrades: tuple[Upgrade, ...] = ()
     calibration: dict[str, Any] = field(default_factory=dict)
+    diagnosis: dict[str, Any] = field(default_factory=dict)
     groups: dict[str, str] = field(default_factory=dict)
     source: Path | None = None
     sha256: str = ""
@@ -379,6 +384,7 @@ class Scenario:
                 "costs": self.costs,
                 "upgrades": self.upgrades,
                 "calibration": self.calibration,
+                "diagnosis": self.diagnosis,
                 "groups": self.groups,
                 "fixed": self.fixed,
                 "currency": self.currency,
@@ -488,6 +494,7 @@ class Scenario:
             costs=costs,
             upgrades=upgrades,
             calibration=calibration,
+            diagnosis=dict(_table(data.get("diagnosis"), path=path, key="diagnosis")),
             groups=groups,
             source=None if path is None else Path(path),
             sha256=sha256,
@@ -562,6 +569,8 @@ class Scenario:
             ]
         if self.calibration:
             data["calibration"] = copy.deepcopy(self.calibration)
+        if self.diagnosis:
+            data["diagnosis"] = copy.deepcopy(self.diagnosis)
         return data
 
     def _written_requirement(self, req: Requirement) -> dict[str, Any]:

@@ -299,3 +299,22 @@ def test_custom_model_object():
     assert s.fixed == {"b": 2.0}
     np.testing.assert_allclose(s.inputs["a"].std(), 0.1)
     assert s.with_tolerances({"a": Tolerance(nominal=1.0, value=0.2)}).inputs["a"].std() == 0.2
+
+
+def test_diagnosis_table_is_kept_and_written_back(tmp_path):
+    extra = textwrap.dedent(
+        """
+        [diagnosis]
+        output = "atom_number"
+        [diagnosis.columns.coil_current]
+        input = "gradient"
+        scale = "4 G/cm/A"
+        """
+    )
+    file = tmp_path / "diag.toml"
+    file.write_text(TOML + extra)
+    s = load_scenario(file)
+    assert s.diagnosis["columns"]["coil_current"] == {"input": "gradient", "scale": "4 G/cm/A"}
+    again = tmp_path / "again.toml"
+    again.write_text(scenario_to_toml(s))
+    assert load_scenario(again) == s and load_scenario(again).diagnosis == s.diagnosis
