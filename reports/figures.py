@@ -18,7 +18,7 @@ import matplotlib.pyplot as plt
 import numpy as np
 import xarray as xr
 
-from trapbudget.reports.formatting import display_scale, units_of
+from trapbudget.reports.formatting import display_scale, main_index, units_of
 
 __all__ = [
     "budget_figure",
@@ -87,7 +87,8 @@ def histogram_figure(samples: xr.Dataset, summary: xr.Dataset, output: str) -> b
     with plt.rc_context(_STYLE):
         fig, ax = plt.subplots(figsize=(5.6, 3.0))
         if values.size:
-            ax.hist(values * factor, bins=60, color=LIGHT_BLUE, edgecolor=BLUE, linewidth=0.4)
+            bins = int(np.clip(np.sqrt(values.size), 10, 60))
+            ax.hist(values * factor, bins=bins, color=LIGHT_BLUE, edgecolor=BLUE, linewidth=0.4)
         low, high = float(row["interval_low"]), float(row["interval_high"])
         level = summary.attrs.get("confidence_level", 0.95)
         ax.axvspan(low * factor, high * factor, color=BLUE, alpha=0.08, lw=0)
@@ -126,13 +127,14 @@ def budget_figure(budget: xr.Dataset, output: str, *, top: int = 12) -> bytes:
     )
     with plt.rc_context(_STYLE):
         fig, ax = plt.subplots(figsize=(5.6, 0.9 + 0.32 * len(names)))
-        total = np.asarray(row["total_order"].values, dtype=float)
+        key, label = main_index(budget)
+        total = np.asarray(row[key].values, dtype=float)
         first = np.asarray(row["first_order"].values, dtype=float)
         colours = [GREY if f else BLUE for f in floor]
-        ax.barh(y + 0.18, total, height=0.34, color=colours, label="total order")
+        ax.barh(y + 0.18, total, height=0.34, color=colours, label=label)
         ax.barh(y - 0.18, first, height=0.34, color=LIGHT_BLUE, label="first order")
         for lo_key, hi_key, centre, dy in (
-            ("total_order_low", "total_order_high", total, 0.18),
+            (f"{key}_low", f"{key}_high", total, 0.18),
             ("first_order_low", "first_order_high", first, -0.18),
         ):
             if lo_key in row and hi_key in row:
@@ -141,7 +143,7 @@ def budget_figure(budget: xr.Dataset, output: str, *, top: int = 12) -> bytes:
                 err = np.vstack([np.clip(centre - lo, 0, None), np.clip(hi - centre, 0, None)])
                 ax.errorbar(centre, y + dy, xerr=err, fmt="none", ecolor="#222222", lw=0.8)
         ax.set_yticks(y, [n.replace("_", " ") for n in names])
-        ax.set_xlabel(f"Sobol' index (bars: {100 * level:.0f} % confidence interval)")
+        ax.set_xlabel(f"sensitivity index (lines: {100 * level:.0f} % confidence interval)")
         ax.set_xlim(left=min(0.0, float(np.nanmin(np.r_[first, 0.0]))))
         ax.legend(loc="lower right")
         ax.set_title(f"What drives {output.replace('_', ' ')}")

@@ -10,6 +10,7 @@ __all__ = [
     "format_number",
     "format_percent",
     "format_quantity",
+    "main_index",
     "output_unit",
     "units_of",
 ]
@@ -157,3 +158,18 @@ def output_unit(name: str, *datasets) -> str:
             if unit:
                 return unit
     return ""
+
+
+def main_index(budget) -> tuple[str, str]:
+    """The budget variable that ranks the inputs and its label.
+
+    ``total_order`` for Sobol' budgets; ``delta`` (moment-independent) for
+    budgets of correlated inputs, whose total-order indices are undefined.
+    """
+    import numpy as np
+
+    if "total_order" in budget and np.isfinite(np.asarray(budget["total_order"].values)).any():
+        return "total_order", "total order"
+    if "delta" in budget:
+        return "delta", "delta (moment-independent)"
+    return "first_order", "first order"

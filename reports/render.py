@@ -44,6 +44,7 @@ __all__ = [
     "Section",
     "Table",
     "Text",
+    "apply_umask",
     "build_sections",
     "load_report",
     "register_section",
@@ -242,6 +243,19 @@ def _write_rendered(folder: Path, rendered: RenderedReport) -> None:
     atomic_write_text(folder / "report.md", rendered.markdown)
 
 
+def apply_umask(path: str | os.PathLike[str]) -> None:
+    """Give ``path`` (and everything below it) the usual permissions under the umask.
+
+    Temporary files and folders are created private (0600/0700); a finished
+    report should be as readable as any file the user writes.
+    """
+    mask = os.umask(0)
+    os.umask(mask)
+    root = Path(path)
+    for item in [root, *root.rglob("*")] if root.is_dir() else [root]:
+        os.chmod(item, (0o777 if item.is_dir() else 0o666) & ~mask)
+
+
 def _is_report_folder(folder: Path) -> bool:
     return (folder / "study.json").is_file() or not any(folder.iterdir())
 
@@ -284,6 +298,7 @@ def write_report(
         if scenario_file is not None and Path(scenario_file).is_file():
             shutil.copyfile(scenario_file, tmp / Path(scenario_file).name)
         _write_rendered(tmp, render_report(datasets, study, extra_sections=extra_sections))
+        apply_umask(tmp)
         if out.exists():
             old = out.with_name(f".{out.name}.old-{os.getpid()}")
             os.replace(out, old)
@@ -328,4 +343,5 @@ def rerender_report(
     folder = Path(folder)
     datasets, study = load_report(folder)
     _write_rendered(folder, render_report(datasets, study, extra_sections=extra_sections))
+    apply_umask(folder)
     return datasets, study, folder

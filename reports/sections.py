@@ -22,11 +22,19 @@ from trapbudget.reports.formatting import (
     format_number,
     format_percent,
     format_quantity,
+    main_index,
     output_unit,
 )
 from trapbudget.reports.render import Figure, Section, Table, Text
 
-__all__ = ["CLOSING_BUILDERS", "CORE_BUILDERS", "SAFETY_CAUTIONS", "budget_rows", "summary_rows"]
+__all__ = [
+    "CLOSING_BUILDERS",
+    "CORE_BUILDERS",
+    "SAFETY_CAUTIONS",
+    "budget_columns",
+    "budget_rows",
+    "summary_rows",
+]
 
 Datasets = Mapping[str, xr.Dataset]
 
@@ -231,10 +239,18 @@ def _ci(ds: xr.Dataset, key: str) -> str:
     return value
 
 
+def budget_columns(budget: xr.Dataset) -> list[str]:
+    """Column titles of :func:`budget_rows` for this budget (Sobol' or given-data)."""
+    _, label = main_index(budget)
+    middle = ["Total order", "Interaction"] if label == "total order" else [label.capitalize()]
+    return ["Rank", "Input", "First order", *middle, "sqrt(variance share)", "Linear |c| u"]
+
+
 def budget_rows(
     budget: xr.Dataset, output: str, *, unit: str = "", top: int | None = None
 ) -> list[list[str]]:
     """Rows of one output's ranked budget: rank, input, indices, contributions in output units."""
+    key, label = main_index(budget)
     row = budget.sel(output=output)
     order = np.argsort(np.asarray(row["rank"].values, dtype=float), kind="stable")
     if top is not None:
@@ -245,22 +261,35 @@ def budget_rows(
         item = row.isel(input=int(i))
         share = _flt(item["variance_share"]) if "variance_share" in item else math.nan
         if math.isnan(share) and not math.isnan(std):
-            share = _flt(item["total_order"]) * std**2
+            share = _flt(item[key]) * std**2
         floor = bool(item["below_noise_floor"]) if "below_noise_floor" in item else False
-        rows.append(
-            [
-                str(int(_flt(item["rank"]))),
-                str(item["input"].values) + (" (noise floor)" if floor else ""),
-                _ci(item, "first_order"),
-                _ci(item, "total_order"),
-                format_index(item["interaction"]) if "interaction" in item else "",
-                _q(math.sqrt(share), unit) if share >= 0 else "nan",
-                _q(item["uncertainty_contribution"], unit)
-                if "uncertainty_contribution" in item
-                else "",
-            ]
-        )
+        cells = [
+            str(int(_flt(item["rank"]))),
+            str(item["input"].values) + (" (noise floor)" if floor else ""),
+            _ci(item, "first_order"),
+            _ci(item, key),
+        ]
+        if label == "total order":
+            cells.append(format_index(item["interaction"]) if "interaction" in item else "")
+        cells.append(_q(math.sqrt(share), unit) if share >= 0 else "nan")
+        contribution = item.get("uncertainty_contribution")
+        cells.append("" if contribution is None else _q(contribution, unit))
+        rows.append(cells)
     return rows
+
+
+_SOBOL_TEXT = (
+    "Inputs ranked by their total-order Sobol' index: the fraction of the output's variance "
+    "that would vanish if that input were known exactly (first order: its effect alone; "
+    "interaction: total minus first)."
+)
+_GIVEN_DATA_TEXT = (
+    "The scenario correlates some inputs, and Sobol' total-order indices assume independent "
+    "inputs, so this budget comes from one correlated sample: the full first-order index "
+    "Var(E[Y|Xi])/Var(Y) (correlations included: a drift shared by two inputs counts for "
+    "both) and the moment-independent delta index (Borgonovo 2007), by which the inputs are "
+    "ranked."
+)
 
 
 def budget_section(datasets: Datasets, study: Mapping[str, Any]) -> Section | None:
@@ -268,34 +297,19 @@ def budget_section(datasets: Datasets, study: Mapping[str, Any]) -> Section | No
     if budget is None:
         return None
     level = format_percent(budget.attrs.get("confidence_level", 0.95), digits=0)
+    _, label = main_index(budget)
     blocks: list[Any] = [
+        Text(_SOBOL_TEXT if label == "total order" else _GIVEN_DATA_TEXT),
         Text(
-            "Inputs ranked by their total-order Sobol' index: the fraction of the output's "
-            "variance "
-            "that would vanish if that input were known exactly (first order: its effect alone; "
-            "interaction: total minus first). The last two columns are in output units: the "
-            "square "
-            "root of the input's share of the variance (total order x variance), and the linear "
-            f"(GUM) contribution |c| u at the nominal point. Brackets: {level} bootstrap "
-            "confidence "
-            "intervals. Inputs whose index is indistinguishable from that of a dummy input "
-            "the model "
-            "ignores are marked as being at the noise floor."
-        )
+            "The last two columns are in output units: the square root of the input's share of "
+            "the variance (index x variance), and the linear (GUM) contribution |c| u at the "
+            f"nominal point. Brackets: {level} bootstrap confidence intervals. Inputs whose "
+            "index is indistinguishable from that of a dummy input the model ignores are marked "
+            "as being at the noise floor."
+        ),
     ]
-    if budget.attrs.get("indices_method") or budget.attrs.get("correlated"):
-        blocks.append(
-            Text(
-                str(
-                    budget.attrs.get(
-                        "indices_method",
-                        "Correlated inputs: indices from given-data "
-                        "methods on the correlated sample.",
-                    )
-                ),
-                kind="note",
-            )
-        )
+    if budget.attrs.get("first_order_meaning"):
+        blocks.append(Text(f"First order here: {budget.attrs['first_order_meaning']}.", "note"))
     for name in _outputs({"budget": budget}):
         unit = _unit(datasets, name)
         blocks.append(
@@ -305,20 +319,13 @@ def budget_section(datasets: Datasets, study: Mapping[str, Any]) -> Section | No
                 caption=f"Ranked indices of {name}.",
             )
         )
+        columns = budget_columns(budget)
         blocks.append(
             Table(
-                [
-                    "Rank",
-                    "Input",
-                    "First order",
-                    "Total order",
-                    "Interaction",
-                    "sqrt(variance share)",
-                    "Linear |c| u",
-                ],
+                columns,
                 budget_rows(budget, name, unit=unit),
                 caption=f"Error budget of {name}",
-                numeric=[True, False, True, True, True, True, True],
+                numeric=[c != "Input" for c in columns],
             )
         )
     return Section("Error budget", blocks)
@@ -392,66 +399,59 @@ def _cell(value: Any, unit: str = "") -> str:
     return str(arr)
 
 
-def _dataset_table(
-    ds: xr.Dataset, dim: str, *, caption: str = "", units: Mapping[str, str] | None = None
-) -> Table:
-    """A table of every variable along ``dim`` (one row per label), for Datasets of open schema."""
-    names = [str(v) for v in ds.data_vars if ds[v].dims == (dim,)]
-    columns = [dim] + [n.replace("_", " ") for n in names]
-    rows = []
-    for label in ds[dim].values:
-        item = ds.sel({dim: label})
-        unit = (units or {}).get(str(label), "")
-        rows.append(
-            [str(label)]
-            + [_cell(item[n], unit if ds[n].attrs.get("units") == "output" else "") for n in names]
-        )
-    return Table(columns, rows, caption=caption, numeric=[False] + [True] * len(names))
+_CHECK_COLUMNS = (
+    ("linear_std", "u linear", True),
+    ("monte_carlo_std", "u Monte Carlo", True),
+    ("std_ratio", "ratio", False),
+    ("d_low", "d low", True),
+    ("d_high", "d high", True),
+    ("numerical_tolerance", "delta", True),
+    ("validated", "linear result validated", False),
+)
 
 
 def linear_section(datasets: Datasets, study: Mapping[str, Any]) -> Section | None:
     linear, summary = datasets.get("linear"), datasets.get("summary")
     if linear is None or summary is None:
         return None
-    rows = []
-    for name in _outputs({"summary": summary}):
-        if name not in [str(o) for o in linear["output"].values]:
-            continue
-        unit = _unit(datasets, name)
-        lin_std = _flt(linear["output_std_linear"].sel(output=name))
-        mc_std = _flt(summary["std"].sel(output=name))
-        rows.append(
-            [
-                name,
-                _q(linear["output_nominal"].sel(output=name), unit),
-                _q(lin_std, unit),
-                _q(mc_std, unit),
-                format_number(lin_std / mc_std) if mc_std else "",
-            ]
-        )
+    check = datasets.get("linear_check")
+    level = format_percent(study.get("confidence_level", 0.95), digits=0)
     blocks: list[Any] = [
         Text(
             "First-order propagation (GUM, JCGM 100) at the nominal point against the Monte "
-            "Carlo result (JCGM 101). A ratio far from 1 means the model is not linear over the "
-            "tolerances, so the Monte Carlo result is the one to use."
-        ),
-        Table(
-            ["Output", "Nominal (linear)", "u linear", "u Monte Carlo", "ratio"],
-            rows,
-            numeric=[False, True, True, True, True],
-        ),
-    ]
-    check = datasets.get("linear_check")
-    if check is not None and "output" in check.dims:
-        units = {o: _unit(datasets, o) for o in _outputs(datasets)}
-        blocks.append(
-            _dataset_table(
-                check,
-                "output",
-                caption="Linear vs Monte Carlo check (JCGM 101 section 8)",
-                units=units,
-            )
+            "Carlo result (JCGM 101). The linear result is validated when both ends of its "
+            f"{level} interval lie within the numerical tolerance delta of the Monte Carlo "
+            "interval (JCGM 101 section 8); otherwise the model is not linear enough over "
+            "the tolerances and the Monte Carlo result is the one to use."
         )
+    ]
+    linear_outputs = [str(o) for o in linear["output"].values]
+    rows = []
+    for name in _outputs({"summary": summary}):
+        if name not in linear_outputs:
+            continue
+        unit = _unit(datasets, name)
+        row = [name, _q(linear["output_nominal"].sel(output=name), unit)]
+        if check is not None and name in [str(o) for o in check["output"].values]:
+            item = check.sel(output=name)
+            for key, _, in_units in _CHECK_COLUMNS:
+                if key not in item:
+                    row.append("")
+                elif in_units:
+                    row.append(_q(item[key], unit))
+                else:
+                    row.append(_cell(item[key]))
+        else:
+            lin_std = _flt(linear["output_std_linear"].sel(output=name))
+            mc_std = _flt(summary["std"].sel(output=name))
+            row += [
+                _q(lin_std, unit),
+                _q(mc_std, unit),
+                format_number(lin_std / mc_std) if mc_std else "",
+            ] + [""] * 4
+        rows.append(row)
+    columns = ["Output", "Nominal (linear)"] + [label for _, label, _ in _CHECK_COLUMNS]
+    blocks.append(Table(columns, rows, numeric=[False] + [True] * (len(columns) - 1)))
     return Section("Linear check", blocks)
 
 
@@ -482,38 +482,78 @@ def convergence_section(datasets: Datasets, study: Mapping[str, Any]) -> Section
     return Section("Convergence", blocks)
 
 
+def _requirement_rows(reqs: xr.Dataset) -> list[list[str]]:
+    rows = []
+    for label in reqs["requirement"].values:
+        item = reqs.sel(requirement=label)
+        unit = str(item["limit_units"].values) if "limit_units" in item else ""
+        kind = str(item["kind"].values) if "kind" in item else ""
+        lo = _flt(item["limit_low"]) if "limit_low" in item else math.nan
+        hi = _flt(item["limit_high"]) if "limit_high" in item else math.nan
+        if kind == "relative_spread_at_most":
+            limit = format_percent(hi, digits=2)
+        elif math.isfinite(lo) and math.isfinite(hi):
+            limit = f"[{_q(lo, unit)}, {_q(hi, unit)}]"
+        else:
+            limit = _q(lo if math.isfinite(lo) else hi, unit)
+        asked = _flt(item["probability_required"]) if "probability_required" in item else math.nan
+        prob = _flt(item["probability"]) if "probability" in item else math.nan
+        se = _flt(item["standard_error"]) if "standard_error" in item else math.nan
+        if math.isfinite(prob):
+            got = format_percent(prob, digits=1) + (
+                f" +- {format_percent(se, digits=1)}" if math.isfinite(se) else ""
+            )
+        else:
+            got = ""
+        estimate = ""
+        if kind == "relative_spread_at_most" and "estimate" in item:
+            estimate = format_percent(_flt(item["estimate"]), digits=2)
+            if "estimate_low" in item and "estimate_high" in item:
+                estimate += (
+                    f" [{format_percent(_flt(item['estimate_low']), digits=2)}, "
+                    f"{format_percent(_flt(item['estimate_high']), digits=2)}]"
+                )
+        met = _cell(item["met"]) if "met" in item else ""
+        rows.append(
+            [
+                str(label),
+                str(item["output"].values) if "output" in item else "",
+                kind.replace("_", " "),
+                limit,
+                format_percent(asked, digits=0) if math.isfinite(asked) else "",
+                got,
+                estimate,
+                met,
+            ]
+        )
+    return rows
+
+
 def requirements_section(datasets: Datasets, study: Mapping[str, Any]) -> Section | None:
     reqs = datasets.get("requirements")
-    listed = study.get("requirements", [])
-    if reqs is None and not listed:
+    if reqs is None or "requirement" not in reqs.dims:
         return None
-    blocks: list[Any] = []
-    if listed:
-        blocks.append(
-            Table(
-                ["Output", "Requirement", "Limit", "Probability asked", "Label"],
-                [
-                    [
-                        r["output"],
-                        r["kind"].replace("_", " "),
-                        r["limit_text"],
-                        "" if r["probability"] is None else format_percent(r["probability"]),
-                        r["label"],
-                    ]
-                    for r in listed
-                ],
-                numeric=[False, False, True, True, False],
-            )
-        )
-    if reqs is not None and "requirement" in reqs.dims:
-        blocks.append(
-            _dataset_table(
-                reqs,
-                "requirement",
-                caption="Probability each requirement is met (fraction of "
-                "Monte Carlo samples, with its standard error)",
-            )
-        )
+    blocks: list[Any] = [
+        Text(
+            "Probability that each requirement is met: the fraction of Monte Carlo samples "
+            "meeting it, with its binomial standard error; for a spread requirement, the "
+            "estimated relative standard deviation with its interval."
+        ),
+        Table(
+            [
+                "Requirement",
+                "Output",
+                "Kind",
+                "Limit",
+                "Probability asked",
+                "Probability met",
+                "Spread estimate",
+                "Met",
+            ],
+            _requirement_rows(reqs),
+            numeric=[False, False, False, True, True, True, True, False],
+        ),
+    ]
     return Section("Requirements", blocks)
 
 

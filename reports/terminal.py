@@ -13,6 +13,7 @@ from trapbudget.reports.formatting import (
     format_index,
     format_percent,
     format_quantity,
+    main_index,
     output_unit,
 )
 
@@ -47,6 +48,7 @@ def prediction_table(linear: xr.Dataset, *, title: str = "", top: int = 3) -> Ta
 def budget_tables(summary: xr.Dataset, budget: xr.Dataset, *, top: int = 5) -> list[Table]:
     """One table per output: its Monte Carlo mean and spread, then its top drifts."""
     tables = []
+    key, label = main_index(budget)
     for name in [str(o) for o in budget["output"].values]:
         unit = output_unit(name, summary, budget)
         head = ""
@@ -60,7 +62,7 @@ def budget_tables(summary: xr.Dataset, budget: xr.Dataset, *, top: int = 5) -> l
         for column, justify in (
             ("rank", "right"),
             ("input", "left"),
-            ("total order", "right"),
+            (label, "right"),
             ("first order", "right"),
             ("sqrt(variance share)", "right"),
         ):
@@ -70,17 +72,18 @@ def budget_tables(summary: xr.Dataset, budget: xr.Dataset, *, top: int = 5) -> l
         std = float(brow["output_std"]) if "output_std" in brow else float("nan")
         for i in order:
             item = brow.isel(input=int(i))
-            total = float(item["total_order"])
-            share = float(item["variance_share"]) if "variance_share" in item else total * std**2
+            total = float(item[key])
+            share = (
+                float(item["variance_share"])
+                if "variance_share" in item
+                else float(item["total_order"]) * std**2
+            )
             label = str(item["input"].values)
             if "below_noise_floor" in item and bool(item["below_noise_floor"]):
                 label += " (noise floor)"
             ci = ""
-            if "total_order_low" in item and "total_order_high" in item:
-                ci = (
-                    f" [{format_index(item['total_order_low'])}, "
-                    f"{format_index(item['total_order_high'])}]"
-                )
+            if f"{key}_low" in item and f"{key}_high" in item:
+                ci = f" [{format_index(item[f'{key}_low'])}, {format_index(item[f'{key}_high'])}]"
             table.add_row(
                 str(int(item["rank"])),
                 label,

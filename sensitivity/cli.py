@@ -200,6 +200,57 @@ def _add_demo(subparsers: argparse._SubParsersAction) -> None:
     p.set_defaults(run=_run_demo)
 
 
+def _add_calibrate(subparsers: argparse._SubParsersAction) -> None:
+    p = subparsers.add_parser(
+        "calibrate",
+        help="fit model constants to measurements; write a calibrated scenario",
+        description="Fit the scenario's free model constants ([calibration] free, or --free) "
+        "to measurement files (CSV with units in the header: steady-state rows, loading "
+        "curves, time of flight) and write a report and the calibrated scenario.",
+    )
+    p.add_argument("scenario", type=Path, help="scenario TOML file")
+    p.add_argument("data", type=Path, nargs="+", metavar="DATA", help="measurement CSV files")
+    p.add_argument("--free", default=None, metavar="A,B", help="constants to fit, comma-separated")
+    p.add_argument("--robust", action="store_true", help="soft-L1 loss (outlier-tolerant)")
+    p.add_argument("--two-body", action="store_true", help="fit loading curves with two-body loss")
+    add_common_options(p)
+    p.set_defaults(run=_run_calibrate)
+
+
+def _add_diagnose(subparsers: argparse._SubParsersAction) -> None:
+    p = subparsers.add_parser(
+        "diagnose",
+        help="attribute day-to-day atom-number changes in a log to the monitored channels",
+        description="Predict the atom number for each log entry with the (calibrated) model, "
+        "split each day's change against a reference period over the monitored channels, "
+        "and flag days the channels do not explain.",
+    )
+    p.add_argument("scenario", type=Path, help="(calibrated) scenario TOML file")
+    p.add_argument("log", type=Path, help="monitoring log CSV (timestamp + channels)")
+    p.add_argument(
+        "--mapping",
+        type=Path,
+        default=None,
+        metavar="FILE",
+        help="TOML file with the [diagnosis] column-to-input mapping",
+    )
+    p.add_argument(
+        "--reference",
+        default="first-day",
+        metavar="DAY",
+        help="reference period: 'first-day' (default), YYYY-MM-DD or START:END",
+    )
+    p.add_argument(
+        "--false-alarm-rate",
+        type=float,
+        default=0.01,
+        metavar="A",
+        help="probability per day of flagging a day with nothing unmonitored (default 0.01)",
+    )
+    add_common_options(p, seed=False)
+    p.set_defaults(run=_run_diagnose)
+
+
 def _add_spec(subparsers: argparse._SubParsersAction) -> None:
     p = subparsers.add_parser(
         "spec",
@@ -261,57 +312,6 @@ def _positive_rate(text: str) -> float:
     if not value > 0:
         raise argparse.ArgumentTypeError(f"{text!r} must be a positive rate in Hz")
     return value
-
-
-def _add_calibrate(subparsers: argparse._SubParsersAction) -> None:
-    p = subparsers.add_parser(
-        "calibrate",
-        help="fit model constants to measurements; write a calibrated scenario",
-        description="Fit the scenario's free model constants ([calibration] free, or --free) "
-        "to measurement files (CSV with units in the header: steady-state rows, loading "
-        "curves, time of flight) and write a report and the calibrated scenario.",
-    )
-    p.add_argument("scenario", type=Path, help="scenario TOML file")
-    p.add_argument("data", type=Path, nargs="+", metavar="DATA", help="measurement CSV files")
-    p.add_argument("--free", default=None, metavar="A,B", help="constants to fit, comma-separated")
-    p.add_argument("--robust", action="store_true", help="soft-L1 loss (outlier-tolerant)")
-    p.add_argument("--two-body", action="store_true", help="fit loading curves with two-body loss")
-    add_common_options(p)
-    p.set_defaults(run=_run_calibrate)
-
-
-def _add_diagnose(subparsers: argparse._SubParsersAction) -> None:
-    p = subparsers.add_parser(
-        "diagnose",
-        help="attribute day-to-day atom-number changes in a log to the monitored channels",
-        description="Predict the atom number for each log entry with the (calibrated) model, "
-        "split each day's change against a reference period over the monitored channels, "
-        "and flag days the channels do not explain.",
-    )
-    p.add_argument("scenario", type=Path, help="(calibrated) scenario TOML file")
-    p.add_argument("log", type=Path, help="monitoring log CSV (timestamp + channels)")
-    p.add_argument(
-        "--mapping",
-        type=Path,
-        default=None,
-        metavar="FILE",
-        help="TOML file with the [diagnosis] column-to-input mapping",
-    )
-    p.add_argument(
-        "--reference",
-        default="first-day",
-        metavar="DAY",
-        help="reference period: 'first-day' (default), YYYY-MM-DD or START:END",
-    )
-    p.add_argument(
-        "--false-alarm-rate",
-        type=float,
-        default=0.01,
-        metavar="A",
-        help="probability per day of flagging a day with nothing unmonitored (default 0.01)",
-    )
-    add_common_options(p, seed=False)
-    p.set_defaults(run=_run_diagnose)
 
 
 #: Functions that each add one sub-parser; append yours to add a subcommand.
@@ -508,8 +508,10 @@ def _rank_and_report(scenario: Any, args: argparse.Namespace, *, stem: str) -> i
             second_order=args.second_order,
             task=task,
         )
-    written = write_report(out, datasets=datasets, study=study, scenario_file=scenario.source)
     result = study_json(datasets, study)
+    written = write_report(
+        out, datasets=datasets, study=study, result=result, scenario_file=scenario.source
+    )
     if args.json:
         emit_json({**result, "report": str(written)})
         return 0
@@ -547,6 +549,8 @@ def run_study(
 
     settings = scenario.settings
     seed = settings.seed if seed is None else seed
+    if seed is None:  # draw one, and record it, so the study can be repeated
+        seed = int(np.random.SeedSequence().entropy % 2**32)
     n = settings.n_samples if n_samples is None else n_samples
     outputs = list(scenario.outputs)
     # One seed, independent streams for the Monte Carlo and the Saltelli design.
@@ -568,6 +572,7 @@ def run_study(
         outputs=outputs,
         progress=task("Monte Carlo"),
         nominal=scenario.nominal,
+        chunk_size=int(getattr(settings, "chunk_size", 65536)),
     )
     summary = summarize(samples, outputs=outputs, confidence_level=settings.confidence_level)
     check = compare_linear_monte_carlo(linear, summary)
@@ -576,11 +581,13 @@ def run_study(
         scenario.inputs,
         n_samples=n,
         outputs=outputs,
-        second_order=second_order,
+        second_order=second_order or bool(getattr(settings, "second_order", False)),
         correlation=scenario.correlation,
         nominal=scenario.nominal,
         rng=np.random.default_rng(rank_seed),
         confidence_level=settings.confidence_level,
+        n_bootstrap=int(getattr(settings, "n_bootstrap", 200)),
+        chunk_size=int(getattr(settings, "chunk_size", 65536)),
         groups=scenario.groups or None,
         convergence=convergence,
         progress=task("Sobol' indices"),
@@ -649,6 +656,7 @@ def _demo_files() -> list[Any]:
 
 
 def _run_demo(args: argparse.Namespace) -> int:
+    from trapbudget.reports.render import apply_umask
     from trapbudget.sensitivity.io import atomic_write_bytes
 
     folder = Path(args.out) if args.out is not None else DEFAULT_DEMO_DIR
@@ -656,6 +664,7 @@ def _run_demo(args: argparse.Namespace) -> int:
         raise UsageError(f"{PROG} demo: --out {folder} is a file; give a folder")
     for item in _demo_files():
         atomic_write_bytes(folder / item.name, item.read_bytes())
+        apply_umask(folder / item.name)
     if not args.quiet and not args.json:
         print(f"Demo files (invented lab) written to {folder}/", file=sys.stderr)
     scenario = load(folder / DEMO_SCENARIO)
@@ -663,6 +672,77 @@ def _run_demo(args: argparse.Namespace) -> int:
     args.second_order = False
     args.out = folder / f"report-{Path(DEMO_SCENARIO).stem}"
     return _rank_and_report(scenario, args, stem=Path(DEMO_SCENARIO).stem)
+
+
+def _run_calibrate(args: argparse.Namespace) -> int:
+    from trapbudget.reports.calibration import calibration_json, calibration_rich_table
+    from trapbudget.reports.render import write_report
+    from trapbudget.reports.study import describe_study
+    from trapbudget.sensitivity.calibrate import calibrate
+    from trapbudget.sensitivity.io import atomic_write_text
+
+    scenario = load(args.scenario)
+    free = [n.strip() for n in args.free.split(",") if n.strip()] if args.free else None
+    cal = calibrate(
+        scenario, args.data, free=free, robust=args.robust, two_body=args.two_body, rng=args.seed
+    )
+    ds = cal.to_dataset()
+    study = describe_study(scenario, seed=args.seed, n_samples=0, datasets={})
+    result = calibration_json(ds)
+    stem = Path(args.scenario).stem
+    written = write_report(
+        report_dir(args, f"{stem}-calibration"),
+        datasets={"calibration": ds},
+        study=study,
+        result=result,
+        scenario_file=scenario.source,
+    )
+    calibrated = atomic_write_text(written / f"{stem}-calibrated.toml", cal.scenario_toml())
+    if args.json:
+        emit_json({**result, "report": str(written), "calibrated_scenario": str(calibrated)})
+        return 0
+    console = stdout_console(args)
+    if console is not None:
+        console.print(calibration_rich_table(ds))
+        console.print(f"Calibrated scenario: {calibrated}")
+        console.print(f"Report: {written / 'report.html'}")
+    return 0
+
+
+def _run_diagnose(args: argparse.Namespace) -> int:
+    from trapbudget.reports.diagnosis import diagnosis_json, diagnosis_rich_tables
+    from trapbudget.reports.render import write_report
+    from trapbudget.reports.study import describe_study
+    from trapbudget.sensitivity.diagnose import diagnose
+
+    scenario = load(args.scenario)
+    reference = args.reference.split(":") if ":" in args.reference else args.reference
+    diag = diagnose(
+        scenario,
+        args.log,
+        reference=reference,
+        mapping=args.mapping,
+        false_alarm_rate=args.false_alarm_rate,
+    )
+    ds = diag.to_dataset()
+    study = describe_study(scenario, seed=None, n_samples=0, datasets={})
+    result = diagnosis_json(ds)
+    written = write_report(
+        report_dir(args, f"{Path(args.log).stem}-diagnosis"),
+        datasets={"diagnosis": ds},
+        study=study,
+        result=result,
+        scenario_file=scenario.source,
+    )
+    if args.json:
+        emit_json({**result, "report": str(written)})
+        return 0
+    console = stdout_console(args)
+    if console is not None:
+        for item in diagnosis_rich_tables(ds):
+            console.print(item)
+        console.print(f"Report: {written / 'report.html'}")
+    return 0
 
 
 # --------------------------------------------------------------------------- spec and compare
@@ -768,77 +848,6 @@ def _run_compare(args: argparse.Namespace) -> int:
     if console is not None:
         for table in comparison_rich_tables(ds):
             console.print(table)
-        console.print(f"Report: {written / 'report.html'}")
-    return 0
-
-
-def _run_calibrate(args: argparse.Namespace) -> int:
-    from trapbudget.reports.calibration import calibration_json, calibration_rich_table
-    from trapbudget.reports.render import write_report
-    from trapbudget.reports.study import describe_study
-    from trapbudget.sensitivity.calibrate import calibrate
-    from trapbudget.sensitivity.io import atomic_write_text
-
-    scenario = load(args.scenario)
-    free = [n.strip() for n in args.free.split(",") if n.strip()] if args.free else None
-    cal = calibrate(
-        scenario, args.data, free=free, robust=args.robust, two_body=args.two_body, rng=args.seed
-    )
-    ds = cal.to_dataset()
-    study = describe_study(scenario, seed=args.seed, n_samples=0, datasets={})
-    result = calibration_json(ds)
-    stem = Path(args.scenario).stem
-    written = write_report(
-        report_dir(args, f"{stem}-calibration"),
-        datasets={"calibration": ds},
-        study=study,
-        result=result,
-        scenario_file=scenario.source,
-    )
-    calibrated = atomic_write_text(written / f"{stem}-calibrated.toml", cal.scenario_toml())
-    if args.json:
-        emit_json({**result, "report": str(written), "calibrated_scenario": str(calibrated)})
-        return 0
-    console = stdout_console(args)
-    if console is not None:
-        console.print(calibration_rich_table(ds))
-        console.print(f"Calibrated scenario: {calibrated}")
-        console.print(f"Report: {written / 'report.html'}")
-    return 0
-
-
-def _run_diagnose(args: argparse.Namespace) -> int:
-    from trapbudget.reports.diagnosis import diagnosis_json, diagnosis_rich_tables
-    from trapbudget.reports.render import write_report
-    from trapbudget.reports.study import describe_study
-    from trapbudget.sensitivity.diagnose import diagnose
-
-    scenario = load(args.scenario)
-    reference = args.reference.split(":") if ":" in args.reference else args.reference
-    diag = diagnose(
-        scenario,
-        args.log,
-        reference=reference,
-        mapping=args.mapping,
-        false_alarm_rate=args.false_alarm_rate,
-    )
-    ds = diag.to_dataset()
-    study = describe_study(scenario, seed=None, n_samples=0, datasets={})
-    result = diagnosis_json(ds)
-    written = write_report(
-        report_dir(args, f"{Path(args.log).stem}-diagnosis"),
-        datasets={"diagnosis": ds},
-        study=study,
-        result=result,
-        scenario_file=scenario.source,
-    )
-    if args.json:
-        emit_json({**result, "report": str(written)})
-        return 0
-    console = stdout_console(args)
-    if console is not None:
-        for item in diagnosis_rich_tables(ds):
-            console.print(item)
         console.print(f"Report: {written / 'report.html'}")
     return 0
 

@@ -1,0 +1,282 @@
+"""Tests of the command line (trapbudget.sensitivity.cli), run in-process through main()."""
+
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from trapbudget.sensitivity.cli import main
+
+# Ishigami function, a = 7, b = 0.1, inputs uniform on [-pi, pi] (Ishigami & Homma 1990;
+# closed-form indices in Saltelli et al. 2008, Global Sensitivity Analysis: The Primer).
+ISHIGAMI = """
+[scenario]
+title = "{title}"
+description = "Analytic test function, no apparatus."
+model = "ishigami"
+
+[inputs.x1]
+nominal = "0"
+tolerance = "3.141592653589793"
+meaning = "half-width"
+shape = "rectangular"
+
+[inputs.x2]
+nominal = "0"
+tolerance = "3.141592653589793"
+meaning = "half-width"
+shape = "rectangular"
+
+[inputs.x3]
+nominal = "0"
+tolerance = "3.141592653589793"
+meaning = "half-width"
+shape = "rectangular"
+
+[settings]
+n_samples = 1024
+method = "sobol"
+seed = 11
+"""
+
+
+def _ishigami_closed_form(a: float = 7.0, b: float = 0.1) -> tuple[np.ndarray, np.ndarray]:
+    """First- and total-order indices of the Ishigami function (Saltelli et al. 2008, Primer)."""
+    v1 = 0.5 * (1 + b * math.pi**4 / 5) ** 2
+    v2 = a**2 / 8
+    v13 = b**2 * math.pi**8 * (1 / 18 - 1 / 50)
+    var = v1 + v2 + v13
+    first = np.array([v1, v2, 0.0]) / var
+    total = np.array([v1 + v13, v2, v13]) / var
+    return first, total
+
+
+@pytest.fixture
+def ishigami_file(tmp_path: Path) -> Path:
+    path = tmp_path / "ishigami.toml"
+    path.write_text(ISHIGAMI.format(title="Ishigami check"), encoding="utf-8")
+    return path
+
+
+def _run(capsys, *argv: str) -> tuple[int, str, str]:
+    code = main(list(argv))
+    captured = capsys.readouterr()
+    return code, captured.out, captured.err
+
+
+def _one_line_error(err: str, name: str) -> str:
+    lines = err.strip().splitlines()
+    assert len(lines) == 1, err
+    assert lines[0].startswith(f"{name}: "), err
+    assert "Traceback" not in err
+    return lines[0]
+
+
+def test_unknown_subcommand_is_a_usage_error(capsys):
+    code, out, err = _run(capsys, "frobnicate")
+    assert code == 2 and out == ""
+    assert "invalid choice: 'frobnicate'" in _one_line_error(err, "UsageError")
+
+
+def test_no_subcommand_lists_them(capsys):
+    code, _, err = _run(capsys)
+    assert code == 2
+    assert "predict" in _one_line_error(err, "UsageError")
+
+
+@pytest.mark.parametrize(("value", "hint"), [("1000", "use 1024"), ("abc", "not an integer")])
+def test_bad_samples_is_a_usage_error(capsys, ishigami_file, value, hint):
+    code, out, err = _run(capsys, "rank", str(ishigami_file), "--samples", value)
+    assert code == 2 and out == ""
+    assert hint in _one_line_error(err, "UsageError")
+
+
+def test_missing_scenario_file(capsys, tmp_path):
+    code, out, err = _run(capsys, "predict", str(tmp_path / "nowhere.toml"))
+    assert code == 1 and out == ""
+    line = _one_line_error(err, "ScenarioError")
+    assert "nowhere.toml" in line and "does not exist" in line
+
+
+def test_bad_unit_names_file_key_and_fix(capsys, tmp_path):
+    text = ISHIGAMI.format(title="t").replace('nominal = "0"', 'nominal = "0 mQ"', 1)
+    (tmp_path / "bad.toml").write_text(text, encoding="utf-8")
+    code, out, err = _run(capsys, "predict", str(tmp_path / "bad.toml"))
+    assert code == 1 and out == ""
+    line = _one_line_error(err, "ScenarioError")
+    assert "bad.toml" in line and "inputs.x1" in line and "mQ" in line
+
+
+def test_unknown_input_suggests_a_close_name(capsys, tmp_path):
+    text = ISHIGAMI.format(title="t").replace("[inputs.x3]", "[inputs.x33]")
+    (tmp_path / "bad.toml").write_text(text, encoding="utf-8")
+    code, out, err = _run(capsys, "rank", str(tmp_path / "bad.toml"), "--json")
+    assert code == 1 and out == ""
+    assert "x33" in _one_line_error(err, "ScenarioError")
+
+
+def test_species_json_lists_rubidium_with_sources(capsys):
+    code, out, _ = _run(capsys, "species", "--json")
+    assert code == 0
+    rows = {row["name"]: row for row in json.loads(out)}
+    # Steck, Rubidium 87 D Line Data: D2 vacuum wavelength 780.241 nm.
+    assert rows["Rb87"]["wavelength_nm"] == pytest.approx(780.241, abs=1e-3)
+    assert rows["Rb87"]["sources"]
+
+
+def test_species_table_prints(capsys):
+    code, out, _ = _run(capsys, "species")
+    assert code == 0 and "Rb87" in out
+
+
+def test_rank_json_matches_ishigami_closed_form(capsys, ishigami_file, tmp_path):
+    code, out, err = _run(
+        capsys,
+        "rank",
+        str(ishigami_file),
+        "--json",
+        "--no-convergence",
+        "--out",
+        str(tmp_path / "r"),
+    )
+    assert code == 0, err
+    result = json.loads(out)
+    ranked = result["outputs"]["y"]["ranked_inputs"]
+    first, total = _ishigami_closed_form()
+    by_name = {r["input"]: r for r in ranked}
+    assert [r["input"] for r in ranked] == ["x1", "x2", "x3"]
+    for i, name in enumerate(("x1", "x2", "x3")):
+        # N = 1024 Saltelli design: the estimates sit within a few bootstrap widths.
+        for key, exact in (("first_order", first[i]), ("total_order", total[i])):
+            r = by_name[name]
+            width = r[f"{key}_high"] - r[f"{key}_low"]
+            assert abs(r[key] - exact) < max(width, 0.02), (name, key, r[key], exact)
+    summary = result["outputs"]["y"]["summary"]
+    # Ishigami mean a/2 = 3.5 (Saltelli et al. 2008, Primer); MC error ~ std/sqrt(n).
+    assert summary["mean"] == pytest.approx(3.5, abs=5 * summary["std"] / math.sqrt(1024))
+
+
+def test_same_seed_gives_the_same_json(capsys, ishigami_file, tmp_path):
+    args = ["rank", str(ishigami_file), "--json", "--no-convergence", "--samples", "256"]
+    _, first, _ = _run(capsys, *args, "--seed", "5", "--out", str(tmp_path / "a"))
+    _, second, _ = _run(capsys, *args, "--seed", "5", "--out", str(tmp_path / "a"))
+    _, other, _ = _run(capsys, *args, "--seed", "6", "--out", str(tmp_path / "a"))
+    assert first == second
+    assert first != other
+
+
+def test_report_rerenders_the_same_tables(capsys, ishigami_file, tmp_path):
+    out_dir = tmp_path / "rep"
+    code, ranked, err = _run(
+        capsys,
+        "rank",
+        str(ishigami_file),
+        "--json",
+        "--no-convergence",
+        "--samples",
+        "256",
+        "--out",
+        str(out_dir),
+    )
+    assert code == 0, err
+    html = (out_dir / "report.html").read_text(encoding="utf-8")
+    md = (out_dir / "report.md").read_text(encoding="utf-8")
+    for name in (
+        "samples.nc",
+        "summary.nc",
+        "budget.nc",
+        "study.json",
+        "result.json",
+        "ishigami.toml",
+        "figures",
+    ):
+        assert (out_dir / name).exists(), name
+    code, rerendered, err = _run(capsys, "report", str(out_dir), "--json")
+    assert code == 0, err
+    assert json.loads(rerendered) == json.loads(ranked)
+    assert (out_dir / "report.html").read_text(encoding="utf-8") == html
+    assert (out_dir / "report.md").read_text(encoding="utf-8") == md
+    code, _, err = _run(capsys, "rank", "--from", str(out_dir), "--quiet")
+    assert code == 0, err
+
+
+def test_report_of_a_folder_that_is_not_a_report(capsys, tmp_path):
+    code, _, err = _run(capsys, "report", str(tmp_path))
+    assert code == 2
+    assert "not a trapbudget report folder" in _one_line_error(err, "UsageError")
+
+
+def test_scenario_title_is_escaped_in_the_html(capsys, tmp_path):
+    path = tmp_path / "xss.toml"
+    path.write_text(ISHIGAMI.format(title="<script>alert(1)</script>"), encoding="utf-8")
+    code, _, err = _run(
+        capsys,
+        "rank",
+        str(path),
+        "--quiet",
+        "--no-convergence",
+        "--samples",
+        "64",
+        "--out",
+        str(tmp_path / "x"),
+    )
+    assert code == 0, err
+    html = (tmp_path / "x" / "report.html").read_text(encoding="utf-8")
+    assert "<script>" not in html and "&lt;script&gt;alert(1)&lt;/script&gt;" in html
+
+
+def test_rank_prints_tables_and_the_report_path(capsys, ishigami_file, tmp_path):
+    code, out, _ = _run(
+        capsys,
+        "rank",
+        str(ishigami_file),
+        "--no-convergence",
+        "--samples",
+        "64",
+        "--out",
+        str(tmp_path / "t"),
+    )
+    assert code == 0
+    assert "x1" in out and "report.html" in out
+
+
+def test_predict_json_is_the_gum_law_of_propagation(capsys, tmp_path):
+    # JCGM 100:2008 eq. (10): u(y)^2 = sum c_i^2 u(x_i)^2 for independent inputs.
+    path = tmp_path / "lin.toml"
+    path.write_text(
+        """
+[scenario]
+title = "linear"
+model = "linear"
+[scenario.options]
+coefficients = [2.0, -3.0]
+[inputs.x1]
+nominal = "1"
+tolerance = "0.1"
+[inputs.x2]
+nominal = "2"
+tolerance = "0.2"
+""",
+        encoding="utf-8",
+    )
+    code, out, err = _run(capsys, "predict", str(path), "--json")
+    assert code == 0, err
+    entry = next(iter(json.loads(out)["outputs"].values()))
+    assert entry["std_linear"] == pytest.approx(math.hypot(2 * 0.1, 3 * 0.2), rel=1e-6)
+    assert entry["nominal"] == pytest.approx(2 * 1 - 3 * 2, rel=1e-9)
+    assert [c["input"] for c in entry["contributions"]] == ["x2", "x1"]
+
+
+@pytest.mark.slow
+def test_demo_writes_files_and_a_report(capsys, tmp_path):
+    code, out, err = _run(capsys, "demo", "--out", str(tmp_path), "--samples", "128", "--json")
+    assert code == 0, err
+    result = json.loads(out)
+    assert (tmp_path / "harrier-rb87.toml").is_file() and (tmp_path / "README.md").is_file()
+    assert Path(result["report"], "report.html").is_file()
+    assert "atom_number" in result["outputs"]
+    assert "invented" in (tmp_path / "harrier-rb87.toml").read_text(encoding="utf-8").lower()
