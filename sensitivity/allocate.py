@@ -789,7 +789,9 @@ def allocate(
         Design (default the scenario's).
     refine : bool
         Rescale the requirement bounds from the Monte Carlo result until every
-        requirement is met (True), or only verify the linear answer (False).
+        requirement is met (True), or return the linear answer with its Monte
+        Carlo check (False: ``feasible`` then means linearly feasible, and
+        ``requirements["met"]`` says what the Monte Carlo found).
     max_iterations : int
         Monte Carlo rounds of refinement at most.
     safety_margin : float
@@ -910,6 +912,8 @@ def allocate(
                 bounds[r] = math.sqrt(max(solution.variance[r], 1e-300))
             bounds[r] *= factors[r]
 
+    if not refine and last is not None and last[3] is not None:
+        best = last  # the linear answer as it stands; its Monte Carlo check is reported
     chosen = best if best is not None else last
     problem, solution, tolerances, verified = chosen  # type: ignore[misc]
     feasible = best is not None
@@ -938,6 +942,16 @@ def allocate(
         )
     else:
         reason = f"all {len(requirements)} requirement(s) met at a cost of {solution.cost:.6g}"
+        if not refine:
+            bad = [labels[r] for r, c in enumerate(verified[2]) if not c["met"]]
+            reason = (
+                f"linear allocation at a cost of {solution.cost:.6g} (refinement off); the "
+                + (
+                    f"Monte Carlo check fails '{', '.join(bad)}': refine it"
+                    if bad
+                    else "Monte Carlo check meets every requirement"
+                )
+            )
     return _result(
         scenario,
         setup,

@@ -463,3 +463,21 @@ def test_relative_spread_requirement_is_allocated_to_the_limit():
     spread = math.sqrt(sum((B[n] * u[n]) ** 2 for n in u)) / OFFSET
     # at or just inside the limit: the refinement stops within rtol = 2 %
     assert 0.02 * (1 - 0.03) <= spread <= 0.02 * (1 + 1.0 / math.sqrt(N_MC))
+
+
+def test_without_refinement_the_linear_answer_is_the_closed_form():
+    # refine=False: exactly the Lagrange optimum of the linearized problem (derived above)
+    scenario = _linear_scenario(limit=9.0, costs=SMOOTH)
+    allocation = allocate(scenario, refine=False, max_loosen=100.0)
+    a = np.array([B["x1"] ** 2, B["x2"] ** 2])
+    budget = ((OFFSET - 9.0) / stats.norm.ppf(0.95)) ** 2 - (B["x3"] * 0.1) ** 2
+    expected = _closed_form_equal_exponent(
+        a, np.array([100.0, 300.0]), np.full(2, 0.2), 1.0, budget
+    )
+    got = [allocation.tolerances["x1"].value, allocation.tolerances["x2"].value]
+    np.testing.assert_allclose(got, expected, rtol=1e-8)
+    assert allocation.iterations == 1
+    assert "refinement off" in allocation.reason
+    # its Monte Carlo probability is the exact 0.95 within the binomial error (linear model)
+    p = float(allocation.requirements["probability"].item())
+    assert p == pytest.approx(0.95, abs=4 * math.sqrt(0.95 * 0.05 / N_MC))
