@@ -16,8 +16,10 @@ indices assume independent inputs, so the budget is computed from one
 correlated sample instead. ``first_order`` is then the *full* first-order
 index ``Var(E[Y|X_i]) / Var(Y)``, which includes the part of Y an input
 explains through the inputs it is correlated with (these can add to more than
-one); ``delta`` is Borgonovo's moment-independent index; ``total_order`` is NaN
-and ``rank`` follows ``first_order``. ``attrs["method"]`` says which applies.
+one); ``delta`` is Borgonovo's moment-independent index; ``total_order`` is NaN;
+``rank`` follows ``delta``; ``variance_share`` is ``first_order * Var(Y)``.
+The noise floor is the dummy's upper bounds on both, and an input is below
+it when both its indices are. ``attrs["method"]`` says which applies.
 """
 
 from __future__ import annotations
@@ -690,7 +692,9 @@ def _rank_given_data(
     for key in ("total_order", "total_order_low", "total_order_high", "interaction"):
         ds[key] = xr.full_like(ds["first_order"], np.nan)
     ds["interaction"].attrs["long_name"] = "not defined for correlated inputs"
-    ds["rank"] = _ranks(ds["first_order"])
+    # Rank by delta (defined for any dependence), else by the full first-order index.
+    by_delta = bool(np.isfinite(ds["delta"].values).all())
+    ds["rank"] = _ranks(ds["delta"] if by_delta else ds["first_order"])
     mean, std = y.mean(axis=0), y.std(axis=0, ddof=1)
     ds["output_mean"] = ("output", mean)
     ds["output_std"] = ("output", std)

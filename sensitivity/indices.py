@@ -246,47 +246,63 @@ class SobolResult:
     n_bootstrap: int
 
 
-def _weighted_estimates(
-    w: np.ndarray,
+def _integrands(
     a: np.ndarray,
     b: np.ndarray,
     ab: np.ndarray,
     ba: np.ndarray | None,
     estimator: str,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
-    """Estimates for weight rows ``w`` (r, n); a, b (n, m); ab, ba (k, n, m).
+) -> np.ndarray:
+    """Every per-row integrand of the estimators as columns of one (n, p) matrix.
 
-    Every expectation is ``w @ x / n``: a row of multiplicities reproduces a
-    bootstrap resample exactly, a row of ones the point estimate.
+    a, b (n, m); ab, ba (k, n, m). Column blocks: f_A + f_B, f_A^2 + f_B^2,
+    f_A f_B (m each), first-order and total-order integrands (k m each), and
+    with second order f(BA_i) f(AB_j) for every pair (k k m).
     """
-    n = a.shape[0]
-    r = w.shape[0]
-    k, _, m = ab.shape
-    # Population variance of the stacked A and B outputs (as SALib: np.var of r_[A, B]).
-    s1 = (w @ (a + b)) / (2 * n)
-    s2 = (w @ (a * a + b * b)) / (2 * n)
-    var = s2 - s1 * s1  # (r, m)
-    safe = np.where(var > np.finfo(float).eps, var, np.nan)
-    ab_flat = ab.transpose(1, 0, 2).reshape(n, k * m)  # (n, k*m)
+    n, m = a.shape
+    k = ab.shape[0]
+    ab_flat = ab.transpose(1, 0, 2).reshape(n, k * m)
     a_rep = np.tile(a, (1, k))
     b_rep = np.tile(b, (1, k))
     # First order, Saltelli et al. 2010 (Table 2, b): E[f(B) (f(AB_i) - f(A))].
-    v1 = (w @ (b_rep * (ab_flat - a_rep))).reshape(r, k, m) / n
+    first = b_rep * (ab_flat - a_rep)
     if estimator == "jansen":
         # Jansen 1999: E[(f(A) - f(AB_i))^2] / 2.
-        vt = 0.5 * (w @ ((a_rep - ab_flat) ** 2)).reshape(r, k, m) / n
+        total = 0.5 * (a_rep - ab_flat) ** 2
     else:
         # Sobol' et al. 2007: E[f(A) (f(A) - f(AB_i))].
-        vt = (w @ (a_rep * (a_rep - ab_flat))).reshape(r, k, m) / n
+        total = a_rep * (a_rep - ab_flat)
+    columns = [a + b, a * a + b * b, a * b, first, total]
+    if ba is not None:
+        columns.append(np.einsum("inm,jnm->nijm", ba, ab).reshape(n, k * k * m))
+    return np.concatenate(columns, axis=1)
+
+
+def _weighted_estimates(
+    w: np.ndarray, integrands: np.ndarray, n: int, k: int, m: int, second_order: bool
+) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
+    """Estimates for weight rows ``w`` (r, n) from :func:`_integrands`.
+
+    Every expectation is ``w @ x / n``: a row of multiplicities reproduces a
+    bootstrap resample exactly, a row of ones the point estimate; all of them
+    come from one matrix product.
+    """
+    r = w.shape[0]
+    sums = (w @ integrands) / n
+    s1, s2, ab_mean = sums[:, :m] / 2, sums[:, m : 2 * m] / 2, sums[:, 2 * m : 3 * m]
+    # Population variance of the stacked A and B outputs (as SALib: np.var of r_[A, B]).
+    var = s2 - s1 * s1  # (r, m)
+    safe = np.where(var > np.finfo(float).eps, var, np.nan)
+    start = 3 * m
+    v1 = sums[:, start : start + k * m].reshape(r, k, m)
+    vt = sums[:, start + k * m : start + 2 * k * m].reshape(r, k, m)
     first = v1 / safe[:, None, :]
     total = vt / safe[:, None, :]
     second = None
-    if ba is not None:
+    if second_order:
         # Saltelli 2002: V_ij^c = E[f(BA_i) f(AB_j) - f(A) f(B)]; S_ij = V_ij^c/V - S_i - S_j.
-        ab_w = ab[None] * w[:, None, :, None]  # (r, k, n, m)
-        cross = np.einsum("inm,rjnm->rijm", ba, ab_w, optimize=True)
-        cross = cross - (w @ (a * b))[:, None, None, :]
-        second = cross / n / safe[:, None, None, :]
+        cross = sums[:, start + 2 * k * m :].reshape(r, k, k, m) - ab_mean[:, None, None, :]
+        second = cross / safe[:, None, None, :]
         second = second - first[:, :, None, :] - first[:, None, :, :]
         idx = np.arange(k)
         second[:, idx, idx, :] = np.nan
@@ -393,8 +409,9 @@ def sobol_indices(
     if ba is not None:
         ba = (ba - centre) / scale
 
-    ones = np.ones((1, n))
-    first, total, second = _weighted_estimates(ones, a, b, ab, ba, estimator)
+    integrands = _integrands(a, b, ab, ba, estimator)
+    shape = (n, k, m, ba is not None)
+    first, total, second = _weighted_estimates(np.ones((1, n)), integrands, *shape)
     first, total = first[0], total[0]
     second = None if second is None else second[0]
 
@@ -406,7 +423,7 @@ def sobol_indices(
         nan2 = np.full_like(second, np.nan)
         so_iv, so_se = ConfidenceInterval(nan2, nan2), nan2
     if n_bootstrap:
-        samples = _bootstrap_estimates(a, b, ab, ba, n_bootstrap, rng, estimator)
+        samples = _bootstrap_estimates(integrands, shape, n_bootstrap, rng)
         z = stats.norm.ppf(0.5 + confidence_level / 2)
         fo_iv, fo_se = _interval(samples[0], first, z, confidence_level, interval)
         to_iv, to_se = _interval(samples[1], total, z, confidence_level, interval)
@@ -446,16 +463,15 @@ def resample_weights(indices: np.ndarray) -> np.ndarray:
     return np.bincount(flat, minlength=n * width).reshape(width, n).astype(float)
 
 
-def _bootstrap_estimates(a, b, ab, ba, n_bootstrap, rng, estimator):
+def _bootstrap_estimates(integrands, shape, n_bootstrap, rng):
     """Bootstrap replicates of every estimator, in blocks of resamples."""
-    n = a.shape[0]
+    n = shape[0]
     r = bootstrap_indices(n, n_bootstrap, rng)  # (n, n_bootstrap)
-    k = ab.shape[0]
-    per_block = max(1, _BOOTSTRAP_BLOCK // (n * (k if ba is not None else 1)))
+    per_block = max(1, _BOOTSTRAP_BLOCK // max(n, integrands.shape[1]))
     firsts, totals, seconds = [], [], []
     for start in range(0, n_bootstrap, per_block):
         w = resample_weights(r[:, start : start + per_block])
-        f, t, s = _weighted_estimates(w, a, b, ab, ba, estimator)
+        f, t, s = _weighted_estimates(w, integrands, *shape)
         firsts.append(f)
         totals.append(t)
         if s is not None:
