@@ -36,7 +36,7 @@ from trapbudget.models.protocol import ModelError
 from trapbudget.sensitivity.errors import ScenarioError
 from trapbudget.sensitivity.propagate import numerical_tolerance, select_outputs
 from trapbudget.sensitivity.protocol import as_model, model_name
-from trapbudget.sensitivity.sampling import check_correlation, split_inputs
+from trapbudget.sensitivity.sampling import check_correlation, copula_to_pearson, split_inputs
 
 __all__ = ["compare_linear_monte_carlo", "jacobian", "linear_propagation"]
 
@@ -100,6 +100,7 @@ def linear_propagation(
     correlation: ArrayLike | None = None,
     outputs: Sequence[str] | None = None,
     confidence_level: float = 0.95,
+    copula: bool = True,
 ) -> xr.Dataset:
     """First-order (GUM) propagation of the input uncertainties.
 
@@ -112,9 +113,12 @@ def linear_propagation(
     nominal : mapping name -> float, optional
         Estimates x_i (SI); default the means of the distributions.
     correlation : array (d, d), optional
-        Correlation of the distribution-valued inputs, in their order. (For a
-        Gaussian copula this is the normal-score correlation, used here as the
-        input correlation: exact for normal inputs.)
+        Correlation of the distribution-valued inputs, in their order: the
+        Gaussian-copula (normal-score) coefficients, as for ``propagate``. They
+        are converted to the inputs' own Pearson correlation
+        (``sampling.copula_to_pearson``), which is what the GUM combines.
+    copula : bool
+        False: ``correlation`` is already the inputs' Pearson correlation.
     outputs : sequence of str, optional
         Default every output except ``validity``.
     confidence_level : float
@@ -140,7 +144,12 @@ def linear_propagation(
         x0.update({k: float(v) for k, v in nominal.items() if k in uncertain})
     steps = {k: _STEP_FRACTION * ui if ui > 0 else 1e-12 for k, ui in zip(names, u, strict=True)}
     y0, jac, keep = jacobian(model, {**fixed, **x0}, steps, outputs=outputs)
-    matrix = np.eye(len(names)) if correlation is None else check_correlation(correlation, names)
+    if correlation is None:
+        matrix = np.eye(len(names))
+    else:
+        matrix = check_correlation(correlation, names)
+        if copula:
+            matrix = copula_to_pearson(matrix, list(uncertain.values()))
     covariance = matrix * np.outer(u, u)
     if names:
         xs = uncertainties.correlated_values([x0[k] for k in names], covariance)
@@ -204,6 +213,7 @@ def linear_propagation(
             "model": model_name(model),
             "confidence_level": float(confidence_level),
             "coverage_factor": k,
+            "input_correlation": matrix.tolist(),
             **{f"units_{o}": un for o, un in zip(keep, output_units, strict=True)},
             **{f"units_{n}": un for n, un in zip(names, input_units, strict=True)},
         },

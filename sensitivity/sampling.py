@@ -22,6 +22,7 @@ W. H. Kruskal, "Ordinal measures of association", J. Am. Stat. Assoc. 53, 814 (1
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping, Sequence
 from typing import Any, Literal
 
@@ -36,6 +37,7 @@ __all__ = [
     "METHODS",
     "Method",
     "check_correlation",
+    "copula_to_pearson",
     "is_distribution",
     "is_power_of_two",
     "rank_correlation_to_copula",
@@ -225,6 +227,62 @@ def transform(
     out = np.empty_like(points)
     for j, dist in enumerate(distributions):
         out[:, j] = dist.ppf(points[:, j])
+    return out
+
+
+def copula_to_pearson(
+    correlation: ArrayLike, distributions: Sequence[Any], *, order: int = 96
+) -> np.ndarray:
+    """Pearson correlation of the inputs implied by a Gaussian copula and the marginals.
+
+    Parameters
+    ----------
+    correlation : array (d, d)
+        Gaussian-copula (normal-score) correlation.
+    distributions : sequence of d frozen scipy.stats distributions
+        The marginals.
+    order : int
+        Gauss-Hermite order of the two-dimensional quadrature.
+
+    Returns
+    -------
+    numpy.ndarray (d, d)
+        ``corr(F_i^-1(Phi(z_i)), F_j^-1(Phi(z_j)))`` with ``corr(z_i, z_j)`` the
+        copula coefficient; equal to it for normal marginals.
+
+    Notes
+    -----
+    ``E[g_i(z_1) g_j(r z_1 + sqrt(1 - r^2) z_2)]`` over independent standard
+    normals by the tensor Gauss-Hermite rule (probabilists' weights), with the
+    means and variances from the same rule. For uniform marginals the result
+    is ``(6/pi) arcsin(r/2)`` (Pearson 1907; Kruskal 1958).
+    """
+    matrix = check_correlation(correlation)
+    d = matrix.shape[0]
+    if len(distributions) != d:
+        raise ValueError(f"{d} x {d} correlation but {len(distributions)} distributions")
+    nodes, weights = np.polynomial.hermite_e.hermegauss(order)
+    weights = weights / weights.sum()
+
+    def g(dist: Any, z: np.ndarray) -> np.ndarray:
+        return dist.ppf(np.clip(stats.norm.cdf(z), _EDGE, 1.0 - _EDGE))
+
+    values = [g(dist, nodes) for dist in distributions]
+    means = [float(weights @ v) for v in values]
+    stds = [
+        math.sqrt(max(float(weights @ (v - m) ** 2), 0.0))
+        for v, m in zip(values, means, strict=True)
+    ]
+    out = np.eye(d)
+    for i in range(d):
+        for j in range(i + 1, d):
+            r = matrix[i, j]
+            if r == 0 or stds[i] == 0 or stds[j] == 0:
+                continue
+            second = r * nodes[:, None] + math.sqrt(1.0 - r * r) * nodes[None, :]
+            gj = g(distributions[j], second)
+            cross = float(weights @ ((values[i] - means[i])[:, None] * (gj - means[j])) @ weights)
+            out[i, j] = out[j, i] = cross / (stds[i] * stds[j])
     return out
 
 
