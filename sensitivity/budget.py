@@ -395,8 +395,8 @@ def rank(
     n_samples : int
         Base size N of the Saltelli design, a power of two: the model runs
         N(d+2) times, N(2d+2) with second order, plus N per group. With
-        ``method="delta"`` (or a correlation) the model runs N(d+2) times
-        on one correlated sample.
+        ``method="delta"`` (or a correlation) the model runs on one
+        correlated Sobol' sample of N times d+2 rounded up to a power of two.
     outputs : sequence of str, optional
         Outputs to analyse (default: every float output of the model).
     second_order : bool, default False
@@ -486,32 +486,31 @@ def rank(
         if np.allclose(correlation, np.eye(len(names))):
             correlation = None
     runner = _Runner(model, names, list(uncertain.values()), fixed, outputs, chunk_size, progress)
+    max_samples = 16 * n_samples if max_samples is None else check_power_of_two(max_samples)
+    loop = {"convergence": convergence, "tolerance": tolerance, "max_samples": max_samples}
     if method == "delta" or correlation is not None:
         ds = _rank_given_data(
             runner,
-            n_samples * (len(names) + 2),
+            n_samples,
             correlation=correlation,
             dummy=dummy,
             confidence_level=confidence_level,
             n_bootstrap=n_bootstrap,
             rng=generator,
+            **loop,
         )
-        ds.attrs["n_samples"] = n_samples
     else:
-        max_samples = 16 * n_samples if max_samples is None else check_power_of_two(max_samples)
         ds = _rank_sobol(
             runner,
             n_samples,
             second_order=second_order,
             groups=group_map,
             dummy=dummy,
-            convergence=convergence,
-            tolerance=tolerance,
-            max_samples=max_samples,
             confidence_level=confidence_level,
             n_bootstrap=n_bootstrap,
             rng=generator,
             estimator=estimator,
+            **loop,
         )
     _add_linear(ds, model, inputs, nominal, correlation, runner.outputs)
     counts = _validity_counts(model, np.concatenate(runner.validity) if runner.validity else None)
@@ -527,6 +526,44 @@ def rank(
     for name in ds.data_vars:
         if name.startswith(("first_order", "total_order", "delta", "group_", "second_order")):
             ds[name].attrs.setdefault("units", "1")
+    return ds
+
+
+def _converge(
+    step: Callable[[int], xr.Dataset],
+    n_samples: int,
+    *,
+    convergence: bool,
+    tolerance: float,
+    max_samples: int,
+) -> xr.Dataset:
+    """Run ``step(n_new)`` (adds n_new base samples, returns the budget so far).
+
+    One step without ``convergence``; else double N until the budget settles
+    (Sarrazin, Pianosi & Wagener 2016) or the next step would pass
+    ``max_samples``.
+    """
+    history = [step(n_samples)]
+    n_total = n_samples
+    converged = not convergence
+    while convergence:
+        if len(history) >= 2 and _settled(history[-2], history[-1], tolerance):
+            converged = True
+            break
+        if 2 * n_total > max_samples:
+            warnings.warn(
+                f"rank: the indices did not settle (interval width <= {tolerance} and a "
+                f"stable ranking) by n_samples = {n_total}; raise max_samples or tolerance",
+                BudgetConvergenceWarning,
+                stacklevel=4,
+            )
+            break
+        history.append(step(n_total))
+        n_total *= 2
+    ds = history[-1]
+    if convergence:
+        _add_history(ds, history)
+    ds.attrs["converged"] = bool(converged)
     return ds
 
 
@@ -547,16 +584,18 @@ def _rank_sobol(
 ) -> xr.Dataset:
     d = len(runner.names)
     width = d + (1 if dummy else 0)
+    # One sequence for all steps: the first 2^m points, then the next 2^m, and so on,
+    # so that each step reuses every earlier model run.
     engine = qmc.Sobol(d=2 * width, scramble=True, rng=rng)
     factors = [(j,) for j in range(d)]
     group_factors = [tuple(runner.names.index(m) for m in members) for members in groups.values()]
     parts: dict[str, list[np.ndarray]] = {}
-    history: list[xr.Dataset] = []
-    n_total = 0
-    converged = not convergence
-    while True:
-        base = engine.random(n_samples if n_total == 0 else n_total)
-        new = base.shape[0]
+
+    def joined(key: str, axis: int) -> np.ndarray | None:
+        return np.concatenate(parts[key], axis=axis) if key in parts else None
+
+    def step(new: int) -> xr.Dataset:
+        base = engine.random(new)
         design = design_from_base(
             np.column_stack([base[:, :d], base[:, width : width + d]]),
             factors=factors,
@@ -576,13 +615,8 @@ def _rank_sobol(
         for key, value in pieces.items():
             if value is not None:
                 parts.setdefault(key, []).append(value)
-        n_total += new
-
-        def joined(key: str, axis: int) -> np.ndarray | None:
-            return np.concatenate(parts[key], axis=axis) if key in parts else None
-
         dummy_samples = np.concatenate([joined("dA", 0), joined("dB", 0)]) if dummy else None
-        ds = analyze_budget(
+        return analyze_budget(
             joined("A", 0),
             joined("B", 0),
             joined("AB", 1),
@@ -598,37 +632,31 @@ def _rank_sobol(
             rng=rng,
             estimator=estimator,
         )
-        history.append(ds)
-        if not convergence:
-            break
-        if len(history) >= 2 and _settled(history[-2], ds, tolerance):
-            converged = True
-            break
-        if 2 * n_total > max_samples:
-            warnings.warn(
-                f"rank: the indices did not settle (interval width <= {tolerance} and a "
-                f"stable ranking) by n_samples = {n_total}; raise max_samples or tolerance",
-                BudgetConvergenceWarning,
-                stacklevel=3,
-            )
-            break
-    if convergence:
-        _add_history(ds, history)
-    ds.attrs["converged"] = bool(converged)
-    return ds
+
+    return _converge(
+        step, n_samples, convergence=convergence, tolerance=tolerance, max_samples=max_samples
+    )
+
+
+_INDEX_KEYS = ("first_order", "total_order", "delta")
 
 
 def _max_width(ds: xr.Dataset) -> float:
-    widths = [ds[f"{k}_high"] - ds[f"{k}_low"] for k in ("first_order", "total_order")]
-    return float(np.nanmax([np.nanmax(w.values) for w in widths]))
+    widths = [
+        np.nanmax((ds[f"{k}_high"] - ds[f"{k}_low"]).values)
+        for k in _INDEX_KEYS
+        if k in ds and np.isfinite(ds[k].values).any()
+    ]
+    return float(max(widths))
 
 
 def _ordering(ds: xr.Dataset) -> list[tuple[str, ...]]:
+    """Inputs above the noise floor in rank order, per output."""
     out = []
     for name in ds["output"].values:
         sub = ds.sel(output=name)
         keep = ~sub["below_noise_floor"].values
-        order = np.argsort(-np.nan_to_num(sub["total_order"].values, nan=-np.inf), kind="stable")
+        order = np.argsort(sub["rank"].values, kind="stable")
         out.append(tuple(str(sub["input"].values[i]) for i in order if keep[i]))
     return out
 
@@ -639,9 +667,10 @@ def _settled(previous: xr.Dataset, current: xr.Dataset, tolerance: float) -> boo
 
 def _add_history(ds: xr.Dataset, history: Sequence[xr.Dataset]) -> None:
     ds.coords["step_n_samples"] = ("step", [h.attrs["n_samples"] for h in history])
-    for key in ("first_order", "total_order"):
-        ds[f"history_{key}"] = xr.concat([h[key] for h in history], dim="step")
-        ds[f"history_{key}"].attrs.update(units="1", long_name=f"{key} at each step")
+    for key in _INDEX_KEYS:
+        if key in ds:
+            ds[f"history_{key}"] = xr.concat([h[key] for h in history], dim="step")
+            ds[f"history_{key}"].attrs.update(units="1", long_name=f"{key} at each step")
     ds["history_max_width"] = ("step", [_max_width(h) for h in history])
     ds["history_max_width"].attrs.update(
         units="1", long_name="widest bootstrap interval at each step"
@@ -650,10 +679,13 @@ def _add_history(ds: xr.Dataset, history: Sequence[xr.Dataset]) -> None:
 
 def _rank_given_data(
     runner: _Runner,
-    n_points: int,
+    n_samples: int,
     *,
     correlation: np.ndarray | None,
     dummy: bool,
+    convergence: bool,
+    tolerance: float,
+    max_samples: int,
     confidence_level: float,
     n_bootstrap: int,
     rng: np.random.Generator,
@@ -662,21 +694,47 @@ def _rank_given_data(
 
     d = len(runner.names)
     width = d + (1 if dummy else 0)
-    n_points = 1 << int(np.ceil(np.log2(n_points)))
-    unit = qmc.Sobol(d=width, scramble=True, rng=rng).random(n_points)
-    phys = transform(unit[:, :d], runner.distributions, correlation=correlation)
-    y = runner.evaluate_physical(phys)
-    phys = np.column_stack([phys, unit[:, d:]])
+    # Points per base sample: the Saltelli design's d + 2, up to a power of two.
+    per_sample = 1 << int(np.ceil(np.log2(d + 2)))
+    engine = qmc.Sobol(d=width, scramble=True, rng=rng)
     names = [*runner.names, *([DUMMY] if dummy else [])]
-    table = delta_indices(
-        phys,
-        y,
-        input_names=names,
-        output_names=runner.outputs,
-        confidence_level=confidence_level,
-        n_bootstrap=n_bootstrap,
-        rng=rng,
+    parts: dict[str, list[np.ndarray]] = {"x": [], "y": []}
+
+    def step(new: int) -> xr.Dataset:
+        unit = engine.random(new * per_sample)
+        phys = transform(unit[:, :d], runner.distributions, correlation=correlation)
+        parts["y"].append(runner.evaluate_physical(phys))
+        parts["x"].append(np.column_stack([phys, unit[:, d:]]))
+        x, y = np.concatenate(parts["x"]), np.concatenate(parts["y"])
+        ds = _given_data_budget(
+            delta_indices(
+                x,
+                y,
+                input_names=names,
+                output_names=runner.outputs,
+                confidence_level=confidence_level,
+                n_bootstrap=n_bootstrap,
+                rng=rng,
+            ),
+            y,
+            runner,
+            dummy=dummy,
+        )
+        ds.attrs.update(
+            n_samples=int(x.shape[0] // per_sample),
+            n_points=int(x.shape[0]),
+            confidence_level=float(confidence_level),
+            n_bootstrap=int(n_bootstrap),
+        )
+        return ds
+
+    return _converge(
+        step, n_samples, convergence=convergence, tolerance=tolerance, max_samples=max_samples
     )
+
+
+def _given_data_budget(table: xr.Dataset, y: np.ndarray, runner: _Runner, *, dummy: bool):
+    """Budget columns from the given-data indices of the inputs and the dummy."""
     ds = table.sel(input=runner.names)
     if dummy:
         floor = np.maximum(table["first_order_high"].sel(input=DUMMY).values, 0.0)
@@ -703,10 +761,6 @@ def _rank_given_data(
     _unit_attrs(ds, _units(runner.model, runner.outputs, "outputs"))
     ds.attrs.update(
         method="delta",
-        n_points=int(n_points),
-        confidence_level=float(confidence_level),
-        n_bootstrap=int(n_bootstrap),
-        converged=True,
         dummy=bool(dummy),
         first_order_meaning="full first-order index Var(E[Y|Xi])/Var(Y), correlations included",
     )

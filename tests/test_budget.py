@@ -132,7 +132,9 @@ def test_convergence_loop_terminates_and_is_stable():
 
 def test_convergence_warns_when_max_samples_is_reached():
     inputs = {"x1": UNIFORM, "x2": UNIFORM, "x3": UNIFORM}
-    with pytest.warns(BudgetConvergenceWarning, match=r"did not settle .* by n_samples = 512"):
+    with pytest.warns(
+        BudgetConvergenceWarning, match=r"did not settle .* by n_samples = 512"
+    ) as record:
         ds = rank(
             Ishigami(),
             inputs,
@@ -144,6 +146,8 @@ def test_convergence_warns_when_max_samples_is_reached():
         )
     assert ds.attrs["converged"] is False
     assert ds.sizes["step"] == 3
+    # The warning points at the caller of rank (stacklevel).
+    assert record[0].filename == __file__
 
 
 def test_analyze_budget_on_precomputed_evaluations():
@@ -230,6 +234,20 @@ def test_correlated_inputs_use_the_given_data_method():
     assert bool(np.isnan(sub["total_order"]).all())
     assert list(sub["rank"].values) == [1, 3, 2]
     assert "delta" in ds and not bool(sub["below_noise_floor"].any())
+
+
+def test_given_data_convergence_loop():
+    # The same doubling rule for the given-data budget (Sarrazin et al. 2016).
+    corr = np.array([[1.0, 0.6], [0.6, 1.0]])
+    inputs = {"x1": stats.norm(0, 1), "x2": stats.norm(0, 1)}
+    ds = rank(
+        LinearModel([1.0, 0.3]), inputs, n_samples=64, correlation=corr, rng=3,
+        n_bootstrap=30, convergence=True, tolerance=0.1,
+    )  # fmt: skip
+    assert ds.attrs["converged"] is True and ds.attrs["method"] == "delta"
+    assert ds["history_max_width"].values[-1] < 0.1
+    assert "history_delta" in ds and ds["history_delta"].sizes["step"] == ds.sizes["step"]
+    assert ds.attrs["n_points"] == ds.attrs["n_samples"] * 4
 
 
 def test_errors_name_the_fix():
