@@ -230,3 +230,29 @@ def test_evaluate_in_chunks_matches_one_call():
     whole = LinearModel([2.0, -1.0]).evaluate(columns)
     np.testing.assert_array_equal(chunked["y"], whole["y"])
     assert calls[-1] == 101 and len(calls) == math.ceil(101 / 7)
+
+
+def test_adaptive_with_sobol_batches_is_power_of_two():
+    inputs = {"x1": stats.norm(0, 1), "x2": stats.norm(0, 1)}
+    ds = propagate_adaptive(LinearModel([1.0, 1.0]), inputs, rng=3, method="sobol")
+    assert ds.attrs["batch_size"] == 16384 and ds.attrs["converged"] is True
+    # u(y) = sqrt(2) for the sum of two unit normals (sum of independent normals)
+    assert (
+        abs(float(summarize(ds)["std"][0]) - math.sqrt(2)) < ds.attrs["numerical_tolerance"]["y"]
+    )
+
+
+def test_model_errors_become_scenario_errors():
+    def broken(values):
+        from trapbudget.models.protocol import ModelError
+
+        raise ModelError("unknown input 'q'")
+
+    with pytest.raises(ScenarioError, match=r"model broken: unknown input 'q'"):
+        propagate(broken, {"x": stats.norm()}, n_samples=8)
+
+
+def test_all_inputs_fixed():
+    ds = propagate(LinearModel([2.0]), {"x1": 3.0}, n_samples=4, method="random")
+    np.testing.assert_array_equal(ds["y"].values, np.full(4, 6.0))
+    assert float(summarize(ds)["std"][0]) == 0.0

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import math
 import textwrap
+import tomllib
 
 import numpy as np
 import pytest
@@ -154,8 +155,6 @@ def test_parts(scenario, path):
 
 
 def test_python_built_equals_toml_loaded(scenario):
-    import tomllib
-
     data = tomllib.loads(TOML)
     assert Scenario.from_dict(data) == scenario
 
@@ -318,3 +317,60 @@ def test_diagnosis_table_is_kept_and_written_back(tmp_path):
     again = tmp_path / "again.toml"
     again.write_text(scenario_to_toml(s))
     assert load_scenario(again) == s and load_scenario(again).diagnosis == s.diagnosis
+
+
+def test_python_built_mapping_equals_toml_text(tmp_path):
+    text = textwrap.dedent(
+        """
+        [scenario]
+        title = "Invented bench"
+        [inputs]
+        detuning = "-12 MHz"
+        [inputs.beam_power]
+        nominal = "4 mW"
+        tolerance = "1 %"
+        [inputs.beam_imbalance]
+        nominal = 0.05
+        tolerance = 0.02
+        shape = "truncated-normal"
+        bounds = [0, 0.9]
+        [inputs.repump_power]
+        tolerance = "0.1 mW"
+        [[correlations]]
+        inputs = ["beam_power", "repump_power"]
+        rank_coefficient = 0.5
+        [settings]
+        n_samples = 64
+        method = "latin"
+        """
+    )
+    file = tmp_path / "bench.toml"
+    file.write_text(text)
+    built = Scenario.from_dict(
+        {
+            "scenario": {"title": "Invented bench"},
+            "inputs": {
+                "detuning": "-12 MHz",
+                "beam_power": {"nominal": "4 mW", "tolerance": "1 %"},
+                "beam_imbalance": {
+                    "nominal": 0.05,
+                    "tolerance": 0.02,
+                    "shape": "truncated-normal",
+                    "bounds": [0, 0.9],
+                },
+                "repump_power": {"tolerance": "0.1 mW"},
+            },
+            "correlations": [{"inputs": ["beam_power", "repump_power"], "rank_coefficient": 0.5}],
+            "settings": {"n_samples": 64, "method": "latin"},
+        }
+    )
+    loaded = load_scenario(file)
+    assert built == loaded
+    assert loaded.fixed == {"detuning": -12e6}  # shorthand: nominal only
+    # the nominal of repump_power is the model's default when not written
+    assert loaded.nominal["repump_power"] == loaded.model.base.inputs["repump_power"].default
+    # truncated normal on [0, 0.9] (scipy.stats.truncnorm)
+    assert loaded.inputs["beam_imbalance"].support() == pytest.approx((0.0, 0.9))
+    # Spearman 0.5 -> copula 2 sin(pi/12) (Kruskal 1958)
+    assert loaded.correlation[0, 2] == pytest.approx(2 * math.sin(math.pi * 0.5 / 6))
+    assert loaded == Scenario.from_dict(tomllib.loads(scenario_to_toml(loaded)))

@@ -145,3 +145,11 @@ def test_display_units_convert():
     for si, shown in DISPLAY_UNITS.items():
         if shown != "auto":
             assert ureg.parse_units(si).dimensionality == ureg.parse_units(shown).dimensionality
+
+
+def test_format_quantity_edges():
+    assert format_quantity(float("nan"), "K") == "nan K"
+    assert format_quantity(float("inf"), "W") == "inf mW"
+    assert format_quantity(0.0, "K") == "0 K"
+    assert format_quantity(-3e-6, "K") == "-3 uK"
+    assert format_quantity(1.23456e-3, "W", digits=5) == "1.2346 mW"
