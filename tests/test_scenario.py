@@ -7,10 +7,10 @@ from __future__ import annotations
 
 import math
 import textwrap
-import tomllib
 
 import numpy as np
 import pytest
+import tomllib
 
 from trapbudget.sensitivity.costs import SmoothCost, TieredCost
 from trapbudget.sensitivity.distributions import Tolerance
