@@ -7,7 +7,9 @@ Correlated inputs use a Gaussian copula: unit values become normal scores
 the correlation matrix ``R`` (``z' = z L^T``), mapped back through ``Phi`` and
 then through each marginal's ppf. The coefficients of ``R`` are therefore the
 Pearson correlations of the normal scores, not of the inputs themselves (they
-coincide for normal marginals). A Spearman rank correlation ``rho_s`` converts
+coincide for normal marginals; :func:`copula_to_pearson` gives the inputs' own
+Pearson correlation). With a correlation, a Latin-hypercube design keeps its
+stratification only approximately. A Spearman rank correlation ``rho_s`` converts
 to the copula coefficient by ``2 sin(pi rho_s / 6)``
 (:func:`rank_correlation_to_copula`; Kruskal 1958).
 

@@ -221,6 +221,10 @@ class Settings:
                 path=path,
                 key="settings.confidence_level",
             )
+        if self.seed is not None and self.seed < 0:
+            raise ScenarioError(
+                f"seed {self.seed} must be a non-negative integer", path=path, key="settings.seed"
+            )
         for name in ("significant_digits", "max_trials", "chunk_size", "n_bootstrap"):
             if getattr(self, name) < 1:
                 raise ScenarioError(

@@ -374,3 +374,18 @@ def test_python_built_mapping_equals_toml_text(tmp_path):
     # Spearman 0.5 -> copula 2 sin(pi/12) (Kruskal 1958)
     assert loaded.correlation[0, 2] == pytest.approx(2 * math.sin(math.pi * 0.5 / 6))
     assert loaded == Scenario.from_dict(tomllib.loads(scenario_to_toml(loaded)))
+
+
+def test_scenario_pickles(scenario):
+    import pickle
+
+    again = pickle.loads(pickle.dumps(scenario))
+    assert again == scenario
+    assert again.model.evaluate({})["atom_number"] == scenario.model.evaluate({})["atom_number"]
+
+
+def test_negative_seed_refused(tmp_path):
+    file = tmp_path / "seed.toml"
+    file.write_text(_broken("seed = 7", "seed = -7"))
+    with pytest.raises(ScenarioError, match=r"settings\.seed: seed -7 must be a non-negative"):
+        load_scenario(file)
