@@ -718,13 +718,16 @@ def _make_model(name: Any, species: str, options: Mapping[str, Any], *, path) ->
     try:
         return as_model(MODELS[name](species, **options))
     except TypeError as error:
+        match = re.search(r"unexpected keyword argument '(\w+)'", str(error))
+        what = f"unknown option {match.group(1)!r}" if match else f"options {dict(options)!r}"
         raise ScenarioError(
-            f"options {dict(options)!r} do not fit model {name!r} ({error}); fix or remove them",
+            f"{what} for model {name!r}; remove it or check its spelling",
             path=path,
             key="scenario.options",
         ) from None
     except ModelError as error:
-        raise ScenarioError(f"{error}", path=path, key="scenario") from None
+        key = "scenario.species" if "species" in str(error) else "scenario.options"
+        raise ScenarioError(f"{error}", path=path, key=key) from None
     except ImportError as error:  # pragma: no cover - while the physics is being written
         raise ScenarioError(
             f"model {name!r} is not available ({error})", path=path, key="scenario.model"

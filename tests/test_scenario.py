@@ -389,3 +389,16 @@ def test_negative_seed_refused(tmp_path):
     file.write_text(_broken("seed = 7", "seed = -7"))
     with pytest.raises(ScenarioError, match=r"settings\.seed: seed -7 must be a non-negative"):
         load_scenario(file)
+
+
+@pytest.mark.parametrize(
+    ("head", "message"),
+    [
+        ({"species": "Rb88"}, r"scenario\.species: .*'Rb88'"),
+        ({"options": {"foo": 1}}, r"scenario\.options: unknown option 'foo' for model"),
+        ({"titel": "x"}, r"scenario\.titel: unknown key 'titel'; did you mean 'title'\?"),
+    ],
+)
+def test_head_errors(head, message):
+    with pytest.raises(ScenarioError, match=message):
+        Scenario.from_dict({"scenario": head}, path="x.toml")
