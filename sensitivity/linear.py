@@ -35,7 +35,7 @@ from scipy import stats
 from trapbudget.models.protocol import ModelError
 from trapbudget.sensitivity.errors import ScenarioError
 from trapbudget.sensitivity.propagate import numerical_tolerance, select_outputs
-from trapbudget.sensitivity.protocol import as_model, model_name
+from trapbudget.sensitivity.protocol import BoundModel, as_model, model_name
 from trapbudget.sensitivity.sampling import check_correlation, copula_to_pearson, split_inputs
 
 __all__ = ["compare_linear_monte_carlo", "jacobian", "linear_propagation"]
@@ -111,7 +111,8 @@ def linear_propagation(
     inputs : mapping name -> frozen scipy.stats distribution or float
         Distributions give the standard uncertainty (their std); floats are fixed.
     nominal : mapping name -> float, optional
-        Estimates x_i (SI); default the means of the distributions.
+        Estimates x_i (SI); default the bound values of a scenario's model
+        (``BoundModel.nominal``), else the means of the distributions.
     correlation : array (d, d), optional
         Correlation of the distribution-valued inputs, in their order: the
         Gaussian-copula (normal-score) coefficients, as for ``propagate``. They
@@ -140,6 +141,8 @@ def linear_propagation(
     names = list(uncertain)
     u = np.array([float(dist.std()) for dist in uncertain.values()])
     x0 = {k: float(dist.mean()) for k, dist in uncertain.items()}
+    if nominal is None and isinstance(model, BoundModel):
+        nominal = model.nominal  # the scenario's stated estimates
     if nominal is not None:
         x0.update({k: float(v) for k, v in nominal.items() if k in uncertain})
     steps = {k: _STEP_FRACTION * ui if ui > 0 else 1e-12 for k, ui in zip(names, u, strict=True)}

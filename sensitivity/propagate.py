@@ -102,8 +102,12 @@ def _evaluate(model, columns, *, n_samples, chunk_size, progress):
         raise ScenarioError(f"model {model_name(model)}: {error}") from error
 
 
-def _nominal_point(uncertain: Mapping[str, Any], nominal: Mapping[str, float] | None):
+def _nominal_point(
+    model: Any, uncertain: Mapping[str, Any], nominal: Mapping[str, float] | None
+) -> dict[str, float]:
     point = {name: float(dist.median()) for name, dist in uncertain.items()}
+    if nominal is None and isinstance(model, BoundModel):
+        nominal = model.nominal  # a scenario's model carries the scenario's nominal values
     if nominal is not None:
         point.update({k: float(v) for k, v in nominal.items() if k in uncertain})
     return point
@@ -149,7 +153,8 @@ def propagate(
         Progress callback.
     nominal : mapping name -> float, optional
         Nominal input values (SI) at which the model is evaluated once for the
-        ``nominal_outputs`` attr; default the medians of the distributions.
+        ``nominal_outputs`` attr; default the bound values of a scenario's
+        model (``BoundModel.nominal``), else the medians of the distributions.
 
     Returns
     -------
@@ -181,7 +186,7 @@ def propagate(
     if "validity" in results and "validity" not in keep:
         keep.append("validity")
 
-    point = {**_nominal_point(uncertain, nominal), **fixed}
+    point = {**_nominal_point(model, uncertain, nominal), **fixed}
     nominal_results = _evaluate(
         model,
         {k: np.array([v]) for k, v in point.items()},

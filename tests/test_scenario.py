@@ -402,3 +402,17 @@ def test_negative_seed_refused(tmp_path):
 def test_head_errors(head, message):
     with pytest.raises(ScenarioError, match=message):
         Scenario.from_dict({"scenario": head}, path="x.toml")
+
+
+def test_scenario_nominal_reaches_propagation(scenario):
+    from trapbudget.sensitivity.linear import linear_propagation
+    from trapbudget.sensitivity.propagate import propagate, summarize
+
+    ds = propagate(scenario.model, scenario.inputs, n_samples=256, rng=1)
+    at_nominal = scenario.model.evaluate({})
+    for name in scenario.inputs:
+        assert ds.attrs["nominal_inputs"][name] == scenario.nominal[name]
+    summary = summarize(ds, outputs=["atom_number"])
+    assert float(summary["nominal"][0]) == pytest.approx(float(at_nominal["atom_number"]))
+    lin = linear_propagation(scenario.model, scenario.inputs, outputs=["atom_number"])
+    assert float(lin["output_nominal"][0]) == pytest.approx(float(at_nominal["atom_number"]))
