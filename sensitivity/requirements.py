@@ -33,7 +33,7 @@ import xarray as xr
 from scipy import stats
 
 from trapbudget.sensitivity.errors import ScenarioError
-from trapbudget.sensitivity.units import parse_quantity
+from trapbudget.sensitivity.units import did_you_mean, parse_quantity
 
 __all__ = [
     "KINDS",
@@ -300,10 +300,9 @@ def parse_requirements(
             )
         output = table.get("output")
         if output not in model.outputs:
-            from trapbudget.sensitivity.scenario import _close  # local: avoid an import cycle
-
             raise ScenarioError(
-                f"output {output!r} is not an output of the model{_close(output, model.outputs)}",
+                f"output {output!r} is not an output of the model"
+                f"{did_you_mean(output, model.outputs)}",
                 path=path,
                 key=f"{key}.output",
             )

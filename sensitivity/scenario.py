@@ -9,12 +9,11 @@ from __future__ import annotations
 
 import copy
 import dataclasses
-import difflib
 import hashlib
 import json
 import math
 import re
-from collections.abc import Callable, Iterable, Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -39,7 +38,7 @@ from trapbudget.sensitivity.sampling import (
     rank_correlation_to_copula,
 )
 from trapbudget.sensitivity.testfunctions import GFunction, Ishigami, LinearModel
-from trapbudget.sensitivity.units import parse_quantity, parse_tolerance_text
+from trapbudget.sensitivity.units import did_you_mean, parse_quantity, parse_tolerance_text
 
 __all__ = [
     "MODELS",
@@ -99,14 +98,7 @@ _INPUT_KEYS = (
 )
 
 
-def _close(name: object, choices: Iterable[str]) -> str:
-    """``"; did you mean 'x'?"`` or a list of the valid names."""
-    choices = list(choices)
-    matches = difflib.get_close_matches(str(name), choices, n=3, cutoff=0.6)
-    if matches:
-        return "; did you mean " + " or ".join(repr(m) for m in matches) + "?"
-    shown = ", ".join(choices[:12]) + (", ..." if len(choices) > 12 else "")
-    return f"; valid names are {shown}"
+_close = did_you_mean
 
 
 def _check_keys(table: Mapping[str, Any], valid: Sequence[str], *, path, key) -> None:

@@ -24,6 +24,7 @@ from __future__ import annotations
 import difflib
 import math
 import re
+from collections.abc import Iterable
 from pathlib import Path
 
 import pint
@@ -32,6 +33,7 @@ from trapbudget.sensitivity.errors import ScenarioError
 
 __all__ = [
     "DISPLAY_UNITS",
+    "did_you_mean",
     "format_quantity",
     "parse_quantity",
     "parse_tolerance",
@@ -92,6 +94,16 @@ _AUTO_PREFIXES = {
     "K": (("nK", 1e-9), ("uK", 1e-6), ("mK", 1e-3), ("K", 1.0)),
     "s": (("us", 1e-6), ("ms", 1e-3), ("s", 1.0)),
 }
+
+
+def did_you_mean(name: object, choices: Iterable[str]) -> str:
+    """``"; did you mean 'x'?"`` for a close match among ``choices``, else the valid names."""
+    choices = list(choices)
+    matches = difflib.get_close_matches(str(name), choices, n=3, cutoff=0.6)
+    if matches:
+        return "; did you mean " + " or ".join(repr(m) for m in matches) + "?"
+    shown = ", ".join(choices[:12]) + (", ..." if len(choices) > 12 else "")
+    return f"; valid names are {shown}"
 
 
 def _si_unit(unit: str) -> pint.Unit:

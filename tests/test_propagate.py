@@ -256,3 +256,40 @@ def test_all_inputs_fixed():
     ds = propagate(LinearModel([2.0]), {"x1": 3.0}, n_samples=4, method="random")
     np.testing.assert_array_equal(ds["y"].values, np.full(4, 6.0))
     assert float(summarize(ds)["std"][0]) == 0.0
+
+
+def test_ishigami_closed_forms_and_moments():
+    from trapbudget.sensitivity.testfunctions import Ishigami, ishigami_indices
+
+    exact = ishigami_indices(7.0, 0.1)
+    # Saltelli et al. 2008 (The Primer), a = 7, b = 0.1, as listed in references.md [F]
+    np.testing.assert_allclose(exact["first_order"], [0.313905, 0.442411, 0.0], atol=1e-6)
+    np.testing.assert_allclose(exact["total_order"], [0.557589, 0.442411, 0.243684], atol=1e-6)
+    n = 2**16
+    inputs = {f"x{i}": stats.uniform(-math.pi, 2 * math.pi) for i in (1, 2, 3)}
+    y = propagate(Ishigami(), inputs, n_samples=n, method="random", rng=12)["y"].values
+    # E[Y] = a / 2 (sin^2 averages to 1/2; the odd terms vanish)
+    assert abs(y.mean() - 3.5) < 5 * math.sqrt(exact["variance"] / n)
+    # sample variance standard error sqrt((m4 - V^2) / n), m4 estimated from the sample
+    m4 = np.mean((y - y.mean()) ** 4)
+    assert abs(y.var(ddof=1) - exact["variance"]) < 5 * math.sqrt(
+        (m4 - exact["variance"] ** 2) / n
+    )
+
+
+def test_g_function_variance():
+    from trapbudget.sensitivity.testfunctions import GFunction, g_function_indices
+
+    a = [0.0, 1.0, 4.5, 9.0]
+    exact = g_function_indices(a)
+    # Saltelli et al. 2008: V = prod(1 + 1/(3 (1 + a_i)^2)) - 1
+    assert exact["variance"] == pytest.approx(np.prod(1 + 1 / (3 * (1 + np.array(a)) ** 2)) - 1)
+    assert exact["total_order"].sum() >= exact["first_order"].sum()
+    n = 2**16
+    inputs = {f"x{i}": stats.uniform() for i in range(1, 5)}
+    y = propagate(GFunction(a), inputs, n_samples=n, method="random", rng=13)["y"].values
+    assert abs(y.mean() - 1.0) < 5 * math.sqrt(exact["variance"] / n)  # each factor has mean 1
+    m4 = np.mean((y - y.mean()) ** 4)
+    assert abs(y.var(ddof=1) - exact["variance"]) < 5 * math.sqrt(
+        (m4 - exact["variance"] ** 2) / n
+    )
