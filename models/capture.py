@@ -28,6 +28,10 @@ Conventions
   also seeds the backward trajectory where the force at rest vanishes
   (zero gradient: an optical molasses still slows atoms, with no trap).
 
+Direction: by default the atom enters moving along +x and is slowed by the
+returning (weaker, by the imbalance) beam; ``direction=-1`` gives the atom
+entering from the other side (:func:`mirrored_path`).
+
 Honest limits: zero power or blue (non-negative) detuning give a capture
 velocity of exactly 0 (no slowing, or heating). Zero gradient gives the
 molasses capture velocity: atoms are slowed but not trapped; the trap model
@@ -55,6 +59,7 @@ __all__ = [
     "capture_velocity",
     "capture_velocity_bound",
     "capture_velocity_reference",
+    "mirrored_path",
     "scattering_acceleration",
 ]
 
@@ -194,7 +199,7 @@ def scattering_acceleration(
     return np.asarray(bright_fraction, float) * a_max * (forward - backward)
 
 
-@numba.njit(cache=True, fastmath=False, inline="always")
+@numba.njit(cache=True, fastmath=False, error_model="numpy", inline="always")
 def _rate(u, s_f, s_b, d, kk, z):  # pragma: no cover - compiled
     # Dimensionless deceleration -F/(m a0) on the backward path, u = v^2/2.
     kv = kk * math.sqrt(2.0 * max(u, 0.0))
@@ -203,7 +208,7 @@ def _rate(u, s_f, s_b, d, kk, z):  # pragma: no cover - compiled
     return s_b / (1.0 + s_b + q * q) - s_f / (1.0 + s_f + p * p)
 
 
-@numba.njit(cache=True, fastmath=False)
+@numba.njit(cache=True, fastmath=False, error_model="numpy")
 def _capture_kernel(
     s0, radius, waist, offset, d, kk, z_slope, z_bias, back, accel, u_stop, n_steps, out
 ):  # pragma: no cover - compiled
@@ -281,6 +286,60 @@ def _capture_kernel(
         out[i] = math.sqrt(2.0 * u[i]) if ok else 0.0
 
 
+def mirrored_path(
+    saturation: ArrayLike,
+    *,
+    beam_offset: ArrayLike = 0.0,
+    imbalance: ArrayLike = 0.0,
+    bias_field: ArrayLike = 0.0,
+) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
+    """Arguments that describe the same beam pair seen by an atom entering from the other side.
+
+    Parameters
+    ----------
+    saturation : array_like, 1
+        Peak saturation of the incoming beam.
+    beam_offset : array_like, m
+    imbalance : array_like, 1
+        Must be below 1.
+    bias_field : array_like, T
+
+    Returns
+    -------
+    saturation, beam_offset, imbalance, bias_field : ndarray
+        ``s (1 - eps)``, ``-offset``, ``1 - 1/(1 - eps)`` (a stronger
+        returning beam), ``-B_bias``.
+
+    Notes
+    -----
+    Under x -> -x the incoming and returning beams swap roles, so the force of
+    :func:`scattering_acceleration` obeys ``a(x, v) = -a'(-x, -v)`` with the
+    primed (returned) arguments; the capture velocity of atoms entering
+    from +x is then that of the mirrored problem. An imbalance of 1 or more
+    gives a saturation of 0 (no capture).
+    """
+    eps = np.asarray(imbalance, dtype=float)
+    ok = eps < 1.0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        back = np.where(ok, 1.0 - 1.0 / (1.0 - eps), 0.0)
+    return (
+        np.where(ok, np.asarray(saturation, dtype=float) * (1.0 - eps), 0.0),
+        -np.asarray(beam_offset, dtype=float),
+        back,
+        -np.asarray(bias_field, dtype=float),
+    )
+
+
+def _direction(direction, saturation, beam_offset, imbalance, bias_field):
+    if direction == 1:
+        return saturation, beam_offset, imbalance, bias_field
+    if direction == -1:
+        return mirrored_path(
+            saturation, beam_offset=beam_offset, imbalance=imbalance, bias_field=bias_field
+        )
+    raise ModelError(f"capture_velocity: direction={direction!r} is not valid; use 1 or -1")
+
+
 def _prepare(
     saturation,
     detuning,
@@ -338,6 +397,7 @@ def capture_velocity(
     bright_fraction: ArrayLike = 1.0,
     stop_speed: float = STOP_SPEED,
     n_steps: int = N_STEPS,
+    direction: int = 1,
 ) -> NDArray[np.float64]:
     """Capture velocity of a MOT beam pair, m/s, for all samples at once.
 
@@ -369,6 +429,10 @@ def capture_velocity(
         Speed that counts as stopped (default :data:`STOP_SPEED`).
     n_steps : int
         RK4 steps across the region (default :data:`N_STEPS`).
+    direction : {1, -1}
+        1: the atom enters moving along +x, slowed by the returning (weaker)
+        beam; -1: it enters from the other side, slowed by the incoming beam
+        (:func:`mirrored_path`).
 
     Returns
     -------
@@ -395,6 +459,9 @@ def capture_velocity(
     """
     if int(n_steps) < 4:
         raise ModelError(f"capture_velocity: n_steps={n_steps!r} is too small; use at least 4")
+    saturation, beam_offset, imbalance, bias_field = _direction(
+        direction, saturation, beam_offset, imbalance, bias_field
+    )
     params = _prepare(
         saturation,
         detuning,
@@ -444,6 +511,7 @@ def capture_velocity_reference(
     bright_fraction: float = 1.0,
     stop_speed: float = STOP_SPEED,
     rtol: float = 1e-9,
+    direction: int = 1,
 ) -> float:
     """Capture velocity of one sample by forward trajectories and root finding, m/s.
 
@@ -463,6 +531,9 @@ def capture_velocity_reference(
     which scipy.optimize.brentq locates. Slow, per sample: the check on the
     vectorized solver.
     """
+    saturation, beam_offset, imbalance, bias_field = (
+        float(a) for a in _direction(direction, saturation, beam_offset, imbalance, bias_field)
+    )
     if not (saturation > 0 and bright_fraction > 0 and detuning < 0):
         return 0.0
     x_near = beam_offset - capture_radius

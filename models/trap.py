@@ -279,8 +279,11 @@ class VaporCellMOT:
       (along a radial axis, ``x0 = -B / A_radial``) move off the beam axis;
       total saturation of all six beams 3 s (2 - imbalance);
     * capture: :func:`trapbudget.models.capture.capture_velocity` along a
-      radial beam axis with the radial gradient (half the axial); capture
-      area the sphere of the capture radius, 4 pi R^2;
+      radial beam axis with the radial gradient (half the axial), for atoms
+      entering from either end (slowed by the returning or by the incoming
+      beam); the loading rate is the mean of the two directions' rates and
+      ``capture_velocity`` the mean of the two speeds; capture area the sphere
+      of the capture radius, 4 pi R^2;
     * repumper: its total power in one Gaussian of the cooling-beam waist,
       resonant, with the cycling I_sat (approximation);
     * cloud: spring constants kappa_z (axial gradient) and kappa_r = kappa_z/2;
@@ -447,21 +450,25 @@ class VaporCellMOT:
         bright = mot.bright_fraction(rate, leak, mot.repump_rate(repump_saturation, gamma))
 
         radius = capture.capture_radius(waist, aperture)
-        v_capture = capture.capture_velocity(
-            peak_saturation,
-            cooling_detuning,
-            waist=waist,
-            capture_radius=radius,
-            gradient=radial,
-            wavenumber=k,
-            linewidth=gamma,
-            mass=mass,
-            zeeman_coefficient=zeeman,
-            beam_offset=x["beam_offset"],
-            imbalance=imbalance,
-            bias_field=x["bias_field"],
-            bright_fraction=bright,
-        )
+        path = {
+            "waist": waist,
+            "capture_radius": radius,
+            "gradient": radial,
+            "wavenumber": k,
+            "linewidth": gamma,
+            "mass": mass,
+            "zeeman_coefficient": zeeman,
+            "beam_offset": x["beam_offset"],
+            "imbalance": imbalance,
+            "bias_field": x["bias_field"],
+            "bright_fraction": bright,
+        }
+        # atoms enter from both ends of the path: slowed by the returning or the incoming beam
+        v_in = [
+            capture.capture_velocity(peak_saturation, cooling_detuning, direction=d, **path)
+            for d in (1, -1)
+        ]
+        v_capture = 0.5 * (v_in[0] + v_in[1])
 
         t_cell = x["cell_temperature"]
         if self.vapor_source == "fraction":
@@ -469,8 +476,10 @@ class VaporCellMOT:
         else:
             density = x["vapor_density"]
         speed = vapor.most_probable_speed(mass, t_cell)
-        load = mot.loading_rate(
-            density, 4.0 * np.pi * radius**2, v_capture, speed, prefactor=x["loading_prefactor"]
+        area = 4.0 * np.pi * radius**2
+        load = 0.5 * sum(
+            mot.loading_rate(density, area, v, speed, prefactor=x["loading_prefactor"])
+            for v in v_in
         )
         one_body = mot.vapor_loss_rate(
             density, x["vapor_loss_coefficient"]

@@ -14,6 +14,7 @@ from trapbudget.models.capture import (
     capture_velocity,
     capture_velocity_bound,
     capture_velocity_reference,
+    mirrored_path,
     scattering_acceleration,
 )
 from trapbudget.models.cooling import damping_coefficient, spring_constant
@@ -60,13 +61,61 @@ def _draws(n, rng, sp=RB):
 @pytest.mark.parametrize(("sp", "seed", "n"), [(RB, 20261201, 18), (CS, 7, 6)])
 def test_vectorized_matches_reference_integrator(sp, seed, n):
     # reference: scipy.integrate.solve_ivp (DOP853) forward trajectories + scipy.optimize.brentq
+    # half of the cases enter from the other side (slowed by the incoming beam)
     cases = _draws(n, np.random.default_rng(seed), sp)
-    reference = np.array([capture_velocity_reference(**c, rtol=1e-8) for c in cases])
-    stacked = {key: np.array([c[key] for c in cases]) for key in cases[0]}
-    sat, det = stacked.pop("saturation"), stacked.pop("detuning")
-    fast = capture_velocity(sat, det, **stacked)
+    directions = [1 if i % 2 else -1 for i in range(n)]
+    reference = np.array(
+        [
+            capture_velocity_reference(**c, rtol=1e-8, direction=d)
+            for c, d in zip(cases, directions, strict=True)
+        ]
+    )
+    fast = np.array(
+        [
+            float(capture_velocity(c["saturation"], c["detuning"], direction=d, **_rest(c)))
+            for c, d in zip(cases, directions, strict=True)
+        ]
+    )
     assert np.all(reference > 1.0)  # these draws all capture
     np.testing.assert_allclose(fast, reference, rtol=0.01)
+
+
+def _rest(case):
+    return {k: v for k, v in case.items() if k not in ("saturation", "detuning")}
+
+
+def test_mirrored_path_is_the_mirror_image_of_the_force():
+    # x -> -x swaps the incoming and returning beams: a(x, v) = -a'(-x, -v) (parity of the
+    # Metcalf & van der Straten two-beam force)
+    rng = np.random.default_rng(4)
+    n = 200
+    args = {
+        "saturation": rng.uniform(0.5, 10, n),
+        "beam_offset": rng.uniform(-2e-3, 2e-3, n),
+        "imbalance": rng.uniform(0, 0.5, n),
+        "bias_field": rng.normal(0, 1e-5, n),
+    }
+    names = ("saturation", "beam_offset", "imbalance", "bias_field")
+    mirrored = dict(zip(names, mirrored_path(**args), strict=True))
+    x = rng.uniform(-1e-2, 1e-2, n)
+    v = rng.uniform(-40, 40, n)
+    common = {"waist": 5e-3, "detuning": -12e6, "gradient": 0.1, **_atom(RB)}
+    direct = scattering_acceleration(x, v, **args, **common)
+    image = scattering_acceleration(-x, -v, **mirrored, **common)
+    np.testing.assert_allclose(direct, -image, rtol=1e-12, atol=1e-9)
+
+
+def test_both_directions_agree_for_a_symmetric_pair():
+    kw = {"waist": 5e-3, "capture_radius": 1e-2, "gradient": 0.05, **_atom(RB)}
+    one = capture_velocity(5.0, -12e6, **kw)
+    other = capture_velocity(5.0, -12e6, direction=-1, **kw)
+    assert float(one) == pytest.approx(float(other), rel=1e-9)
+    # with an imbalance the atom slowed by the stronger (incoming) beam is captured faster
+    weak = capture_velocity(5.0, -12e6, imbalance=0.2, **kw)
+    strong = capture_velocity(5.0, -12e6, imbalance=0.2, direction=-1, **kw)
+    assert float(strong) > float(weak)
+    with pytest.raises(ModelError, match="direction=0 is not valid"):
+        capture_velocity(5.0, -12e6, direction=0, **kw)
 
 
 def test_zero_gradient_molasses_matches_reference():
