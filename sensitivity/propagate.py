@@ -446,7 +446,7 @@ def propagate_adaptive(
     *,
     confidence_level: float = 0.95,
     significant_digits: int = 2,
-    max_trials: int = 2_000_000,
+    max_trials: int = 1_000_000,
     rng: Any = None,
     method: Method = "random",
     correlation: ArrayLike | None = None,

@@ -148,7 +148,7 @@ class Settings:
     seed: int | None = None
     adaptive: bool = False
     significant_digits: int = 2
-    max_trials: int = 2_000_000
+    max_trials: int = 1_000_000
     chunk_size: int = 65536
     n_bootstrap: int = 1000
     second_order: bool = False
