@@ -100,17 +100,24 @@ def unit_design(
 
     Raises
     ------
+    ScenarioError
+        (a ValueError) Unknown method, n < 1, or n not a power of 2 for Sobol'.
     ValueError
-        Unknown method, n < 1, d < 0, or n not a power of 2 for Sobol'.
+        d < 0.
     """
     n_samples = int(n_samples)
     dimension = int(dimension)
     if method not in METHODS:
-        raise ValueError(f"method={method!r} is not known; use one of {', '.join(METHODS)}")
+        raise ScenarioError(f"method={method!r} is not known; use one of {', '.join(METHODS)}")
     if n_samples < 1:
-        raise ValueError(f"n_samples must be >= 1, got {n_samples}")
+        raise ScenarioError(f"n_samples must be >= 1, got {n_samples}")
     if dimension < 0:
         raise ValueError(f"dimension must be >= 0, got {dimension}")
+    if method == "sobol" and not is_power_of_two(n_samples):
+        raise ScenarioError(
+            f"method='sobol' requires n_samples to be a power of 2; got {n_samples}, "
+            f"use {_next_power_of_two(n_samples)}"
+        )
     generator = np.random.default_rng(rng)
     if dimension == 0:
         return np.empty((n_samples, 0))
@@ -119,11 +126,6 @@ def unit_design(
     elif method == "latin":
         points = _engine(qmc.LatinHypercube, dimension, generator).random(n_samples)
     else:
-        if not is_power_of_two(n_samples):
-            raise ValueError(
-                f"method='sobol' requires n_samples to be a power of 2; got {n_samples}, "
-                f"use {_next_power_of_two(n_samples)}"
-            )
         engine = _engine(qmc.Sobol, dimension, generator, scramble=True)
         points = engine.random_base2(int(n_samples).bit_length() - 1)
     return np.clip(points, _EDGE, 1.0 - _EDGE)

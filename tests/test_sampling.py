@@ -59,14 +59,14 @@ def test_latin_hypercube_strata():
 
 def test_sobol_power_of_two_error():
     with pytest.raises(
-        ValueError,
+        ScenarioError,
         match=r"method='sobol' requires n_samples to be a power of 2; got 1000, use 1024",
     ):
         unit_design(1000, 2, method="sobol", rng=0)
 
 
 def test_unknown_method():
-    with pytest.raises(ValueError, match=r"method='halton' is not known; use one of random"):
+    with pytest.raises(ScenarioError, match=r"method='halton' is not known; use one of random"):
         unit_design(16, 2, method="halton")
 
 
