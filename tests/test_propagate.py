@@ -293,3 +293,17 @@ def test_g_function_variance():
     assert abs(y.var(ddof=1) - exact["variance"]) < 5 * math.sqrt(
         (m4 - exact["variance"] ** 2) / n
     )
+
+
+def test_trap_model_validity_flags_reported():
+    from trapbudget.models.trap import VaporCellMOT
+
+    n = 1024
+    # detuning N(-1 MHz, 2 MHz): P(detuning >= 0) = norm.sf(0.5) (scipy.stats)
+    inputs = {"detuning": stats.norm(-1e6, 2e6)}
+    with pytest.warns(ModelValidityWarning, match=r"BLUE_DETUNING"):
+        ds = propagate(VaporCellMOT(), inputs, n_samples=n, rng=2, outputs=["atom_number"])
+    share = ds.attrs["validity_counts"]["BLUE_DETUNING"] / n
+    assert abs(share - stats.norm.sf(0.5)) < 5 * math.sqrt(0.31 * 0.69 / n)
+    blue = ds["detuning"].values >= 0
+    assert np.all(ds["atom_number"].values[blue] == 0)  # honest limit: no atoms
