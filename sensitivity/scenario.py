@@ -48,6 +48,7 @@ __all__ = [
     "load_scenario",
     "register_model",
     "scenario_to_toml",
+    "toml_dumps",
 ]
 
 
