@@ -157,3 +157,21 @@ def test_copula_to_pearson_matches_sampled_correlation():
     assert abs(np.corrcoef(x, rowvar=False)[0, 1] - predicted) < 10 * (
         1 - predicted**2
     ) / math.sqrt(n)
+
+
+@pytest.mark.parametrize(
+    "dist",
+    [
+        stats.norm(-12e6, 3e5),
+        stats.uniform(-5.0, 2.0),
+        stats.lognorm(0.7, scale=3e-7),
+        stats.lognorm(0.2, loc=1.0, scale=2.0),
+        stats.arcsine(loc=1.0, scale=2.0),
+    ],
+    ids=lambda d: d.dist.name,
+)
+def test_fast_ppf_equals_scipy(dist):
+    from trapbudget.sensitivity.sampling import ppf
+
+    u = np.linspace(1e-12, 1 - 1e-12, 1001)
+    np.testing.assert_allclose(ppf(dist, u), dist.ppf(u), rtol=1e-13, atol=0)  # scipy.stats ppf
