@@ -155,8 +155,15 @@ class _Runner:
         n = phys.shape[0]
         columns = {name: phys[:, j] for j, name in enumerate(self.names)}
         columns.update({name: np.full(n, value) for name, value in self.fixed.items()})
+        done_before = self.n_evaluations
+        report = None
+        if self.progress is not None:
+            # Cumulative over the steps of the convergence loop.
+            def report(done: int, total: int) -> None:
+                self.progress(done_before + done, done_before + total)
+
         result = evaluate_in_chunks(
-            self.model, columns, chunk_size=self.chunk_size, progress=self.progress
+            self.model, columns, chunk_size=self.chunk_size, progress=report
         )
         result = {k: np.asarray(v) for k, v in result.items()}
         if self.outputs is None:
@@ -303,6 +310,7 @@ def analyze_budget(
         n_bootstrap=int(n_bootstrap),
         estimator=estimator,
         method="sobol",
+        rank_by="total_order",
         dummy=dummy_samples is not None,
     )
     return ds
@@ -417,8 +425,10 @@ def rank(
         Add an independent uniform input the model ignores; marks the noise
         floor (``noise_floor``, ``below_noise_floor``).
     convergence : bool, default False
-        Double N until every index's interval is narrower than
-        ``tolerance`` and the ranking is stable (Sarrazin et al. 2016).
+        Double N (reusing every earlier run) until every index's interval
+        is narrower than ``tolerance`` and the ranking is stable between the
+        last two steps (Sarrazin et al. 2016): no two inputs above the noise
+        floor swap places unless their intervals overlap (a statistical tie).
     tolerance : float, default 0.05
         Largest accepted width of a bootstrap interval.
     max_samples : int, optional
@@ -650,19 +660,30 @@ def _max_width(ds: xr.Dataset) -> float:
     return float(max(widths))
 
 
-def _ordering(ds: xr.Dataset) -> list[tuple[str, ...]]:
-    """Inputs above the noise floor in rank order, per output."""
-    out = []
-    for name in ds["output"].values:
-        sub = ds.sel(output=name)
-        keep = ~sub["below_noise_floor"].values
-        order = np.argsort(sub["rank"].values, kind="stable")
-        out.append(tuple(str(sub["input"].values[i]) for i in order if keep[i]))
-    return out
+def _stable_ranking(previous: xr.Dataset, current: xr.Dataset) -> bool:
+    """True when no two inputs above the noise floor swapped places significantly.
+
+    A swap counts only between inputs whose current intervals of the ranking
+    index do not overlap: inputs whose indices are statistically tied may trade
+    places from one step to the next without the ranking being unsettled.
+    """
+    key = current.attrs.get("rank_by", "total_order")
+    for name in current["output"].values:
+        now, before = current.sel(output=name), previous.sel(output=name)
+        keep = ~now["below_noise_floor"].values.astype(
+            bool
+        )  # the floor of the larger, current sample
+        value, old = now[key].values[keep], before[key].values[keep]
+        low, high = now[f"{key}_low"].values[keep], now[f"{key}_high"].values[keep]
+        flipped = np.sign(value[:, None] - value[None, :]) != np.sign(old[:, None] - old[None, :])
+        separate = (low[:, None] > high[None, :]) | (high[:, None] < low[None, :])
+        if np.any(flipped & separate):
+            return False
+    return True
 
 
 def _settled(previous: xr.Dataset, current: xr.Dataset, tolerance: float) -> bool:
-    return _max_width(current) < tolerance and _ordering(previous) == _ordering(current)
+    return _max_width(current) < tolerance and _stable_ranking(previous, current)
 
 
 def _add_history(ds: xr.Dataset, history: Sequence[xr.Dataset]) -> None:
@@ -714,6 +735,8 @@ def _rank_given_data(
                 output_names=runner.outputs,
                 confidence_level=confidence_level,
                 n_bootstrap=n_bootstrap,
+                # Each delta resample costs a kernel estimate per class: SALib's default 100.
+                delta_bootstrap=min(n_bootstrap, 100),
                 rng=rng,
             ),
             y,
@@ -753,6 +776,7 @@ def _given_data_budget(table: xr.Dataset, y: np.ndarray, runner: _Runner, *, dum
     # Rank by delta (defined for any dependence), else by the full first-order index.
     by_delta = bool(np.isfinite(ds["delta"].values).all())
     ds["rank"] = _ranks(ds["delta"] if by_delta else ds["first_order"])
+    ds.attrs["rank_by"] = "delta" if by_delta else "first_order"
     mean, std = y.mean(axis=0), y.std(axis=0, ddof=1)
     ds["output_mean"] = ("output", mean)
     ds["output_std"] = ("output", std)

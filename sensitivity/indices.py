@@ -14,7 +14,7 @@ from dataclasses import dataclass
 from typing import Literal, NamedTuple
 
 import numpy as np
-from scipy import stats
+from scipy import sparse, stats
 from scipy.stats import qmc
 
 __all__ = [
@@ -564,16 +564,23 @@ def first_order_given_data(
     m = y2.shape[1]
     n_bins = default_bins(n) if n_bins is None else int(n_bins)
     classes = rank_classes(x, n_bins)
-    # onehot[n, d*n_bins]: class membership of each row for each input.
-    onehot = np.zeros((n, d * n_bins))
-    onehot[np.arange(n)[:, None], classes + n_bins * np.arange(d)[None, :]] = 1.0
+    # Sparse class membership (n, d*n_bins): one entry per row and input, and the
+    # same pattern carrying y for each output, so a weighted class sum is one
+    # sparse product for all resamples.
+    rows = np.repeat(np.arange(n), d)
+    cols = (classes + n_bins * np.arange(d)[None, :]).ravel()
+    member = sparse.csr_array((np.ones(n * d), (rows, cols)), shape=(n, d * n_bins))
+    carriers = [
+        sparse.csr_array((np.repeat(y2[:, k], d), (rows, cols)), shape=(n, d * n_bins))
+        for k in range(m)
+    ]
 
     def estimate(w: np.ndarray) -> np.ndarray:  # w (r, n) -> (r, d, m)
         total = w.sum(axis=1)[:, None]  # (r, 1)
         mean = (w @ y2) / total  # (r, m)
         var = (w @ (y2 * y2)) / total - mean**2
-        counts = (w @ onehot).reshape(-1, d, n_bins)  # (r, d, c)
-        sums = np.einsum("rn,nk,nm->rkm", w, onehot, y2, optimize=True).reshape(-1, d, n_bins, m)
+        counts = (member.T @ w.T).T.reshape(-1, d, n_bins)  # (r, d, c)
+        sums = np.stack([(c.T @ w.T).T for c in carriers], axis=-1).reshape(-1, d, n_bins, m)
         with np.errstate(invalid="ignore", divide="ignore"):
             means = sums / counts[..., None]
         dev = np.where(counts[..., None] > 0, means - mean[:, None, None, :], 0.0)
@@ -583,7 +590,7 @@ def first_order_given_data(
     point = estimate(np.ones((1, n)))[0]
     if n_bootstrap:
         r = bootstrap_indices(n, n_bootstrap, rng)
-        per_block = max(1, _BOOTSTRAP_BLOCK // (n * max(d, 1)))
+        per_block = max(1, _BOOTSTRAP_BLOCK // (n * max(d * m // 4, 1)))
         reps = []
         for start in range(0, n_bootstrap, per_block):
             reps.append(estimate(resample_weights(r[:, start : start + per_block])))

@@ -102,11 +102,10 @@ def _delta_estimates(
             codes = base + offset
             hist += _weighted_bincount(codes, share, w, n_bins * grid_size)
         hist = hist.reshape(r, n_bins, grid_size)
-        onehot = np.zeros((n, n_bins))
-        onehot[np.arange(n), classes[:, j]] = 1.0
-        counts = w @ onehot  # (r, c)
-        s1 = w @ (onehot * y[:, None])
-        s2 = w @ (onehot * (y * y)[:, None])
+        cls = classes[:, j]
+        counts = _weighted_bincount(cls, np.ones(n), w, n_bins)  # (r, c)
+        s1 = _weighted_bincount(cls, y, w, n_bins)
+        s2 = _weighted_bincount(cls, y * y, w, n_bins)
         out[:, j] = _class_l1(hist, counts, s1, s2, freq, step)
     return out
 

@@ -125,6 +125,12 @@ def test_convergence_loop_terminates_and_is_stable():
     last = ds["history_total_order"].isel(step=-1).sel(output="y").values
     prev = ds["history_total_order"].isel(step=-2).sel(output="y").values
     assert list(np.argsort(-last)) == list(np.argsort(-prev))
+    # Progress is cumulative over the steps and ends at the number of model runs.
+    calls = []
+    rank(Ishigami(), inputs, n_samples=64, rng=1, convergence=True, tolerance=0.3,
+         progress=lambda done, total: calls.append((done, total)))  # fmt: skip
+    assert [c[0] for c in calls] == sorted(c[0] for c in calls)
+    assert calls[-1][0] == calls[-1][1]
     # Reusing the Sobol' sequence: the final step equals one pass at the final N.
     one = rank(Ishigami(), inputs, n_samples=int(steps[-1]), rng=1, n_bootstrap=0)
     np.testing.assert_allclose(one["total_order"].values, ds["total_order"].values, atol=1e-12)
@@ -264,3 +270,31 @@ def test_errors_name_the_fix():
         rank(Ishigami(), {**inputs, "dummy": UNIFORM}, n_samples=64)
     with pytest.raises(ValueError, match=r"correlation must be 3x3"):
         rank(Ishigami(), inputs, n_samples=64, correlation=np.eye(2))
+
+
+def _toy_budget(values, lows, highs, below):
+    ds = xr.Dataset(coords={"output": ["y"], "input": ["a", "b", "c"]})
+    for key, data in (("total_order", values), ("total_order_low", lows)):
+        ds[key] = (("output", "input"), [data])
+    ds["total_order_high"] = (("output", "input"), [highs])
+    ds["below_noise_floor"] = (("output", "input"), np.array([below], dtype=bool))
+    ds.attrs["rank_by"] = "total_order"
+    return ds
+
+
+def test_ranking_stability_allows_statistical_ties_only():
+    from trapbudget.sensitivity.budget import _stable_ranking
+
+    before = _toy_budget([0.5, 0.30, 0.01], [0.45, 0.25, 0.0], [0.55, 0.35, 0.02], [0, 0, 1])
+    # a and b swap with overlapping intervals: a tie, still stable.
+    tied = _toy_budget([0.40, 0.42, 0.0], [0.35, 0.37, 0.0], [0.45, 0.47, 0.01], [0, 0, 1])
+    assert _stable_ranking(before, tied)
+    # a and b swap with separate intervals: unstable.
+    swapped = _toy_budget([0.2, 0.6, 0.0], [0.15, 0.55, 0.0], [0.25, 0.65, 0.01], [0, 0, 1])
+    assert not _stable_ranking(before, swapped)
+    # Inputs under the current floor do not count: the same separate swap of a and b
+    # is unstable while b is above the floor and stable once b falls under it.
+    above = _toy_budget([0.5, 0.3, 0.0], [0.45, 0.25, 0.0], [0.55, 0.35, 0.0], [0, 0, 1])
+    under = _toy_budget([0.5, 0.3, 0.0], [0.45, 0.25, 0.0], [0.55, 0.35, 0.0], [0, 1, 1])
+    assert not _stable_ranking(swapped, above)
+    assert _stable_ranking(swapped, under)
