@@ -19,11 +19,20 @@ explains through the inputs it is correlated with (these can add to more than
 one); ``delta`` is Borgonovo's moment-independent index; ``total_order`` is NaN;
 ``rank`` follows ``delta``; ``variance_share`` is ``first_order * Var(Y)``.
 The noise floor is the dummy's upper bounds on both, and an input is below
-it when both its indices are. ``attrs["method"]`` says which applies.
+it when both its indices are.
+
+Correlated inputs, conditional sampling (``method="kucherenko"``): for inputs
+joined by the Gaussian copula, ``first_order`` is again the full first-order
+index and ``total_order`` is ``E[Var(Y|X_~i)] / Var(Y)``, the share of the
+variance X_i still carries when every other input is known (Kucherenko,
+Tarantola & Annoni 2012); ``interaction = total - first`` may be negative
+when correlation dominates. Model runs N(2d+2). ``rank`` follows
+``total_order``. ``attrs["method"]`` says which of the three applies.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import warnings
 from collections.abc import Callable, Mapping, Sequence
 from typing import Any, Literal
@@ -36,6 +45,7 @@ from trapbudget.sensitivity.indices import (
     SobolResult,
     check_power_of_two,
     cross_matrices,
+    dependent_design,
     design_from_base,
     first_order_given_data,
     sobol_indices,
@@ -46,9 +56,10 @@ from trapbudget.sensitivity.sampling import is_distribution, transform
 
 __all__ = ["BudgetConvergenceWarning", "analyze_budget", "rank"]
 
-Method = Literal["sobol", "delta"]
-_METHODS = ("sobol", "delta")
+Method = Literal["sobol", "delta", "kucherenko"]
+_METHODS = ("sobol", "delta", "kucherenko")
 DUMMY = "dummy"
+_FULL_FIRST_ORDER = "full first-order index Var(E[Y|Xi])/Var(Y), correlations included"
 
 
 class BudgetConvergenceWarning(UserWarning):
@@ -183,6 +194,7 @@ def analyze_budget(
     *,
     inputs: Sequence[str],
     outputs: Sequence[str],
+    f_AB_total: np.ndarray | None = None,
     f_AB_groups: np.ndarray | None = None,
     groups: Mapping[str, Sequence[str]] | None = None,
     dummy_samples: np.ndarray | None = None,
@@ -204,6 +216,10 @@ def analyze_budget(
         Outputs on BA_i; gives ``second_order``.
     inputs, outputs : sequence of str
         Names along the ``input`` and ``output`` dims.
+    f_AB_total : numpy.ndarray, optional, shape (d, n, m)
+        For dependent inputs (:func:`~trapbudget.sensitivity.indices.dependent_design`):
+        ``f_AB`` holds the outputs on C_i (first order) and this the outputs
+        on D_i (total order).
     f_AB_groups : numpy.ndarray, optional, shape (g, n, m)
         Outputs on A with each group's columns from B (grouped indices).
     groups : mapping, optional
@@ -253,6 +269,22 @@ def analyze_budget(
         rng=generator,
         estimator=estimator,
     )
+    if f_AB_total is not None:
+        total = sobol_indices(
+            f_A,
+            f_B,
+            f_AB_total,
+            n_bootstrap=n_bootstrap,
+            confidence_level=confidence_level,
+            rng=generator,
+            estimator=estimator,
+        )
+        res = dataclasses.replace(
+            res,
+            total_order=total.total_order,
+            total_order_interval=total.total_order_interval,
+            total_order_se=total.total_order_se,
+        )
     a = np.asarray(f_A, float).reshape(f_A.shape[0], -1)
     b = np.asarray(f_B, float).reshape(a.shape)
     both = np.concatenate([a, b])
@@ -437,7 +469,11 @@ def rank(
         Rows per model call.
     progress : callable, optional
         ``progress(done, total)`` after each chunk of model runs.
-    method : {"sobol", "delta"}, default "sobol"
+    method : {"sobol", "delta", "kucherenko"}, default "sobol"
+        "sobol": Saltelli design, independent inputs (with a correlation,
+        "delta" is used instead). "delta": given-data indices on one
+        correlated sample. "kucherenko": conditional-sampling indices for
+        inputs joined by the Gaussian copula (see the module notes).
     estimator : {"jansen", "sobol2007"}, default "jansen"
         Total-order estimator.
 
@@ -497,31 +533,23 @@ def rank(
             correlation = None
     runner = _Runner(model, names, list(uncertain.values()), fixed, outputs, chunk_size, progress)
     max_samples = 16 * n_samples if max_samples is None else check_power_of_two(max_samples)
-    loop = {"convergence": convergence, "tolerance": tolerance, "max_samples": max_samples}
-    if method == "delta" or correlation is not None:
-        ds = _rank_given_data(
-            runner,
-            n_samples,
-            correlation=correlation,
-            dummy=dummy,
-            confidence_level=confidence_level,
-            n_bootstrap=n_bootstrap,
-            rng=generator,
-            **loop,
-        )
+    opts = _Options(
+        dummy=dummy,
+        convergence=convergence,
+        tolerance=tolerance,
+        max_samples=max_samples,
+        confidence_level=confidence_level,
+        n_bootstrap=n_bootstrap,
+        rng=generator,
+        estimator=estimator,
+    )
+    if method == "kucherenko":
+        dependence = np.eye(len(names)) if correlation is None else correlation
+        ds = _rank_dependent(runner, n_samples, opts, correlation=dependence)
+    elif method == "delta" or correlation is not None:
+        ds = _rank_given_data(runner, n_samples, opts, correlation=correlation)
     else:
-        ds = _rank_sobol(
-            runner,
-            n_samples,
-            second_order=second_order,
-            groups=group_map,
-            dummy=dummy,
-            confidence_level=confidence_level,
-            n_bootstrap=n_bootstrap,
-            rng=generator,
-            estimator=estimator,
-            **loop,
-        )
+        ds = _rank_sobol(runner, n_samples, opts, second_order=second_order, groups=group_map)
     _add_linear(ds, model, inputs, nominal, correlation, runner.outputs)
     counts = _validity_counts(model, np.concatenate(runner.validity) if runner.validity else None)
     ds.attrs.update(
@@ -539,20 +567,56 @@ def rank(
     return ds
 
 
-def _converge(
-    step: Callable[[int], xr.Dataset],
-    n_samples: int,
-    *,
-    convergence: bool,
-    tolerance: float,
-    max_samples: int,
-) -> xr.Dataset:
+@dataclasses.dataclass(frozen=True)
+class _Options:
+    """Settings every budget driver shares."""
+
+    dummy: bool
+    convergence: bool
+    tolerance: float
+    max_samples: int
+    confidence_level: float
+    n_bootstrap: int
+    rng: np.random.Generator
+    estimator: str
+
+    def analysis(self) -> dict[str, Any]:
+        return {
+            "confidence_level": self.confidence_level,
+            "n_bootstrap": self.n_bootstrap,
+            "rng": self.rng,
+            "estimator": self.estimator,
+        }
+
+
+class _Parts(dict):
+    """Evaluations collected over the steps of the convergence loop, by block name."""
+
+    def add(self, pieces: Mapping[str, np.ndarray | None]) -> None:
+        for key, value in pieces.items():
+            if value is not None:
+                self.setdefault(key, []).append(value)
+
+    def joined(self, key: str, axis: int = 0) -> np.ndarray | None:
+        return np.concatenate(self[key], axis=axis) if key in self else None
+
+    def dummy(self) -> np.ndarray | None:
+        """The dummy's values on the A rows, then the B rows."""
+        return np.concatenate([self.joined("dA"), self.joined("dB")]) if "dA" in self else None
+
+
+def _dummy_pieces(base: np.ndarray, d: int, width: int) -> dict[str, np.ndarray]:
+    return {"dA": base[:, d], "dB": base[:, width + d]} if width > d else {}
+
+
+def _converge(step: Callable[[int], xr.Dataset], n_samples: int, opts: _Options) -> xr.Dataset:
     """Run ``step(n_new)`` (adds n_new base samples, returns the budget so far).
 
-    One step without ``convergence``; else double N until the budget settles
-    (Sarrazin, Pianosi & Wagener 2016) or the next step would pass
-    ``max_samples``.
+    One step without ``opts.convergence``; else double N until the budget
+    settles (Sarrazin, Pianosi & Wagener 2016) or the next step would pass
+    ``opts.max_samples``.
     """
+    convergence, tolerance, max_samples = opts.convergence, opts.tolerance, opts.max_samples
     history = [step(n_samples)]
     n_total = n_samples
     converged = not convergence
@@ -580,29 +644,19 @@ def _converge(
 def _rank_sobol(
     runner: _Runner,
     n_samples: int,
+    opts: _Options,
     *,
     second_order: bool,
     groups: Mapping[str, tuple[str, ...]],
-    dummy: bool,
-    convergence: bool,
-    tolerance: float,
-    max_samples: int,
-    confidence_level: float,
-    n_bootstrap: int,
-    rng: np.random.Generator,
-    estimator: str,
 ) -> xr.Dataset:
     d = len(runner.names)
-    width = d + (1 if dummy else 0)
+    width = d + (1 if opts.dummy else 0)
     # One sequence for all steps: the first 2^m points, then the next 2^m, and so on,
     # so that each step reuses every earlier model run.
-    engine = qmc.Sobol(d=2 * width, scramble=True, rng=rng)
+    engine = qmc.Sobol(d=2 * width, scramble=True, rng=opts.rng)
     factors = [(j,) for j in range(d)]
     group_factors = [tuple(runner.names.index(m) for m in members) for members in groups.values()]
-    parts: dict[str, list[np.ndarray]] = {}
-
-    def joined(key: str, axis: int) -> np.ndarray | None:
-        return np.concatenate(parts[key], axis=axis) if key in parts else None
+    parts = _Parts()
 
     def step(new: int) -> xr.Dataset:
         base = engine.random(new)
@@ -616,36 +670,24 @@ def _rank_sobol(
             rows.append(cross_matrices(design.A, design.B, group_factors).reshape(-1, d))
         y = runner(np.concatenate(rows))
         f_a, f_b, f_ab, f_ba = design.split(y[: design.n_evaluations])
-        pieces = {"A": f_a, "B": f_b, "AB": f_ab, "BA": f_ba}
+        parts.add({"A": f_a, "B": f_b, "AB": f_ab, "BA": f_ba, **_dummy_pieces(base, d, width)})
         if groups:
-            pieces["G"] = y[design.n_evaluations :].reshape(len(groups), new, -1)
-        if dummy:
-            pieces["dA"] = base[:, d]
-            pieces["dB"] = base[:, width + d]
-        for key, value in pieces.items():
-            if value is not None:
-                parts.setdefault(key, []).append(value)
-        dummy_samples = np.concatenate([joined("dA", 0), joined("dB", 0)]) if dummy else None
+            parts.add({"G": y[design.n_evaluations :].reshape(len(groups), new, -1)})
         return analyze_budget(
-            joined("A", 0),
-            joined("B", 0),
-            joined("AB", 1),
-            joined("BA", 1),
+            parts.joined("A"),
+            parts.joined("B"),
+            parts.joined("AB", 1),
+            parts.joined("BA", 1),
             inputs=runner.names,
             outputs=runner.outputs,
-            f_AB_groups=joined("G", 1),
+            f_AB_groups=parts.joined("G", 1),
             groups=groups,
-            dummy_samples=dummy_samples,
+            dummy_samples=parts.dummy(),
             output_units=_units(runner.model, runner.outputs, "outputs"),
-            confidence_level=confidence_level,
-            n_bootstrap=n_bootstrap,
-            rng=rng,
-            estimator=estimator,
+            **opts.analysis(),
         )
 
-    return _converge(
-        step, n_samples, convergence=convergence, tolerance=tolerance, max_samples=max_samples
-    )
+    return _converge(step, n_samples, opts)
 
 
 _INDEX_KEYS = ("first_order", "total_order", "delta")
@@ -698,27 +740,60 @@ def _add_history(ds: xr.Dataset, history: Sequence[xr.Dataset]) -> None:
     )
 
 
+def _rank_dependent(
+    runner: _Runner, n_samples: int, opts: _Options, *, correlation: np.ndarray
+) -> xr.Dataset:
+    d = len(runner.names)
+    width = d + (1 if opts.dummy else 0)
+    engine = qmc.Sobol(d=2 * width, scramble=True, rng=opts.rng)
+    parts = _Parts()
+
+    def step(new: int) -> xr.Dataset:
+        base = engine.random(new)
+        a, b, c, dd = dependent_design(
+            np.column_stack([base[:, :d], base[:, width : width + d]]), correlation
+        )
+        y = runner(np.concatenate([a, b, c.reshape(-1, d), dd.reshape(-1, d)]))
+        blocks = y.reshape(2 + 2 * d, new, -1)
+        parts.add(
+            {"A": blocks[0], "B": blocks[1], "C": blocks[2 : 2 + d], "D": blocks[2 + d :]}
+            | _dummy_pieces(base, d, width)
+        )
+        ds = analyze_budget(
+            parts.joined("A"),
+            parts.joined("B"),
+            parts.joined("C", 1),
+            f_AB_total=parts.joined("D", 1),
+            inputs=runner.names,
+            outputs=runner.outputs,
+            dummy_samples=parts.dummy(),
+            output_units=_units(runner.model, runner.outputs, "outputs"),
+            **opts.analysis(),
+        )
+        ds["interaction"].attrs["long_name"] = (
+            "total minus first order; negative where correlation dominates"
+        )
+        ds.attrs.update(
+            method="kucherenko",
+            first_order_meaning=_FULL_FIRST_ORDER,
+            total_order_meaning="E[Var(Y|X~i)]/Var(Y): what X_i adds beyond the other inputs",
+        )
+        return ds
+
+    return _converge(step, n_samples, opts)
+
+
 def _rank_given_data(
-    runner: _Runner,
-    n_samples: int,
-    *,
-    correlation: np.ndarray | None,
-    dummy: bool,
-    convergence: bool,
-    tolerance: float,
-    max_samples: int,
-    confidence_level: float,
-    n_bootstrap: int,
-    rng: np.random.Generator,
+    runner: _Runner, n_samples: int, opts: _Options, *, correlation: np.ndarray | None
 ) -> xr.Dataset:
     from trapbudget.sensitivity.screening import delta_indices
 
     d = len(runner.names)
-    width = d + (1 if dummy else 0)
+    width = d + (1 if opts.dummy else 0)
     # Points per base sample: the Saltelli design's d + 2, up to a power of two.
     per_sample = 1 << int(np.ceil(np.log2(d + 2)))
-    engine = qmc.Sobol(d=width, scramble=True, rng=rng)
-    names = [*runner.names, *([DUMMY] if dummy else [])]
+    engine = qmc.Sobol(d=width, scramble=True, rng=opts.rng)
+    names = [*runner.names, *([DUMMY] if opts.dummy else [])]
     parts: dict[str, list[np.ndarray]] = {"x": [], "y": []}
 
     def step(new: int) -> xr.Dataset:
@@ -733,27 +808,25 @@ def _rank_given_data(
                 y,
                 input_names=names,
                 output_names=runner.outputs,
-                confidence_level=confidence_level,
-                n_bootstrap=n_bootstrap,
+                confidence_level=opts.confidence_level,
+                n_bootstrap=opts.n_bootstrap,
                 # Each delta resample costs a kernel estimate per class: SALib's default 100.
-                delta_bootstrap=min(n_bootstrap, 100),
-                rng=rng,
+                delta_bootstrap=min(opts.n_bootstrap, 100),
+                rng=opts.rng,
             ),
             y,
             runner,
-            dummy=dummy,
+            dummy=opts.dummy,
         )
         ds.attrs.update(
             n_samples=int(x.shape[0] // per_sample),
             n_points=int(x.shape[0]),
-            confidence_level=float(confidence_level),
-            n_bootstrap=int(n_bootstrap),
+            confidence_level=float(opts.confidence_level),
+            n_bootstrap=int(opts.n_bootstrap),
         )
         return ds
 
-    return _converge(
-        step, n_samples, convergence=convergence, tolerance=tolerance, max_samples=max_samples
-    )
+    return _converge(step, n_samples, opts)
 
 
 def _given_data_budget(table: xr.Dataset, y: np.ndarray, runner: _Runner, *, dummy: bool):
@@ -786,7 +859,7 @@ def _given_data_budget(table: xr.Dataset, y: np.ndarray, runner: _Runner, *, dum
     ds.attrs.update(
         method="delta",
         dummy=bool(dummy),
-        first_order_meaning="full first-order index Var(E[Y|Xi])/Var(Y), correlations included",
+        first_order_meaning=_FULL_FIRST_ORDER,
     )
     return ds
 

@@ -242,6 +242,40 @@ def test_correlated_inputs_use_the_given_data_method():
     assert "delta" in ds and not bool(sub["below_noise_floor"].any())
 
 
+def test_kucherenko_indices_for_correlated_inputs():
+    # Kucherenko, Tarantola & Annoni 2012 (CPC 183, 937); linear Gaussian closed forms by
+    # conditioning (references.md [F]): S_i = (sum_j R_ij)^2 / V and
+    # ST_i = Var(x_i | x_~i) / V = (1 - R_i,~i R_~i~i^-1 R_~i,i) / V, V = sum R.
+    corr = np.array([[1.0, 0.5, 0.8], [0.5, 1.0, 0.0], [0.8, 0.0, 1.0]])
+    v = corr.sum()
+    first = corr.sum(axis=1) ** 2 / v
+    total = []
+    for i in range(3):
+        rest = [j for j in range(3) if j != i]
+        r = corr[i, rest]
+        total.append((1 - r @ np.linalg.solve(corr[np.ix_(rest, rest)], r)) / v)
+    np.testing.assert_allclose(total, [0.0196, 0.0546, 0.0262], atol=1e-4)  # references.md
+    inputs = {f"x{i + 1}": stats.norm(0, 2.0) for i in range(3)}  # scale-free indices
+    ds = rank(
+        LinearModel([1.0, 1.0, 1.0]), inputs, n_samples=4096, correlation=corr, rng=1,
+        method="kucherenko", n_bootstrap=100,
+    )  # fmt: skip
+    sub = ds.sel(output="y")
+    assert ds.attrs["method"] == "kucherenko"
+    assert ds.attrs["n_evaluations"] == 4096 * (2 * 3 + 2)
+    assert np.all(np.abs(sub["first_order"].values - first) <= 4 * se(sub, "first_order"))
+    assert np.all(np.abs(sub["total_order"].values - total) <= 4 * se(sub, "total_order"))
+    assert bool((sub["interaction"] < 0).all())
+    # Without correlation the conditional design is the Saltelli design: the Sobol' values.
+    b = np.array([1.0, 2.0, 0.5])
+    indep = rank(
+        LinearModel(b), inputs, n_samples=2048, rng=2, method="kucherenko", n_bootstrap=100
+    )
+    exact = b**2 / np.sum(b**2)
+    sub = indep.sel(output="y")
+    assert np.all(np.abs(sub["total_order"].values - exact) <= 4 * se(sub, "total_order"))
+
+
 def test_given_data_convergence_loop():
     # The same doubling rule for the given-data budget (Sarrazin et al. 2016).
     corr = np.array([[1.0, 0.6], [0.6, 1.0]])

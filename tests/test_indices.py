@@ -226,3 +226,26 @@ def test_errors_name_the_fix():
         sobol_indices(np.ones(4), np.ones(4), np.ones((1, 4)), n_bootstrap=1)
     with pytest.raises(ValueError, match=r"factor columns"):
         saltelli_design(8, 2, factors=[(0, 5)])
+
+
+def test_dependent_design_structure_and_copula():
+    # Gaussian copula (normal scores correlation R) in A, B and every C_i, D_i;
+    # C_i shares x_i with B, D_i shares the others with A (Kucherenko et al. 2012).
+    from scipy import stats
+    from scipy.stats import qmc
+
+    from trapbudget.sensitivity.indices import dependent_design
+
+    corr = np.array([[1.0, 0.5, 0.8], [0.5, 1.0, 0.0], [0.8, 0.0, 1.0]])
+    n = 4096
+    base = qmc.Sobol(6, rng=np.random.default_rng(0)).random(n)
+    a, b, c, d = dependent_design(base, corr)
+    # Standard error of a correlation estimate ~ (1 - rho^2)/sqrt(n); 5 of them.
+    tol = 5 / math.sqrt(n)
+    for sample in (a, b, c[0], c[2], d[1]):
+        np.testing.assert_allclose(np.corrcoef(stats.norm.ppf(sample).T), corr, atol=tol)
+    np.testing.assert_array_equal(c[1][:, 1], b[:, 1])
+    np.testing.assert_array_equal(d[1][:, [0, 2]], a[:, [0, 2]])
+    # A and B independent of each other.
+    cross = np.corrcoef(stats.norm.ppf(a).T, stats.norm.ppf(b).T)[:3, 3:]
+    assert np.all(np.abs(cross) < tol)
