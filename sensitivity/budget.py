@@ -247,9 +247,11 @@ def analyze_budget(
     ignored dummy cannot mark a floor through the design itself. The floor is
     the upper bootstrap bound of the dummy's first-order index estimated from
     the 2n independent A and B rows by the class-mean (given-data) estimator
-    (Plischke, Borgonovo & Smith 2013); an input whose total-order estimate
-    lies below it is indistinguishable from an input the model ignores at
-    this n (Khorashadi Zadeh et al. 2017).
+    (Plischke, Borgonovo & Smith 2013): the size of index an estimator
+    returns at this n for an input that does nothing. An input whose
+    total-order estimate lies below it is reported as negligible, the
+    screening threshold of Khorashadi Zadeh et al. (2017); the floor falls
+    roughly as 1/n.
 
     References
     ----------

@@ -332,3 +332,23 @@ def test_ranking_stability_allows_statistical_ties_only():
     under = _toy_budget([0.5, 0.3, 0.0], [0.45, 0.25, 0.0], [0.55, 0.35, 0.0], [0, 1, 1])
     assert not _stable_ranking(swapped, above)
     assert _stable_ranking(swapped, under)
+
+
+def test_trap_model_budget_obeys_sobol_inequalities():
+    # Sobol' 1993: 0 <= S_i <= ST_i and sum_i S_i <= 1 for any square-integrable model;
+    # checked within the bootstrap intervals on the composed trap model.
+    from trapbudget.models import VaporCellMOT
+
+    model = VaporCellMOT()
+    names = ("beam_power", "detuning", "cell_temperature", "beam_waist")
+    # Invented 2 % standard tolerances around the model's defaults.
+    inputs = {k: stats.norm(model.inputs[k].default, 0.02 * abs(model.inputs[k].default))
+              for k in names}  # fmt: skip
+    ds = rank(model, inputs, n_samples=512, outputs=["atom_number", "temperature"], rng=0)
+    low, high = ds["first_order_low"], ds["total_order_high"]
+    assert bool((low <= high + 1e-12).all())
+    assert bool((ds["first_order_low"].sum("input") <= 1.0).all())
+    assert bool((ds["total_order_high"] >= -1e-12).all())
+    assert set(ds.attrs["validity_counts"]) >= {"any"}
+    assert ds.attrs["units_temperature"] == "K"
+    assert ds.attrs["units_beam_power"] == "W"
