@@ -146,6 +146,16 @@ def test_no_repumper_and_large_offset_are_flagged():
     assert float(far["atom_number"]) == 0.0
 
 
+def test_narrow_line_cannot_capture_from_a_thermal_vapor():
+    # common practice: a 689 nm Sr-88 MOT (7.5 kHz line) is loaded from a precooled blue MOT,
+    # not from the vapor: its capture velocity is far below the vapor's speeds
+    red = VaporCellMOT("Sr88-689", vapor_source="density")
+    result = red.evaluate({})
+    assert float(result["capture_velocity"]) < 1.0  # m/s, against a most probable speed ~240 m/s
+    assert float(result["atom_number"]) < 1.0
+    assert red.inputs["detuning"].default == pytest.approx(-15e3)  # -2 Gamma, 2 digits
+
+
 def test_outside_range_is_flagged_not_refused():
     result = MODEL.evaluate({"cell_temperature": [295.0, 500.0]})
     assert not result["validity"][0] & Validity.OUTSIDE_RANGE
