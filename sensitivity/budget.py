@@ -41,6 +41,7 @@ import numpy as np
 import xarray as xr
 from scipy.stats import qmc
 
+from trapbudget.sensitivity.errors import ScenarioError
 from trapbudget.sensitivity.indices import (
     SobolResult,
     check_power_of_two,
@@ -67,6 +68,13 @@ class BudgetConvergenceWarning(UserWarning):
 
 
 # --------------------------------------------------------------------------- helpers
+def _power_of_two(value: int, name: str) -> int:
+    try:
+        return check_power_of_two(value, name=name)
+    except ValueError as error:
+        raise ScenarioError(str(error)) from None
+
+
 def _split_inputs(inputs: Mapping[str, Any]) -> tuple[dict[str, Any], dict[str, float]]:
     uncertain, fixed = {}, {}
     for name, value in inputs.items():
@@ -76,14 +84,16 @@ def _split_inputs(inputs: Mapping[str, Any]) -> tuple[dict[str, Any], dict[str, 
             try:
                 fixed[name] = float(value)
             except (TypeError, ValueError):
-                raise ValueError(
+                raise ScenarioError(
                     f"inputs[{name!r}]: {value!r} is neither a frozen scipy.stats "
                     "distribution nor a number; give e.g. scipy.stats.norm(4e-3, 8e-5) or 4e-3"
                 ) from None
     if not uncertain:
-        raise ValueError("rank needs at least one uncertain input (a frozen distribution)")
+        raise ScenarioError("rank needs at least one uncertain input (a frozen distribution)")
     if DUMMY in uncertain:
-        raise ValueError(f"input name {DUMMY!r} is reserved for the noise-floor input; rename it")
+        raise ScenarioError(
+            f"input name {DUMMY!r} is reserved for the noise-floor input; rename it"
+        )
     return uncertain, fixed
 
 
@@ -104,7 +114,7 @@ def _normalise_groups(
         members = tuple(members)
         unknown = [m for m in members if m not in names]
         if unknown or not members:
-            raise ValueError(
+            raise ScenarioError(
                 f"groups[{group!r}]: {unknown or 'no members'} are not uncertain inputs; "
                 f"choose from {list(names)}"
             )
@@ -116,7 +126,7 @@ def _output_names(model, evaluated: Mapping[str, np.ndarray], outputs) -> list[s
     if outputs is not None:
         missing = [o for o in outputs if o not in evaluated]
         if missing:
-            raise ValueError(
+            raise ScenarioError(
                 f"outputs {missing} are not outputs of the model; choose from "
                 f"{[k for k in evaluated if k != 'validity']}"
             )
@@ -494,9 +504,9 @@ def rank(
 
     Raises
     ------
-    ValueError
-        ``n_samples`` not a power of two, unknown output or group member,
-        reserved input name, bad option.
+    ScenarioError
+        (a ValueError) ``n_samples`` not a power of two, unknown output or
+        group member, reserved input name, bad option.
 
     Warns
     -----
@@ -515,10 +525,10 @@ def rank(
     F. Khorashadi Zadeh et al., Environ. Model. Softw. 91, 210 (2017).
     """
     if method not in _METHODS:
-        raise ValueError(f"method must be one of {_METHODS}; got {method!r}")
+        raise ScenarioError(f"method must be one of {_METHODS}; got {method!r}")
     if not 0 < tolerance:
-        raise ValueError(f"tolerance must be positive; got {tolerance!r}")
-    n_samples = check_power_of_two(n_samples)
+        raise ScenarioError(f"tolerance must be positive; got {tolerance!r}")
+    n_samples = _power_of_two(n_samples, "n_samples")
     model = as_model(model, input_names=list(inputs))
     uncertain, fixed = _split_inputs(inputs)
     names = list(uncertain)
@@ -527,14 +537,16 @@ def rank(
     if correlation is not None:
         correlation = np.asarray(correlation, dtype=float)
         if correlation.shape != (len(names), len(names)):
-            raise ValueError(
+            raise ScenarioError(
                 f"correlation must be {len(names)}x{len(names)} for inputs {names}; "
                 f"got shape {correlation.shape}"
             )
         if np.allclose(correlation, np.eye(len(names))):
             correlation = None
     runner = _Runner(model, names, list(uncertain.values()), fixed, outputs, chunk_size, progress)
-    max_samples = 16 * n_samples if max_samples is None else check_power_of_two(max_samples)
+    max_samples = (
+        16 * n_samples if max_samples is None else _power_of_two(max_samples, "max_samples")
+    )
     opts = _Options(
         dummy=dummy,
         convergence=convergence,

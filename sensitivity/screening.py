@@ -17,6 +17,7 @@ import numpy as np
 import xarray as xr
 from scipy import stats
 
+from trapbudget.sensitivity.errors import ScenarioError
 from trapbudget.sensitivity.indices import (
     bootstrap_indices,
     default_bins,
@@ -69,7 +70,7 @@ def _columns_of(
         prefix = "x" if role == "input" else "y"
         names = [f"{prefix}{j + 1}" for j in range(matrix.shape[1])]
     if len(names) != matrix.shape[1]:
-        raise ValueError(f"{len(names)} {role} names for {matrix.shape[1]} columns: {names}")
+        raise ScenarioError(f"{len(names)} {role} names for {matrix.shape[1]} columns: {names}")
     return matrix, list(names)
 
 
@@ -239,13 +240,13 @@ def delta_indices(
     x, in_names = _columns_of(inputs, input_names, "input")
     y, out_names = _columns_of(inputs if outputs is None else outputs, output_names, "output")
     if x.shape[0] != y.shape[0]:
-        raise ValueError(
+        raise ScenarioError(
             f"inputs have {x.shape[0]} rows but outputs {y.shape[0]}; give equal rows"
         )
     if not 0 < confidence_level < 1:
-        raise ValueError(f"confidence_level must be in (0, 1); got {confidence_level!r}")
+        raise ScenarioError(f"confidence_level must be in (0, 1); got {confidence_level!r}")
     if backend not in ("fast", "salib"):
-        raise ValueError(f"backend must be 'fast' or 'salib'; got {backend!r}")
+        raise ScenarioError(f"backend must be 'fast' or 'salib'; got {backend!r}")
     s1, interval = first_order_given_data(
         x, y, n_bootstrap=n_bootstrap, confidence_level=confidence_level, rng=generator
     )
@@ -363,11 +364,11 @@ def morris(
     from trapbudget.sensitivity.protocol import as_model, evaluate_in_chunks
 
     if not isinstance(n_trajectories, int | np.integer) or n_trajectories < 2:
-        raise ValueError(f"n_trajectories must be an integer >= 2; got {n_trajectories!r}")
+        raise ScenarioError(f"n_trajectories must be an integer >= 2; got {n_trajectories!r}")
     if not isinstance(levels, int | np.integer) or levels < 2 or levels % 2:
-        raise ValueError(f"levels must be an even integer >= 2; got {levels!r}")
+        raise ScenarioError(f"levels must be an even integer >= 2; got {levels!r}")
     if not 0 < tail < 0.5:
-        raise ValueError(f"tail must be in (0, 0.5); got {tail!r}")
+        raise ScenarioError(f"tail must be in (0, 0.5); got {tail!r}")
     model = as_model(model, input_names=list(inputs))
     generator = np.random.default_rng(rng)
     uncertain, fixed = _split_inputs(inputs)

@@ -12,6 +12,7 @@ from scipy import stats
 
 from trapbudget.models.protocol import InputSpec, OutputSpec
 from trapbudget.sensitivity.budget import BudgetConvergenceWarning, analyze_budget, rank
+from trapbudget.sensitivity.errors import ScenarioError
 from trapbudget.sensitivity.indices import saltelli_design
 from trapbudget.sensitivity.io import load_dataset, save_dataset
 from trapbudget.sensitivity.testfunctions import Ishigami, LinearModel
@@ -292,7 +293,8 @@ def test_given_data_convergence_loop():
 
 def test_errors_name_the_fix():
     inputs = {"x1": UNIFORM, "x2": UNIFORM, "x3": UNIFORM}
-    with pytest.raises(ValueError, match=r"power of 2; got 1000, use 1024"):
+    # User mistakes are ScenarioErrors (the command line prints them on one line).
+    with pytest.raises(ScenarioError, match=r"power of 2; got 1000, use 1024"):
         rank(Ishigami(), inputs, n_samples=1000)
     with pytest.raises(ValueError, match=r"outputs \['z'\] are not outputs of the model"):
         rank(Ishigami(), inputs, n_samples=64, outputs=["z"])
