@@ -200,7 +200,7 @@ def temperature(
     detuning: ArrayLike,
     linewidth: ArrayLike,
     *,
-    sub_doppler_coefficient: ArrayLike,
+    sub_doppler_coefficient: ArrayLike | None = None,
     recoil_temperature: ArrayLike,
 ) -> np.ndarray:
     """Temperature of the cloud: Doppler, or sub-Doppler when lower, floored at the recoil limit.
@@ -212,8 +212,9 @@ def temperature(
     detuning : array_like, Hz
         Laser detuning (cyclic; red < 0).
     linewidth : array_like, 1/s
-    sub_doppler_coefficient : array_like
-        Prefactor of :func:`sub_doppler_temperature`; 0 means Doppler theory only.
+    sub_doppler_coefficient : array_like or None
+        Prefactor of :func:`sub_doppler_temperature`; ``None`` (default) means
+        Doppler theory only.
     recoil_temperature : array_like, K
         Floor (``Species.recoil_temperature``).
 
@@ -224,8 +225,10 @@ def temperature(
 
     Notes
     -----
-    ``T = max(T_r, min(T_Doppler, T_sub))`` with ``T_sub`` only where the
-    coefficient is positive. A coefficient of 0 gives ``T_Doppler``. In a MOT
+    ``T = max(T_r, min(T_Doppler, T_sub))`` with a coefficient, else
+    ``max(T_r, T_Doppler)``. The form is continuous in the coefficient (a
+    coefficient of 0 gives the recoil floor, not the Doppler value), so a fit
+    of the coefficient never meets a jump. In a MOT
     the field gradient and multiple scattering raise the temperature above
     molasses values; this function does not model that.
 
@@ -234,9 +237,9 @@ def temperature(
     P. D. Lett et al., J. Opt. Soc. Am. B 6, 2084 (1989); J. Dalibard and
     C. Cohen-Tannoudji, J. Opt. Soc. Am. B 6, 2023 (1989).
     """
-    coeff = np.asarray(sub_doppler_coefficient, dtype=float)
-    t_doppler = doppler_temperature(total_saturation, detuning, linewidth)
-    t_sub = sub_doppler_temperature(coeff, total_saturation, detuning, linewidth)
-    t = np.where(coeff > 0, np.minimum(t_doppler, t_sub), t_doppler)
+    t = doppler_temperature(total_saturation, detuning, linewidth)
+    if sub_doppler_coefficient is not None:
+        coeff = np.asarray(sub_doppler_coefficient, dtype=float)
+        t = np.minimum(t, sub_doppler_temperature(coeff, total_saturation, detuning, linewidth))
     t = np.maximum(t, np.asarray(recoil_temperature, dtype=float))
     return np.where(np.asarray(detuning, dtype=float) < 0, t, np.inf)

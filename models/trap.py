@@ -86,7 +86,9 @@ _NO_TRAP = (
 )
 
 
-def _inputs(sp: Species, gradient_source: str, vapor_source: str) -> dict[str, InputSpec]:
+def _inputs(
+    sp: Species, gradient_source: str, vapor_source: str, cooling_model: str
+) -> dict[str, InputSpec]:
     # default detuning -2 Gamma (2 significant digits): -12 MHz for Rb
     detuning = float(f"{-2.0 * sp.linewidth_hz:.2g}")
     specs = [
@@ -189,15 +191,6 @@ def _inputs(sp: Species, gradient_source: str, vapor_source: str) -> dict[str, I
             constant=True,
         ),
         InputSpec(
-            "sub_doppler_coefficient",
-            "",
-            0.0,
-            0.0,
-            1e3,
-            "sub-Doppler temperature coefficient (0 = Doppler only)",
-            constant=True,
-        ),
-        InputSpec(
             "saturation_scale",
             "",
             1.0,
@@ -234,6 +227,18 @@ def _inputs(sp: Species, gradient_source: str, vapor_source: str) -> dict[str, I
             constant=True,
         ),
     ]
+    if cooling_model == "sub-doppler":
+        specs.append(
+            InputSpec(
+                "sub_doppler_coefficient",
+                "",
+                0.3,
+                0.0,
+                1e3,
+                "sub-Doppler temperature coefficient (order one; calibrate it)",
+                constant=True,
+            )
+        )
     return {s.name: s for s in specs}
 
 
@@ -267,6 +272,12 @@ class VaporCellMOT:
     vapor_source : {"fraction", "density"}
         ``"fraction"``: ``vapor_fraction`` of the saturated density at the cell
         temperature (needs vapor-pressure data); ``"density"``: ``vapor_density``.
+    cooling : {"doppler", "sub-doppler"}
+        ``"doppler"`` (default): Doppler theory alone (Lett et al. 1989), floored
+        at the recoil temperature. ``"sub-doppler"``: adds the input
+        ``sub_doppler_coefficient`` (a calibratable constant) and takes the lower
+        of the Doppler and sub-Doppler temperatures (Dalibard & Cohen-Tannoudji
+        1989), continuous in the coefficient.
 
     Notes
     -----
@@ -305,6 +316,7 @@ class VaporCellMOT:
         *,
         gradient_source: Literal["direct", "coils"] = "direct",
         vapor_source: Literal["fraction", "density"] = "fraction",
+        cooling: Literal["doppler", "sub-doppler"] = "doppler",
     ) -> None:
         if gradient_source not in ("direct", "coils"):
             raise ModelError(
@@ -316,6 +328,10 @@ class VaporCellMOT:
                 f"VaporCellMOT: vapor_source={vapor_source!r} is not valid; "
                 "use 'fraction' or 'density'"
             )
+        if cooling not in ("doppler", "sub-doppler"):
+            raise ModelError(
+                f"VaporCellMOT: cooling={cooling!r} is not valid; use 'doppler' or 'sub-doppler'"
+            )
         self.species = lookup_species(species)
         if vapor_source == "fraction" and self.species.vapor is None:
             raise ModelError(
@@ -324,13 +340,16 @@ class VaporCellMOT:
             )
         self.gradient_source = gradient_source
         self.vapor_source = vapor_source
-        self.inputs: Mapping[str, InputSpec] = _inputs(self.species, gradient_source, vapor_source)
+        self.cooling = cooling
+        self.inputs: Mapping[str, InputSpec] = _inputs(
+            self.species, gradient_source, vapor_source, cooling
+        )
         self.outputs: Mapping[str, OutputSpec] = {o.name: o for o in _OUTPUTS}
 
     def __repr__(self) -> str:
         return (
             f"VaporCellMOT({self.species.name!r}, gradient_source={self.gradient_source!r}, "
-            f"vapor_source={self.vapor_source!r})"
+            f"vapor_source={self.vapor_source!r}, cooling={self.cooling!r})"
         )
 
     def explain(self, validity: ArrayLike) -> dict[str, int]:
@@ -489,7 +508,7 @@ class VaporCellMOT:
             s_total,
             cooling_detuning,
             gamma,
-            sub_doppler_coefficient=x["sub_doppler_coefficient"],
+            sub_doppler_coefficient=x.get("sub_doppler_coefficient"),
             recoil_temperature=sp.recoil_temperature,
         )
         s_pair = s_beam * (1.0 - 0.5 * imbalance)

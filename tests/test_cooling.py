@@ -157,10 +157,12 @@ def test_temperature_combination():
     s = np.array([0.05, 1.0, 6.0])
     det = np.array([-0.5, -2.0, -3.0]) * GAMMA_HZ
     doppler = doppler_temperature(s, det, GAMMA)
-    # coefficient 0: Doppler theory only
-    np.testing.assert_allclose(
-        temperature(s, det, GAMMA, sub_doppler_coefficient=0.0, recoil_temperature=tr), doppler
-    )
+    # no coefficient: Doppler theory only
+    np.testing.assert_allclose(temperature(s, det, GAMMA, recoil_temperature=tr), doppler)
+    # the coefficient enters continuously: 0 is the recoil floor, not a jump to Doppler
+    near_zero = temperature(s, det, GAMMA, sub_doppler_coefficient=1e-12, recoil_temperature=tr)
+    at_zero = temperature(s, det, GAMMA, sub_doppler_coefficient=0.0, recoil_temperature=tr)
+    np.testing.assert_allclose(at_zero, near_zero)
     # coefficient > 0: the lower of the two, floored at the recoil temperature
     c = np.array([0.3, 0.3, 0.3])
     sub = sub_doppler_temperature(c, s, det, GAMMA)

@@ -50,11 +50,14 @@ def test_protocol_records_match_the_contract():
         "vapor_loss_coefficient",
         "background_loss_coefficient",
         "two_body_coefficient",
-        "sub_doppler_coefficient",
         "saturation_scale",
         "density_limit",
         "detector_solid_angle",
         "detector_efficiency",
+    }
+    sub = VaporCellMOT("Rb87", cooling="sub-doppler")
+    assert {n for n, spec in sub.inputs.items() if spec.constant} == constants | {
+        "sub_doppler_coefficient"
     }
     assert {"coil_current", "coil_turns", "coil_radius", "coil_separation"} <= set(COILS.inputs)
     assert "gradient" not in COILS.inputs
@@ -292,3 +295,18 @@ def test_atom_number_scales_as_beam_diameter_to_the_3_6():
     best = result["atom_number"].max(axis=0)
     slope = np.polyfit(np.log(2 * waist), np.log(best), 1)[0]
     assert slope == pytest.approx(3.6, abs=0.6)
+
+
+def test_sub_doppler_cooling_is_colder_and_continuous_in_its_coefficient():
+    # Dalibard & Cohen-Tannoudji, JOSA B 6, 2023 (1989): T ~ I/|delta| below the Doppler value;
+    # Rb MOTs typically run at 100-300 uK (common practice).
+    sub = VaporCellMOT("Rb87", cooling="sub-doppler")
+    doppler = float(VaporCellMOT("Rb87").evaluate({})["temperature"])
+    c = np.array([0.0, 1e-9, 0.1, 0.3, 1.0, 100.0])
+    t = sub.evaluate({"sub_doppler_coefficient": c})["temperature"]
+    assert np.all(np.diff(t) >= 0)
+    assert t[0] == pytest.approx(t[1], rel=1e-6)  # no jump at zero
+    assert t[-1] == pytest.approx(doppler)  # large coefficient: Doppler theory caps it
+    assert 50e-6 < t[3] < 400e-6
+    with pytest.raises(ModelError, match="cooling='laser' is not valid"):
+        VaporCellMOT("Rb87", cooling="laser")
