@@ -35,6 +35,9 @@ _BUDGET_FIELDS = (
     "total_order_low",
     "total_order_high",
     "interaction",
+    "delta",
+    "delta_low",
+    "delta_high",
     "variance_share",
     "sensitivity_coefficient",
     "uncertainty_contribution",
@@ -109,6 +112,9 @@ def study_json(datasets: Mapping[str, xr.Dataset], study: Mapping[str, Any]) -> 
         "n_evaluations": study.get("n_evaluations"),
         "confidence_level": study.get("confidence_level"),
         "converged": _plain(budget.attrs["converged"]) if "converged" in budget.attrs else None,
+        # "sobol": Sobol' first/total order; "delta": correlated inputs, full first order and
+        # the moment-independent delta (total order undefined, null).
+        "index_method": str(budget.attrs.get("method", "")),
         "outputs": outputs,
     }
     if "requirements" in datasets and "requirement" in datasets["requirements"].dims:

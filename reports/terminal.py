@@ -39,7 +39,7 @@ def prediction_table(linear: xr.Dataset, *, title: str = "", top: int = 3) -> Ta
         std = float(row["output_std_linear"])
         contrib = np.nan_to_num(np.asarray(row["uncertainty_contribution"].values, float))
         order = np.argsort(-contrib, kind="stable")[:top]
-        tops = ", ".join(f"{inputs[i]} {format_quantity(contrib[i], unit)}" for i in order)
+        tops = "\n".join(f"{inputs[i]} {format_quantity(contrib[i], unit)}" for i in order)
         rel = format_percent(std / abs(nominal), digits=2) if nominal else ""
         table.add_row(name, format_quantity(nominal, unit), format_quantity(std, unit), rel, tops)
     return table

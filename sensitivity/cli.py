@@ -23,6 +23,7 @@ import contextlib
 import datetime as _dt
 import json
 import sys
+import warnings
 from collections.abc import Callable, Iterator, Sequence
 from importlib import resources
 from pathlib import Path
@@ -33,6 +34,7 @@ from trapbudget.sensitivity.errors import ScenarioError, TrapbudgetError, UsageE
 __all__ = [
     "SUBCOMMANDS",
     "add_common_options",
+    "add_max_samples_option",
     "add_samples_option",
     "build_parser",
     "emit_json",
@@ -50,6 +52,8 @@ DEFAULT_REPORT_ROOT = Path("trapbudget-reports")
 DEFAULT_DEMO_DIR = Path("trapbudget-demo")
 #: The demo scenario ``trapbudget demo`` runs.
 DEMO_SCENARIO = "harrier-rb87.toml"
+#: The demo's convergence loop may grow the base size N this many times (keeps it short).
+DEMO_GROWTH = 4
 
 
 # --------------------------------------------------------------------------- parsing
@@ -124,6 +128,20 @@ def add_samples_option(parser: argparse.ArgumentParser) -> None:
     )
 
 
+def add_max_samples_option(
+    parser: argparse.ArgumentParser, *, default_text: str = "16 N, the engine's default"
+) -> None:
+    """Add ``--max-samples N``: the largest base size the convergence loop may reach."""
+    parser.add_argument(
+        "--max-samples",
+        type=_positive_power_of_two,
+        default=None,
+        metavar="N",
+        help=f"largest base size the convergence loop may reach (power of 2; default "
+        f"{default_text})",
+    )
+
+
 def _add_predict(subparsers: argparse._SubParsersAction) -> None:
     p = subparsers.add_parser(
         "predict",
@@ -153,6 +171,7 @@ def _add_rank(subparsers: argparse._SubParsersAction) -> None:
         help="re-render the report saved in DIR instead of running (same as 'report DIR')",
     )
     add_samples_option(p)
+    add_max_samples_option(p)
     p.add_argument(
         "--no-convergence",
         dest="convergence",
@@ -196,6 +215,7 @@ def _add_demo(subparsers: argparse._SubParsersAction) -> None:
         f"overwriting files of the same name, and run 'rank' on {DEMO_SCENARIO}.",
     )
     add_samples_option(p)
+    add_max_samples_option(p, default_text=f"{DEMO_GROWTH} N, to keep the demo short")
     add_common_options(p)
     p.set_defaults(run=_run_demo)
 
@@ -355,6 +375,18 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; return the exit code (0 ok, 1 bad input, 2 bad usage)."""
     parser = build_parser()
+    with warnings.catch_warnings():
+        warnings.showwarning = _show_warning
+        return _main(parser, argv)
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    """Show a warning as ``CategoryName: message`` on one line of stderr (no source line)."""
+    text = " ".join(str(message).split())
+    print(f"{category.__name__}: {text}", file=sys.stderr)
+
+
+def _main(parser: argparse.ArgumentParser, argv: Sequence[str] | None) -> int:
     try:
         args = parser.parse_args(argv)
         if getattr(args, "run", None) is None:
@@ -498,6 +530,12 @@ def _rank_and_report(scenario: Any, args: argparse.Namespace, *, stem: str) -> i
     from trapbudget.reports.results import study_json
     from trapbudget.reports.terminal import budget_tables
 
+    n = args.samples if args.samples is not None else scenario.settings.n_samples
+    if args.max_samples is not None and args.max_samples < n:
+        raise UsageError(
+            f"{PROG}: --max-samples {args.max_samples} is below the sample size {n}; "
+            f"give at least {n}"
+        )
     out = report_dir(args, stem)
     with progress_reporter(args) as task:
         datasets, study = run_study(
@@ -505,6 +543,7 @@ def _rank_and_report(scenario: Any, args: argparse.Namespace, *, stem: str) -> i
             n_samples=args.samples,
             seed=args.seed,
             convergence=args.convergence,
+            max_samples=args.max_samples,
             second_order=args.second_order,
             task=task,
         )
@@ -531,6 +570,7 @@ def run_study(
     n_samples: int | None = None,
     seed: int | None = None,
     convergence: bool = True,
+    max_samples: int | None = None,
     second_order: bool = False,
     task: Callable[[str], Callable[[int, int], None] | None] = lambda description: None,
 ) -> tuple[dict[str, Any], dict[str, Any]]:
@@ -590,7 +630,8 @@ def run_study(
         chunk_size=int(getattr(settings, "chunk_size", 65536)),
         groups=scenario.groups or None,
         convergence=convergence,
-        progress=task("Sobol' indices"),
+        max_samples=max_samples,
+        progress=task("Sensitivity indices"),
     )
     datasets: dict[str, Any] = {
         "samples": samples,
@@ -670,6 +711,9 @@ def _run_demo(args: argparse.Namespace) -> int:
     scenario = load(folder / DEMO_SCENARIO)
     args.convergence = True
     args.second_order = False
+    if args.max_samples is None:
+        n = args.samples if args.samples is not None else scenario.settings.n_samples
+        args.max_samples = DEMO_GROWTH * n
     args.out = folder / f"report-{Path(DEMO_SCENARIO).stem}"
     return _rank_and_report(scenario, args, stem=Path(DEMO_SCENARIO).stem)
 

@@ -204,6 +204,12 @@ def test_report_rerenders_the_same_tables(capsys, ishigami_file, tmp_path):
     assert code == 0, err
 
 
+def test_max_samples_below_samples_is_a_usage_error(capsys, ishigami_file):
+    code, _, err = _run(capsys, "rank", str(ishigami_file), "--max-samples", "256")
+    assert code == 2
+    assert "give at least 1024" in _one_line_error(err, "UsageError")
+
+
 def test_report_of_a_folder_that_is_not_a_report(capsys, tmp_path):
     code, _, err = _run(capsys, "report", str(tmp_path))
     assert code == 2
@@ -271,6 +277,8 @@ tolerance = "0.2"
     assert [c["input"] for c in entry["contributions"]] == ["x2", "x1"]
 
 
+# A small demo run: whether its convergence loop settles at this size is not the point here.
+@pytest.mark.filterwarnings("ignore::trapbudget.sensitivity.budget.BudgetConvergenceWarning")
 @pytest.mark.slow
 def test_demo_writes_files_and_a_report(capsys, tmp_path):
     code, out, err = _run(capsys, "demo", "--out", str(tmp_path), "--samples", "128", "--json")
@@ -280,3 +288,31 @@ def test_demo_writes_files_and_a_report(capsys, tmp_path):
     assert Path(result["report"], "report.html").is_file()
     assert "atom_number" in result["outputs"]
     assert "invented" in (tmp_path / "harrier-rb87.toml").read_text(encoding="utf-8").lower()
+
+
+def test_second_species_demo_predicts_caesium(capsys):
+    from importlib import resources
+
+    path = resources.files("trapbudget.examples") / "harrier-cs133.toml"
+    code, out, err = _run(capsys, "predict", str(path), "--json")
+    assert code == 0, err
+    result = json.loads(out)
+    # Common practice: a few-mW, centimetre-beam vapor-cell MOT holds 1e6-1e10 atoms.
+    assert 1e6 < result["outputs"]["atom_number"]["nominal"] < 1e10
+    # Doppler limit of Cs-133, hbar Gamma / (2 k_B) = 125.61 uK (Steck, Cesium D Line Data);
+    # the Doppler-only model cannot go below it.
+    assert result["outputs"]["temperature"]["nominal"] > 125.6e-6
+
+
+def test_every_demo_file_says_it_is_invented():
+    from importlib import resources
+
+    files = [f for f in resources.files("trapbudget.examples").iterdir() if f.is_file()]
+    demo = [
+        f
+        for f in files
+        if f.name.endswith((".toml", ".md")) and f.name.startswith(("harrier", "README"))
+    ]
+    assert len(demo) >= 3
+    for item in demo:
+        assert "invented" in item.read_text(encoding="utf-8").lower(), item.name
