@@ -1,5 +1,100 @@
-"""The sensitivity engine: scenarios, propagation, global indices and the error budget."""
+"""The sensitivity engine: scenarios, propagation, global indices and the error budget.
 
+The main entry points::
+
+    from trapbudget.sensitivity import load_scenario, propagate, summarize, rank
+    s = load_scenario("examples/harrier-rb87.toml")
+    samples = propagate(s.model, s.inputs, n_samples=4096, correlation=s.correlation, rng=1)
+    budget = rank(s.model, s.inputs, n_samples=1024, correlation=s.correlation, rng=1)
+
+and, for specs, upgrades, calibration and drift: :func:`allocate`,
+:func:`compare`, :func:`compare_upgrades`, :func:`calibrate`, :func:`diagnose`.
+"""
+
+from trapbudget.sensitivity.allocate import Allocation, InfeasibleError, allocate
+from trapbudget.sensitivity.budget import BudgetConvergenceWarning, analyze_budget, rank
+from trapbudget.sensitivity.calibrate import Calibration, calibrate
+from trapbudget.sensitivity.compare import compare, compare_upgrades
+from trapbudget.sensitivity.costs import CostTier, SmoothCost, TieredCost
+from trapbudget.sensitivity.diagnose import Diagnosis, diagnose
+from trapbudget.sensitivity.distributions import Tolerance
 from trapbudget.sensitivity.errors import DataError, ScenarioError, TrapbudgetError, UsageError
+from trapbudget.sensitivity.indices import saltelli_design, sobol_indices
+from trapbudget.sensitivity.io import load_dataset, save_dataset
+from trapbudget.sensitivity.linear import compare_linear_monte_carlo, linear_propagation
+from trapbudget.sensitivity.measurements import (
+    fit_loading_curve,
+    fit_time_of_flight,
+    read_measurements,
+)
+from trapbudget.sensitivity.propagate import (
+    ModelValidityWarning,
+    propagate,
+    propagate_adaptive,
+    summarize,
+)
+from trapbudget.sensitivity.protocol import BoundModel, as_model, evaluate_in_chunks
+from trapbudget.sensitivity.requirements import Requirement, check_requirements
+from trapbudget.sensitivity.sampling import transform, unit_design
+from trapbudget.sensitivity.scenario import (
+    MODELS,
+    Scenario,
+    Settings,
+    Upgrade,
+    load_scenario,
+    register_model,
+    scenario_to_toml,
+)
+from trapbudget.sensitivity.screening import delta_indices, morris
 
-__all__ = ["DataError", "ScenarioError", "TrapbudgetError", "UsageError"]
+__all__ = [
+    "MODELS",
+    "Allocation",
+    "BoundModel",
+    "BudgetConvergenceWarning",
+    "Calibration",
+    "CostTier",
+    "DataError",
+    "Diagnosis",
+    "InfeasibleError",
+    "ModelValidityWarning",
+    "Requirement",
+    "Scenario",
+    "ScenarioError",
+    "Settings",
+    "SmoothCost",
+    "TieredCost",
+    "Tolerance",
+    "TrapbudgetError",
+    "Upgrade",
+    "UsageError",
+    "allocate",
+    "analyze_budget",
+    "as_model",
+    "calibrate",
+    "check_requirements",
+    "compare",
+    "compare_linear_monte_carlo",
+    "compare_upgrades",
+    "delta_indices",
+    "diagnose",
+    "evaluate_in_chunks",
+    "fit_loading_curve",
+    "fit_time_of_flight",
+    "linear_propagation",
+    "load_dataset",
+    "load_scenario",
+    "morris",
+    "propagate",
+    "propagate_adaptive",
+    "rank",
+    "read_measurements",
+    "register_model",
+    "saltelli_design",
+    "save_dataset",
+    "scenario_to_toml",
+    "sobol_indices",
+    "summarize",
+    "transform",
+    "unit_design",
+]
