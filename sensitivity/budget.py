@@ -206,6 +206,7 @@ def analyze_budget(
     outputs: Sequence[str],
     f_AB_total: np.ndarray | None = None,
     f_AB_groups: np.ndarray | None = None,
+    f_AB_groups_total: np.ndarray | None = None,
     groups: Mapping[str, Sequence[str]] | None = None,
     dummy_samples: np.ndarray | None = None,
     output_units: Mapping[str, str] | None = None,
@@ -232,6 +233,8 @@ def analyze_budget(
         on D_i (total order).
     f_AB_groups : numpy.ndarray, optional, shape (g, n, m)
         Outputs on A with each group's columns from B (grouped indices).
+    f_AB_groups_total : numpy.ndarray, optional, shape (g, n, m)
+        For dependent inputs, the D rows of each group (as ``f_AB_total``).
     groups : mapping, optional
         Group name -> member inputs, in the order of ``f_AB_groups``.
     dummy_samples : numpy.ndarray, optional, shape (2n,)
@@ -271,32 +274,13 @@ def analyze_budget(
     generator = np.random.default_rng(rng)
     inputs, outputs = list(inputs), list(outputs)
     units = dict(output_units or {})
-    res = sobol_indices(
-        f_A,
-        f_B,
-        f_AB,
-        f_BA,
-        n_bootstrap=n_bootstrap,
-        confidence_level=confidence_level,
-        rng=generator,
-        estimator=estimator,
-    )
-    if f_AB_total is not None:
-        total = sobol_indices(
-            f_A,
-            f_B,
-            f_AB_total,
-            n_bootstrap=n_bootstrap,
-            confidence_level=confidence_level,
-            rng=generator,
-            estimator=estimator,
-        )
-        res = dataclasses.replace(
-            res,
-            total_order=total.total_order,
-            total_order_interval=total.total_order_interval,
-            total_order_se=total.total_order_se,
-        )
+    kwargs = {
+        "n_bootstrap": n_bootstrap,
+        "confidence_level": confidence_level,
+        "rng": generator,
+        "estimator": estimator,
+    }
+    res = _first_and_total(f_A, f_B, f_AB, f_AB_total, f_BA, **kwargs)
     a = np.asarray(f_A, float).reshape(f_A.shape[0], -1)
     b = np.asarray(f_B, float).reshape(a.shape)
     both = np.concatenate([a, b])
@@ -333,15 +317,7 @@ def analyze_budget(
     if res.second_order is not None:
         _add_second_order(ds, res, inputs, outputs)
     if groups:
-        gres = sobol_indices(
-            f_A,
-            f_B,
-            f_AB_groups,
-            n_bootstrap=n_bootstrap,
-            confidence_level=confidence_level,
-            rng=generator,
-            estimator=estimator,
-        )
+        gres = _first_and_total(f_A, f_B, f_AB_groups, f_AB_groups_total, None, **kwargs)
         gds = _index_dataset(gres, list(groups), outputs, dim="group")
         for name in gds.data_vars:
             ds[f"group_{name}"] = gds[name]
@@ -358,6 +334,20 @@ def analyze_budget(
         dummy=dummy_samples is not None,
     )
     return ds
+
+
+def _first_and_total(f_A, f_B, f_first, f_total, f_BA, **kwargs) -> SobolResult:
+    """Sobol' estimates; the total order from ``f_total`` when the design has one."""
+    res = sobol_indices(f_A, f_B, f_first, f_BA, **kwargs)
+    if f_total is None:
+        return res
+    total = sobol_indices(f_A, f_B, f_total, **kwargs)
+    return dataclasses.replace(
+        res,
+        total_order=total.total_order,
+        total_order_interval=total.total_order_interval,
+        total_order_se=total.total_order_se,
+    )
 
 
 def _index_dataset(res: SobolResult, factors, outputs, *, dim: str) -> xr.Dataset:
@@ -559,9 +549,14 @@ def rank(
     )
     if method == "kucherenko":
         dependence = np.eye(len(names)) if correlation is None else correlation
-        ds = _rank_dependent(runner, n_samples, opts, correlation=dependence)
+        ds = _rank_dependent(runner, n_samples, opts, correlation=dependence, groups=group_map)
     elif method == "delta" or correlation is not None:
         ds = _rank_given_data(runner, n_samples, opts, correlation=correlation)
+        if group_map:
+            ds.attrs["groups_note"] = (
+                "no grouped indices from given data; use method='kucherenko' for groups of "
+                "correlated inputs"
+            )
     else:
         ds = _rank_sobol(runner, n_samples, opts, second_order=second_order, groups=group_map)
     _add_linear(ds, model, inputs, nominal, correlation, runner.outputs)
@@ -755,22 +750,35 @@ def _add_history(ds: xr.Dataset, history: Sequence[xr.Dataset]) -> None:
 
 
 def _rank_dependent(
-    runner: _Runner, n_samples: int, opts: _Options, *, correlation: np.ndarray
+    runner: _Runner,
+    n_samples: int,
+    opts: _Options,
+    *,
+    correlation: np.ndarray,
+    groups: Mapping[str, tuple[str, ...]],
 ) -> xr.Dataset:
     d = len(runner.names)
     width = d + (1 if opts.dummy else 0)
     engine = qmc.Sobol(d=2 * width, scramble=True, rng=opts.rng)
     parts = _Parts()
 
+    factors = [(j,) for j in range(d)]
+    factors += [tuple(runner.names.index(m) for m in members) for members in groups.values()]
+    k = len(factors)
+
     def step(new: int) -> xr.Dataset:
         base = engine.random(new)
         a, b, c, dd = dependent_design(
-            np.column_stack([base[:, :d], base[:, width : width + d]]), correlation
+            np.column_stack([base[:, :d], base[:, width : width + d]]),
+            correlation,
+            factors=factors,
         )
         y = runner(np.concatenate([a, b, c.reshape(-1, d), dd.reshape(-1, d)]))
-        blocks = y.reshape(2 + 2 * d, new, -1)
+        blocks = y.reshape(2 + 2 * k, new, -1)
+        c_rows, d_rows = blocks[2 : 2 + k], blocks[2 + k :]
         parts.add(
-            {"A": blocks[0], "B": blocks[1], "C": blocks[2 : 2 + d], "D": blocks[2 + d :]}
+            {"A": blocks[0], "B": blocks[1], "C": c_rows[:d], "D": d_rows[:d]}
+            | ({"CG": c_rows[d:], "DG": d_rows[d:]} if groups else {})
             | _dummy_pieces(base, d, width)
         )
         ds = analyze_budget(
@@ -778,6 +786,9 @@ def _rank_dependent(
             parts.joined("B"),
             parts.joined("C", 1),
             f_AB_total=parts.joined("D", 1),
+            f_AB_groups=parts.joined("CG", 1),
+            f_AB_groups_total=parts.joined("DG", 1),
+            groups=groups,
             inputs=runner.names,
             outputs=runner.outputs,
             dummy_samples=parts.dummy(),

@@ -604,8 +604,33 @@ def first_order_given_data(
     return point, ConfidenceInterval(low, high)
 
 
+def _conditional(z, fresh, correlation, kept, drawn) -> np.ndarray:
+    """Rows with columns ``kept`` from z and ``drawn`` ~ N(mean | kept, cov | kept).
+
+    z_T | z_S ~ N(R_TS R_SS^-1 z_S, R_TT - R_TS R_SS^-1 R_ST), the fresh
+    standard normals taken from the same columns of ``fresh``.
+    """
+    out = z.copy()
+    kept, drawn = list(kept), list(drawn)
+    if not drawn:
+        return out
+    if not kept:
+        out[:, drawn] = fresh[:, drawn] @ np.linalg.cholesky(correlation).T
+        return out
+    r_ss = correlation[np.ix_(kept, kept)]
+    r_ts = correlation[np.ix_(drawn, kept)]
+    coef = np.linalg.solve(r_ss, r_ts.T)  # (|S|, |T|)
+    cov = correlation[np.ix_(drawn, drawn)] - r_ts @ coef
+    chol = np.linalg.cholesky(cov + 1e-12 * np.eye(len(drawn)))
+    out[:, drawn] = z[:, kept] @ coef + fresh[:, drawn] @ chol.T
+    return out
+
+
 def dependent_design(
-    base: np.ndarray, correlation: np.ndarray
+    base: np.ndarray,
+    correlation: np.ndarray,
+    *,
+    factors: Sequence[Sequence[int]] | None = None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Conditional-sampling design for inputs joined by a Gaussian copula.
 
@@ -615,16 +640,18 @@ def dependent_design(
         Independent unit points (e.g. a scrambled Sobol' sequence).
     correlation : numpy.ndarray, shape (d, d)
         Correlation of the normal scores (positive definite).
+    factors : sequence of sequences of int, optional
+        Columns moved together (grouped indices); default one per column.
 
     Returns
     -------
     A, B : numpy.ndarray, shape (n, d)
         Two independent samples of the dependent inputs (copula scale, in (0, 1)).
-    C : numpy.ndarray, shape (d, n, d)
-        ``C[i]``: x_i from B, the other inputs drawn from their conditional
-        distribution given that x_i (for first-order indices).
-    D : numpy.ndarray, shape (d, n, d)
-        ``D[i]``: the other inputs from A, x_i drawn from its conditional
+    C : numpy.ndarray, shape (k, n, d)
+        ``C[i]``: factor i from B, the other inputs drawn from their
+        conditional distribution given it (for first-order indices).
+    D : numpy.ndarray, shape (k, n, d)
+        ``D[i]``: the other inputs from A, factor i drawn from its conditional
         distribution given them (for total-order indices).
 
     Notes
@@ -647,25 +674,14 @@ def dependent_design(
     eps_b = stats.norm.ppf(np.clip(base[:, d:], tiny, 1 - tiny))
     lower = np.linalg.cholesky(correlation)
     z_a, z_b = eps_a @ lower.T, eps_b @ lower.T
+    factors = [(j,) for j in range(d)] if factors is None else [tuple(f) for f in factors]
     n = base.shape[0]
-    c = np.empty((d, n, d))
-    dd = np.empty((d, n, d))
-    for i in range(d):
-        rest = [j for j in range(d) if j != i]
-        r_ti = correlation[np.ix_(rest, [i])]  # (d-1, 1)
-        # Others given x_i (from B): mean r_ti z_i, covariance R_rr - r_ti r_ti^T.
-        cov_rest = correlation[np.ix_(rest, rest)] - r_ti @ r_ti.T
-        c[i][:, i] = z_b[:, i]
-        if rest:
-            chol = np.linalg.cholesky(cov_rest + 1e-12 * np.eye(len(rest)))
-            c[i][:, rest] = z_b[:, [i]] @ r_ti.T + eps_a[:, rest] @ chol.T
-        # x_i given the others (from A).
-        dd[i] = z_a
-        if rest:
-            r_rr = correlation[np.ix_(rest, rest)]
-            coef = np.linalg.solve(r_rr, r_ti)  # (d-1, 1)
-            var = max(1.0 - float((r_ti.T @ coef)[0, 0]), 0.0)
-            dd[i][:, i] = (z_a[:, rest] @ coef)[:, 0] + np.sqrt(var) * eps_b[:, i]
-        else:
-            dd[i][:, i] = z_b[:, i]
+    c = np.empty((len(factors), n, d))
+    dd = np.empty((len(factors), n, d))
+    for k, kept in enumerate(factors):
+        rest = tuple(j for j in range(d) if j not in kept)
+        # C: the factor from B, the rest drawn given it (fresh normals from A).
+        c[k] = _conditional(z_b, eps_a, correlation, kept, rest)
+        # D: the rest from A, the factor drawn given them (fresh normals from B).
+        dd[k] = _conditional(z_a, eps_b, correlation, rest, kept)
     return stats.norm.cdf(z_a), stats.norm.cdf(z_b), stats.norm.cdf(c), stats.norm.cdf(dd)

@@ -267,6 +267,21 @@ def test_kucherenko_indices_for_correlated_inputs():
     assert np.all(np.abs(sub["first_order"].values - first) <= 4 * se(sub, "first_order"))
     assert np.all(np.abs(sub["total_order"].values - total) <= 4 * se(sub, "total_order"))
     assert bool((sub["interaction"] < 0).all())
+    # A group of correlated inputs, by the same conditioning: S_G = b' R_.G R_GG^-1 R_G. b / V,
+    # ST_G = 1' (R_GG - R_G~ R_~~^-1 R_~G) 1 / V for G = {x2, x3}, ~G = {x1}.
+    grouped = rank(
+        LinearModel([1.0, 1.0, 1.0]), inputs, n_samples=2048, correlation=corr, rng=5,
+        method="kucherenko", n_bootstrap=100, groups={"g": ["x2", "x3"]},
+    )  # fmt: skip
+    g, rest = [1, 2], [0]
+    col = corr[:, g].sum(axis=0)  # Cov(Y, X_G)
+    s_group = col @ np.linalg.solve(corr[np.ix_(g, g)], col) / v
+    cond = corr[np.ix_(g, g)] - corr[np.ix_(g, rest)] @ corr[np.ix_(rest, g)]
+    st_group = cond.sum() / v
+    sub = grouped.sel(output="y", group="g")
+    for key, exact_value in (("group_first_order", s_group), ("group_total_order", st_group)):
+        half = float(sub[f"{key}_high"] - sub[f"{key}_low"]) / 3.92
+        assert abs(float(sub[key]) - exact_value) <= 4 * half, (key, float(sub[key]))
     # Without correlation the conditional design is the Saltelli design: the Sobol' values.
     b = np.array([1.0, 2.0, 0.5])
     indep = rank(
