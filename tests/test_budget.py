@@ -109,6 +109,17 @@ def test_groups_of_an_additive_model_add_up():
     xr.testing.assert_allclose(again["group_total_order"], ds["group_total_order"])
 
 
+def test_grouped_second_order_budget_round_trips(tmp_path):
+    inputs = {"x1": UNIFORM, "x2": UNIFORM, "x3": UNIFORM}
+    ds = rank(
+        Ishigami(), inputs, n_samples=256, rng=0, second_order=True, groups={"g": ["x1", "x3"]},
+        n_bootstrap=20,
+    )  # fmt: skip
+    back = load_dataset(save_dataset(ds, tmp_path / "budget.nc"))
+    xr.testing.assert_identical(back, ds)
+    assert back["second_order"].dims == ("output", "input", "input_b")
+
+
 def test_convergence_loop_terminates_and_is_stable():
     # Sarrazin, Pianosi & Wagener 2016: interval width below the tolerance, stable ranking.
     inputs = {"x1": UNIFORM, "x2": UNIFORM, "x3": UNIFORM}
