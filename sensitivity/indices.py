@@ -21,6 +21,8 @@ __all__ = [
     "ConfidenceInterval",
     "SaltelliDesign",
     "SobolResult",
+    "dependent_design",
+    "first_order_given_data",
     "saltelli_design",
     "sobol_indices",
 ]
