@@ -176,11 +176,12 @@ def scatter_figure(
 
 
 def convergence_figure(budget: xr.Dataset, output: str, *, top: int = 6) -> bytes | None:
-    """Total-order indices of the top inputs against the base sample size N, or None."""
-    if "history_total_order" not in budget:
+    """The ranking index (total order, or delta) of the top inputs against N, or None."""
+    key, label = main_index(budget)
+    if f"history_{key}" not in budget:
         return None
     names = _ranked_inputs(budget, output, top)
-    history = budget["history_total_order"].sel(output=output)
+    history = budget[f"history_{key}"].sel(output=output)
     steps = np.asarray(budget["step_n_samples"].values, dtype=float)
     with plt.rc_context(_STYLE):
         fig, ax = plt.subplots(figsize=(5.6, 3.0))
@@ -188,7 +189,7 @@ def convergence_figure(budget: xr.Dataset, output: str, *, top: int = 6) -> byte
             ax.plot(steps, history.sel(input=name).values, marker="o", ms=3, lw=1, label=name)
         ax.set_xscale("log", base=2)
         ax.set_xlabel("base sample size N")
-        ax.set_ylabel("total-order index")
+        ax.set_ylabel(f"{label} index" if "index" not in label else label)
         ax.legend(loc="center left", bbox_to_anchor=(1.0, 0.5))
         ax.set_title(f"Convergence of the indices of {output.replace('_', ' ')}")
         return _png(fig)

@@ -143,7 +143,8 @@ def build_sections(
 
 # --------------------------------------------------------------------------- templates
 
-_MD_ESCAPES = str.maketrans({"<": "&lt;", ">": "&gt;", "&": "&amp;"})
+# Raw HTML in Markdown is live in most viewers: neutralise tags in every value.
+_MD_ESCAPES = str.maketrans({"<": "&lt;", ">": "&gt;"})
 
 
 def _md_finalize(value: Any) -> Any:

@@ -457,7 +457,7 @@ def linear_section(datasets: Datasets, study: Mapping[str, Any]) -> Section | No
 
 def convergence_section(datasets: Datasets, study: Mapping[str, Any]) -> Section | None:
     budget = datasets.get("budget")
-    if budget is None or "history_total_order" not in budget:
+    if budget is None or f"history_{main_index(budget)[0]}" not in budget:
         return None
     converged = budget.attrs.get("converged")
     steps = [int(n) for n in np.asarray(budget["step_n_samples"].values)]
@@ -476,7 +476,9 @@ def convergence_section(datasets: Datasets, study: Mapping[str, Any]) -> Section
         if png is not None:
             blocks.append(
                 Figure(
-                    f"convergence-{name}", png, caption=f"Total-order indices of {name} against N."
+                    f"convergence-{name}",
+                    png,
+                    caption=f"{main_index(budget)[1].capitalize()} of {name} against N.",
                 )
             )
     return Section("Convergence", blocks)
@@ -561,33 +563,43 @@ def _validity_counts(ds: xr.Dataset | None) -> dict[str, int]:
     if ds is None:
         return {}
     counts = ds.attrs.get("validity_counts") or {}
-    return {str(k): int(v) for k, v in dict(counts).items()}
+    return {str(k): int(v) for k, v in dict(counts).items() if int(v) and str(k) != "any"}
+
+
+def _flagged(ds: xr.Dataset) -> int | None:
+    if "validity" in ds:
+        return int(np.count_nonzero(np.asarray(ds["validity"].values)))
+    for key in ("n_invalid",):
+        if key in ds.attrs:
+            return int(ds.attrs[key])
+    counts = ds.attrs.get("validity_counts") or {}
+    return int(dict(counts)["any"]) if "any" in dict(counts) else None
 
 
 def validity_section(datasets: Datasets, study: Mapping[str, Any]) -> Section:
+    """How many model runs fell outside the model's validity, and why."""
     blocks: list[Any] = []
-    for key, label in (("samples", "Monte Carlo samples"), ("budget", "Sobol' design runs")):
+    for key, label in (("samples", "Monte Carlo samples"), ("budget", "Sensitivity-design runs")):
         ds = datasets.get(key)
         if ds is None:
             continue
+        total = int(ds.sizes.get("sample", 0) or ds.attrs.get("n_evaluations", 0) or 0)
+        flagged = _flagged(ds)
+        if flagged is not None:
+            of = f" of {total}" if total else ""
+            blocks.append(Text(f"{label}: {flagged}{of} outside the model's validity."))
         counts = _validity_counts(ds)
-        total = int(ds.attrs.get("n_evaluations", ds.sizes.get("sample", 0)) or 0)
-        if key == "samples" and "validity" in ds:
-            flagged = int(np.count_nonzero(np.asarray(ds["validity"].values)))
-            blocks.append(
-                Text(f"{label}: {flagged} of {ds.sizes['sample']} outside the model's validity.")
-            )
         if counts:
             blocks.append(
                 Table(
-                    ["Reason", "Samples"],
+                    ["Reason", "Runs"],
                     [[k, str(v)] for k, v in sorted(counts.items())],
-                    caption=f"{label}" + (f" ({total} runs)" if total else ""),
+                    caption=f"{label}: reasons (a run may have several)",
                     numeric=[False, True],
                 )
             )
     if not blocks:
-        blocks.append(Text("The model reported no samples outside its validity."))
+        blocks.append(Text("The model reported no runs outside its validity."))
     return Section("Validity", blocks)
 
 

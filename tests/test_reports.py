@@ -280,3 +280,33 @@ def test_figures_without_optional_data_return_none():
 def test_format_number(value, text):
     # Significant-digit rounding as Python's format spec defines it (Python docs, format spec).
     assert format_number(value) == text
+
+
+def test_given_data_budget_ranks_by_delta_and_plots_its_history():
+    # Correlated inputs: Sobol' total-order indices are undefined (NaN); the budget carries
+    # the moment-independent delta (Borgonovo 2007) and the report must show that instead.
+    datasets = _linear_datasets(n=512)
+    budget = datasets["budget"]
+    delta = budget["first_order"] * 0.8
+    budget["delta"] = delta
+    budget["delta_low"], budget["delta_high"] = delta - 0.01, delta + 0.01
+    budget["history_delta"] = budget["history_first_order"] * 0.8
+    for key in ("total_order", "total_order_low", "total_order_high", "history_total_order"):
+        budget[key] = budget[key] * np.nan
+    budget.attrs["method"] = "delta"
+    rendered = render_report(datasets, _study())
+    assert "| Delta (moment-independent) |" in rendered.markdown
+    assert "Total order" not in rendered.markdown
+    png = figures.convergence_figure(budget, "atom_number")
+    assert png is not None and png in rendered.figures.values()
+    result = study_json(datasets, _study())
+    top = result["outputs"]["atom_number"]["ranked_inputs"][0]
+    assert top["total_order"] is None and top["delta"] == pytest.approx(float(delta[0, 1]))
+    assert result["index_method"] == "delta"
+    json.dumps(result, allow_nan=False)
+
+
+def test_validity_section_counts_flagged_samples():
+    rendered = render_report(_linear_datasets(n=512), _study())
+    assert "Monte Carlo samples: 7 of 512 outside the model&#39;s validity." in rendered.html
+    assert "| NO_CAPTURE | 7 |" in rendered.markdown
