@@ -53,7 +53,7 @@ __all__ = [
     "write_report",
 ]
 
-#: Datasets a report folder may hold, saved as ``<name>.nc``.
+#: Datasets of a ``rank`` report folder, saved as ``<name>.nc`` (others may be added).
 DATASET_NAMES: tuple[str, ...] = (
     "samples",
     "summary",
@@ -326,11 +326,10 @@ def load_report(folder: str | os.PathLike[str]) -> tuple[dict[str, xr.Dataset], 
             f"{folder}: not a trapbudget report folder (no study.json); check the path"
         )
     study = json.loads(study_file.read_text(encoding="utf-8"))
-    datasets = {
-        name: load_dataset(folder / f"{name}.nc")
-        for name in DATASET_NAMES
-        if (folder / f"{name}.nc").is_file()
-    }
+    # The known Datasets first, in their order, then any other a section added.
+    names = [n for n in DATASET_NAMES if (folder / f"{n}.nc").is_file()]
+    names += sorted(p.stem for p in folder.glob("*.nc") if p.stem not in DATASET_NAMES)
+    datasets = {name: load_dataset(folder / f"{name}.nc") for name in names}
     missing = [n for n in ("summary", "budget") if n not in datasets]
     if missing:
         raise UsageError(f"{folder}: missing {', '.join(n + '.nc' for n in missing)}; re-run rank")

@@ -310,3 +310,24 @@ def test_validity_section_counts_flagged_samples():
     rendered = render_report(_linear_datasets(n=512), _study())
     assert "Monte Carlo samples: 7 of 512 outside the model&#39;s validity." in rendered.html
     assert "| NO_CAPTURE | 7 |" in rendered.markdown
+
+
+def test_public_names_exist():
+    # The package's __all__ names what it exports (common practice, checked as in httpx).
+    import trapbudget.reports as package
+
+    for name in package.__all__:
+        assert hasattr(package, name), name
+
+
+def test_rerender_loads_datasets_other_sections_added(tmp_path):
+    datasets = _linear_datasets(n=256)
+    extra = xr.Dataset({"x": ("k", [1.0, 2.0])})
+    out = write_report(tmp_path / "r", datasets={**datasets, "allocation": extra}, study=_study())
+    loaded, _ = load_report(out)
+    assert list(loaded)[: len(datasets)] == [
+        n
+        for n in ("samples", "summary", "linear", "linear_check", "budget", "requirements")
+        if n in datasets
+    ]
+    assert "allocation" in loaded
