@@ -160,7 +160,21 @@ def inputs_section(datasets: Datasets, study: Mapping[str, Any]) -> Section:
                 numeric=[False, False, True],
             )
         )
-    blocks.append(Text("Inputs not listed take the model's defaults.", kind="note"))
+    defaults = study.get("defaults", [])
+    if defaults:
+        blocks.append(
+            Table(
+                ["Input", "Default", "Constant", "Meaning"],
+                [
+                    [r["name"], r["value_text"], "yes" if r["constant"] else "", r["description"]]
+                    for r in defaults
+                ],
+                caption="Inputs left at the model's defaults (constants: calibratable)",
+                numeric=[False, True, False, False],
+            )
+        )
+    else:
+        blocks.append(Text("Inputs not listed take the model's defaults.", kind="note"))
     return Section("Inputs and tolerances", blocks)
 
 

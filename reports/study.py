@@ -130,6 +130,28 @@ def _fixed_rows(scenario: Any) -> list[dict[str, Any]]:
     return rows
 
 
+def _default_rows(scenario: Any) -> list[dict[str, Any]]:
+    """Model inputs the scenario leaves at their defaults (constants flagged)."""
+    specs = getattr(scenario.model, "inputs", {}) or {}
+    rows = []
+    for name, spec in specs.items():
+        if name in scenario.inputs or name in scenario.nominal:
+            continue
+        unit = str(getattr(spec, "unit", "") or "")
+        value = _float(getattr(spec, "default", math.nan))
+        rows.append(
+            {
+                "name": name,
+                "description": str(getattr(spec, "description", "") or ""),
+                "unit": unit,
+                "value": value,
+                "value_text": format_quantity(value, unit),
+                "constant": bool(getattr(spec, "constant", False)),
+            }
+        )
+    return rows
+
+
 def _correlation_rows(scenario: Any) -> list[dict[str, Any]]:
     matrix = getattr(scenario, "correlation", None)
     if matrix is None:
@@ -241,6 +263,7 @@ def describe_study(
         "outputs": [str(o) for o in scenario.outputs],
         "inputs": _input_rows(scenario),
         "fixed": _fixed_rows(scenario),
+        "defaults": _default_rows(scenario),
         "correlations": _correlation_rows(scenario),
         "requirements": _requirement_rows(scenario),
         "assumptions": _assumptions(scenario),

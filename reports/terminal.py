@@ -48,7 +48,7 @@ def prediction_table(linear: xr.Dataset, *, title: str = "", top: int = 3) -> Ta
 def budget_tables(summary: xr.Dataset, budget: xr.Dataset, *, top: int = 5) -> list[Table]:
     """One table per output: its Monte Carlo mean and spread, then its top drifts."""
     tables = []
-    key, label = main_index(budget)
+    key, index_label = main_index(budget)
     for name in [str(o) for o in budget["output"].values]:
         unit = output_unit(name, summary, budget)
         head = ""
@@ -62,7 +62,7 @@ def budget_tables(summary: xr.Dataset, budget: xr.Dataset, *, top: int = 5) -> l
         for column, justify in (
             ("rank", "right"),
             ("input", "left"),
-            (label, "right"),
+            (index_label, "right"),
             ("first order", "right"),
             ("sqrt(variance share)", "right"),
         ):

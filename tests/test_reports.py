@@ -331,3 +331,17 @@ def test_rerender_loads_datasets_other_sections_added(tmp_path):
         if n in datasets
     ]
     assert "allocation" in loaded
+
+
+def test_terminal_tables_keep_their_headers_for_every_output():
+    from trapbudget.reports.terminal import budget_tables
+
+    datasets = _linear_datasets(n=256)
+    budget = datasets["budget"]
+    per_output = [v for v in budget.data_vars if "output" in budget[v].dims]
+    parts = [budget[per_output], budget[per_output].assign_coords(output=["fluorescence"])]
+    two = xr.concat(parts, dim="output", data_vars="all")
+    tables = budget_tables(datasets["summary"], two)
+    assert len(tables) == 2
+    for table in tables:
+        assert [c.header for c in table.columns][:3] == ["rank", "input", "total order"]
