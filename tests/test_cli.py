@@ -316,3 +316,38 @@ def test_every_demo_file_says_it_is_invented():
     assert len(demo) >= 3
     for item in demo:
         assert "invented" in item.read_text(encoding="utf-8").lower(), item.name
+
+
+BLUE_EDGE = """
+[scenario]
+title = "Detuning across resonance (invented test case)"
+species = "Rb87"
+model = "VaporCellMOT"
+[inputs.detuning]
+nominal = "-1 MHz"
+tolerance = "3 MHz"
+meaning = "half-width"
+shape = "rectangular"
+[outputs]
+names = ["atom_number"]
+[settings]
+n_samples = 64
+seed = 3
+"""
+
+
+@pytest.mark.filterwarnings("default::UserWarning")
+def test_model_validity_warning_is_one_line_and_counted(capsys, tmp_path):
+    # Blue of resonance a red-detuning MOT cannot trap (common practice); the model flags it.
+    path = tmp_path / "blue.toml"
+    path.write_text(BLUE_EDGE, encoding="utf-8")
+    code, out, err = _run(
+        capsys, "rank", str(path), "--json", "--no-convergence", "--out", str(tmp_path / "b")
+    )
+    assert code == 0, err
+    warning_lines = [line for line in err.splitlines() if "Warning: " in line]
+    assert warning_lines and all("Traceback" not in line for line in err.splitlines())
+    assert any("BLUE_DETUNING" in line for line in warning_lines), err
+    counts = json.loads(out)["validity_counts"]
+    # Detuning uniform on [-4, 2] MHz: 2/6 of the samples lie blue of resonance.
+    assert counts["BLUE_DETUNING"] / 64 == pytest.approx(2 / 6, abs=4 * math.sqrt(2 / 9 / 64))
