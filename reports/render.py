@@ -46,6 +46,7 @@ __all__ = [
     "Text",
     "apply_umask",
     "build_sections",
+    "import_section_modules",
     "load_report",
     "register_section",
     "render_report",
@@ -330,10 +331,23 @@ def load_report(folder: str | os.PathLike[str]) -> tuple[dict[str, xr.Dataset], 
     names = [n for n in DATASET_NAMES if (folder / f"{n}.nc").is_file()]
     names += sorted(p.stem for p in folder.glob("*.nc") if p.stem not in DATASET_NAMES)
     datasets = {name: load_dataset(folder / f"{name}.nc") for name in names}
-    missing = [n for n in ("summary", "budget") if n not in datasets]
-    if missing:
-        raise UsageError(f"{folder}: missing {', '.join(n + '.nc' for n in missing)}; re-run rank")
     return datasets, study
+
+
+def import_section_modules() -> None:
+    """Import every module of ``trapbudget.reports`` so their registered sections apply.
+
+    Section modules call :func:`register_section` on import; a folder written
+    by any subcommand then re-renders with its sections (each builder returns
+    None when its Datasets are absent).
+    """
+    import importlib
+    import pkgutil
+
+    import trapbudget.reports as package
+
+    for info in pkgutil.iter_modules(package.__path__):
+        importlib.import_module(f"{package.__name__}.{info.name}")
 
 
 def rerender_report(
@@ -342,6 +356,7 @@ def rerender_report(
     """Re-render ``report.html``, ``report.md`` and the figures of a saved report folder."""
     folder = Path(folder)
     datasets, study = load_report(folder)
+    import_section_modules()
     _write_rendered(folder, render_report(datasets, study, extra_sections=extra_sections))
     apply_umask(folder)
     return datasets, study, folder

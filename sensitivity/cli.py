@@ -654,13 +654,20 @@ def _rerender(folder: Path, args: argparse.Namespace) -> int:
     from trapbudget.reports.terminal import budget_tables
 
     datasets, study, written = rerender_report(folder)
+    ranked = "summary" in datasets and "budget" in datasets
     if args.json:
-        emit_json({**study_json(datasets, study), "report": str(written)})
+        if ranked:
+            result = study_json(datasets, study)
+        else:  # a folder of another subcommand: its saved result
+            saved = Path(folder) / "result.json"
+            result = json.loads(saved.read_text(encoding="utf-8")) if saved.is_file() else {}
+        emit_json({**result, "report": str(written)})
         return 0
     console = stdout_console(args)
     if console is not None:
-        for table in budget_tables(datasets["summary"], datasets["budget"]):
-            console.print(table)
+        if ranked:
+            for table in budget_tables(datasets["summary"], datasets["budget"]):
+                console.print(table)
         console.print(f"Report: {written / 'report.html'}")
     return 0
 

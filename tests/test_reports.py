@@ -323,14 +323,14 @@ def test_public_names_exist():
 def test_rerender_loads_datasets_other_sections_added(tmp_path):
     datasets = _linear_datasets(n=256)
     extra = xr.Dataset({"x": ("k", [1.0, 2.0])})
-    out = write_report(tmp_path / "r", datasets={**datasets, "allocation": extra}, study=_study())
+    out = write_report(tmp_path / "r", datasets={**datasets, "extra_table": extra}, study=_study())
     loaded, _ = load_report(out)
     assert list(loaded)[: len(datasets)] == [
         n
         for n in ("samples", "summary", "linear", "linear_check", "budget", "requirements")
         if n in datasets
     ]
-    assert "allocation" in loaded
+    assert "extra_table" in loaded
 
 
 def test_terminal_tables_keep_their_headers_for_every_output():
