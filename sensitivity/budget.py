@@ -473,7 +473,8 @@ def rank(
         ``progress(done, total)`` after each chunk of model runs.
     method : {"sobol", "delta", "kucherenko"}, default "sobol"
         "sobol": Saltelli design, independent inputs (with a correlation,
-        "delta" is used instead). "delta": given-data indices on one
+        "kucherenko" is used instead, so first- and total-order indices stay
+        variance-based and groups work). "delta": given-data indices on one
         correlated sample. "kucherenko": conditional-sampling indices for
         inputs joined by the Gaussian copula (see the module notes).
     estimator : {"jansen", "sobol2007"}, default "jansen"
@@ -547,7 +548,7 @@ def rank(
         rng=generator,
         estimator=estimator,
     )
-    if method == "kucherenko":
+    if method == "kucherenko" or (method == "sobol" and correlation is not None):
         dependence = np.eye(len(names)) if correlation is None else correlation
         ds = _rank_dependent(runner, n_samples, opts, correlation=dependence, groups=group_map)
     elif method == "delta" or correlation is not None:

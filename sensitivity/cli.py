@@ -53,7 +53,7 @@ DEFAULT_DEMO_DIR = Path("trapbudget-demo")
 #: The demo scenario ``trapbudget demo`` runs.
 DEMO_SCENARIO = "harrier-rb87.toml"
 #: The demo's convergence loop may grow the base size N this many times (keeps it short).
-DEMO_GROWTH = 4
+DEMO_GROWTH = 16  # the engine default: the conditional-sampling budget settles fast
 
 
 # --------------------------------------------------------------------------- parsing

@@ -231,7 +231,18 @@ def test_validity_counts_and_netcdf_round_trip(tmp_path):
     assert back["below_noise_floor"].dtype == bool
 
 
-def test_correlated_inputs_use_the_given_data_method():
+def test_correlated_inputs_default_to_conditional_sampling():
+    # With a correlation and the default method, rank uses the Kucherenko conditional design
+    # so that total-order indices stay variance-based.
+    corr = np.array([[1.0, 0.5], [0.5, 1.0]])
+    inputs = {f"x{i + 1}": stats.norm(0, 1) for i in range(2)}
+    ds = rank(LinearModel([1.0, 1.0]), inputs, n_samples=256, correlation=corr, rng=0,
+              n_bootstrap=20)  # fmt: skip
+    assert ds.attrs["method"] == "kucherenko"
+    assert not bool(np.isnan(ds["total_order"]).any())
+
+
+def test_correlated_inputs_given_data_method():
     # Linear Gaussian, rho12 = 0.5, rho13 = 0.8 (references.md [F]): full first-order
     # indices by conditioning, (sum_j Sigma_ij)^2 / Sigma_ii / Var(Y).
     corr = np.array([[1.0, 0.5, 0.8], [0.5, 1.0, 0.0], [0.8, 0.0, 1.0]])
@@ -244,6 +255,7 @@ def test_correlated_inputs_use_the_given_data_method():
         correlation=corr,
         rng=0,
         n_bootstrap=20,
+        method="delta",
     )
     assert ds.attrs["method"] == "delta"
     sub = ds.sel(output="y")
@@ -309,7 +321,7 @@ def test_given_data_convergence_loop():
     inputs = {"x1": stats.norm(0, 1), "x2": stats.norm(0, 1)}
     ds = rank(
         LinearModel([1.0, 0.3]), inputs, n_samples=64, correlation=corr, rng=3,
-        n_bootstrap=30, convergence=True, tolerance=0.1,
+        n_bootstrap=30, convergence=True, tolerance=0.1, method="delta",
     )  # fmt: skip
     assert ds.attrs["converged"] is True and ds.attrs["method"] == "delta"
     assert ds["history_max_width"].values[-1] < 0.1
