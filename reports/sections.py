@@ -297,6 +297,14 @@ _SOBOL_TEXT = (
     "that would vanish if that input were known exactly (first order: its effect alone; "
     "interaction: total minus first)."
 )
+_CONDITIONAL_TEXT = (
+    "The scenario correlates some inputs, so the indices come from conditional sampling under "
+    "the Gaussian copula (Kucherenko, Tarantola & Annoni 2012): the first-order index is the "
+    "full Var(E[Y|Xi])/Var(Y) (a drift shared through a correlation counts for both inputs), "
+    "the total-order index the expected variance left by the input's own, independent part "
+    "E[Var(Y|X~i)]/Var(Y), by which the inputs are ranked. With correlations the first order "
+    "can exceed the total order; the interaction column is then not an interaction."
+)
 _GIVEN_DATA_TEXT = (
     "The scenario correlates some inputs, and Sobol' total-order indices assume independent "
     "inputs, so this budget comes from one correlated sample: the full first-order index "
@@ -313,7 +321,13 @@ def budget_section(datasets: Datasets, study: Mapping[str, Any]) -> Section | No
     level = format_percent(budget.attrs.get("confidence_level", 0.95), digits=0)
     _, label = main_index(budget)
     blocks: list[Any] = [
-        Text(_SOBOL_TEXT if label == "total order" else _GIVEN_DATA_TEXT),
+        Text(
+            _GIVEN_DATA_TEXT
+            if label != "total order"
+            else _CONDITIONAL_TEXT
+            if budget.attrs.get("method") == "kucherenko"
+            else _SOBOL_TEXT
+        ),
         Text(
             "The last two columns are in output units: the square root of the input's share of "
             "the variance (index x variance), and the linear (GUM) contribution |c| u at the "
