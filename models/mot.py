@@ -18,7 +18,8 @@ from typing import NamedTuple
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import constants as sc
-from scipy import special
+
+from trapbudget.models.vapor import flux_fraction_slower
 
 __all__ = [
     "LOADING_FRACTION",
@@ -88,16 +89,9 @@ def loading_rate(
     H. Robinson and C. Wieman, Phys. Rev. Lett. 65, 1571 (1990).
     """
     vp = _f(most_probable_speed)
-    x = np.maximum(_f(capture_velocity), 0.0) / vp
     mean_speed = 2.0 * vp / np.sqrt(np.pi)
-    return (
-        _f(prefactor)
-        * 0.25
-        * _f(density)
-        * _f(capture_area)
-        * mean_speed
-        * special.gammainc(2, x * x)
-    )
+    slow_flux = flux_fraction_slower(capture_velocity, vp)
+    return _f(prefactor) * 0.25 * _f(density) * _f(capture_area) * mean_speed * slow_flux
 
 
 def vapor_loss_rate(density: ArrayLike, coefficient: ArrayLike) -> NDArray[np.float64]:
