@@ -51,7 +51,13 @@ import xarray as xr
 from scipy import stats
 
 from trapbudget.sensitivity.errors import DataError, ScenarioError
-from trapbudget.sensitivity.measurements import convert, parse_header, registry
+from trapbudget.sensitivity.measurements import (
+    convert,
+    parse_cell,
+    parse_header,
+    read_table_lines,
+)
+from trapbudget.sensitivity.units import ureg
 
 try:
     import tomllib
@@ -125,21 +131,9 @@ def read_log(path: str | os.PathLike[str]) -> LogTable:
         Missing file or timestamp column, bad header cell, non-numeric cell,
         timestamps out of order.
     """
-    file = Path(path)
+    file, lines, metadata, start = read_table_lines(path)
     where = str(file)
-    try:
-        text = file.read_text(encoding="utf-8-sig")
-    except FileNotFoundError:
-        raise DataError("file not found; check the path", path=where) from None
-    lines = [line for line in text.splitlines() if line.strip()]
-    metadata: dict[str, str] = {}
-    while lines and lines[0].lstrip().startswith("#"):
-        body = lines.pop(0).lstrip().lstrip("#").strip()
-        if "=" in body:
-            key, value = (part.strip() for part in body.split("=", 1))
-            metadata[key] = value
-    if not lines:
-        raise DataError("no header line; add 'timestamp,name [unit],...'", path=where)
+    lines = [line for line in lines[start:] if line.strip()]
     reader = csv.reader(lines)
     names, units = parse_header(next(reader), where=where, example="coil_current [A]")
     if "timestamp" not in names:
@@ -147,7 +141,7 @@ def read_log(path: str | os.PathLike[str]) -> LogTable:
     stamps: list[np.datetime64] = []
     rows: list[list[float]] = []
     t_index = names.index("timestamp")
-    for row_number, row in enumerate(reader, start=2 + len(metadata)):
+    for row_number, row in enumerate(reader, start=2 + start):
         if len(row) != len(names):
             raise DataError(
                 f"row {row_number} has {len(row)} cells, the header has {len(names)}; fix the row",
@@ -158,17 +152,7 @@ def read_log(path: str | os.PathLike[str]) -> LogTable:
         for j, cell in enumerate(row):
             if j == t_index:
                 continue
-            cell = cell.strip()
-            if cell == "" or cell.lower() in {"nan", "na", "n/a"}:
-                values.append(math.nan)
-                continue
-            try:
-                values.append(float(cell))
-            except ValueError:
-                raise DataError(
-                    f"row {row_number}: {cell!r} in column {names[j]!r} is not a number",
-                    path=where,
-                ) from None
+            values.append(parse_cell(cell, f"{where}: row {row_number}", column=names[j]))
         rows.append(values)
     if not rows:
         raise DataError("no data rows; add log entries below the header", path=where)
@@ -273,7 +257,7 @@ def _channel_maps(
 
 
 def _quantity(text: str, where: str) -> Any:
-    reg = registry()
+    reg = ureg
     try:
         return reg.Quantity(text)
     except Exception:
@@ -288,7 +272,7 @@ def _input_values(
     written = log.written_units[cmap.column]
     if cmap.scale is None and cmap.offset is None:
         return convert(log.columns[cmap.column], written, target=spec.unit, where=where)
-    reg = registry()
+    reg = ureg
     try:
         column = reg.Quantity(log.columns[cmap.column], written or "dimensionless")
     except Exception:

@@ -66,6 +66,7 @@ import scipy.constants as const
 from scipy import optimize
 
 from trapbudget.sensitivity.errors import DataError
+from trapbudget.sensitivity.units import suggest_unit, ureg
 
 __all__ = [
     "CurveFit",
@@ -74,9 +75,10 @@ __all__ = [
     "fit_loading_curve",
     "fit_time_of_flight",
     "loading_curve",
+    "parse_cell",
     "parse_header",
     "read_measurements",
-    "registry",
+    "read_table_lines",
     "time_of_flight_radius",
     "to_observations",
 ]
@@ -104,28 +106,6 @@ KNOWN_UNITS: dict[str, str] = {
 
 _HEADER = re.compile(r"^\s*(?P<name>[A-Za-z_][A-Za-z0-9_]*)\s*(?:\[(?P<unit>[^\]]*)\])?\s*$")
 
-_LOCAL_REGISTRY: Any = None
-
-
-def registry() -> Any:
-    """Return the project's pint registry (``trapbudget.sensitivity.units.ureg``).
-
-    Falls back to a local registry with ``G`` as 1e-4 T when the units module
-    is not importable, so measurement files can be read on their own.
-    """
-    global _LOCAL_REGISTRY
-    try:
-        from trapbudget.sensitivity.units import ureg
-    except ImportError:
-        if _LOCAL_REGISTRY is None:
-            import pint
-
-            reg = pint.UnitRegistry(on_redefinition="ignore")
-            reg.define("gauss = 1e-4 tesla = G")
-            _LOCAL_REGISTRY = reg
-        return _LOCAL_REGISTRY
-    return ureg
-
 
 def convert(values: Any, written: str, *, target: str | None, where: str) -> np.ndarray:
     """Convert ``values`` written in unit ``written`` to ``target`` (SI), as floats.
@@ -146,43 +126,16 @@ def convert(values: Any, written: str, *, target: str | None, where: str) -> np.
     DataError
         Unknown unit, or a unit of the wrong dimension.
     """
-    reg = registry()
     arr = np.asarray(values, dtype=float)
     text = written.strip() or "dimensionless"
     if text == "1":
         text = "dimensionless"
     try:
-        units = reg.parse_units(text)
+        units = ureg.parse_units(text)
     except Exception:
-        known = [
-            "mW",
-            "W",
-            "MHz",
-            "Hz",
-            "s",
-            "ms",
-            "us",
-            "mm",
-            "um",
-            "m",
-            "K",
-            "mK",
-            "uK",
-            "degC",
-            "G/cm",
-            "T/m",
-            "Pa",
-            "mbar",
-            "torr",
-            "A",
-            "V",
-            "1/s",
-            "1",
-        ]
-        close = difflib.get_close_matches(written, known, n=1)
-        hint = f"; did you mean {close[0]!r}?" if close else "; write an SI unit such as 'mW'"
+        hint = suggest_unit(written, target) or "; write an SI unit such as 'mW'"
         raise DataError(f"{written!r} is not a unit{hint}", path=where) from None
-    quantity = reg.Quantity(arr, units)
+    quantity = ureg.Quantity(arr, units)
     try:
         if target is None:
             out = quantity.to_base_units()
@@ -262,16 +215,63 @@ def _is_known(name: str, model: Any | None) -> bool:
     return base in model.inputs or base in model.outputs
 
 
-def _number(text: str, where: str) -> float:
+def parse_cell(text: str, where: str, *, column: str | None = None) -> float:
+    """One CSV cell as a float; empty, ``nan``, ``na`` and ``n/a`` are missing (NaN).
+
+    Raises
+    ------
+    DataError
+        A cell that is not a number (naming the column when given).
+    """
     text = text.strip()
     if text == "" or text.lower() in {"nan", "na", "n/a"}:
         return math.nan
     try:
         return float(text)
     except ValueError:
+        named = "" if column is None else f" (column {column!r})"
         raise DataError(
-            f"{text!r} is not a number; write a plain decimal number", path=where
+            f"{text!r} is not a number{named}; write a plain decimal number", path=where
         ) from None
+
+
+def read_table_lines(path: str | os.PathLike[str]) -> tuple[Path, list[str], dict[str, str], int]:
+    """Read a CSV file with an optional ``# key = value`` preamble.
+
+    Returns
+    -------
+    (file, lines, metadata, start)
+        ``lines`` of the file, the preamble's ``key -> value`` pairs (comment
+        lines without ``=`` are ignored), and the index of the header line.
+
+    Raises
+    ------
+    DataError
+        A missing or unreadable file, or no header line after the comments.
+    """
+    file = Path(path)
+    where = str(file)
+    try:
+        text = file.read_text(encoding="utf-8-sig")
+    except FileNotFoundError:
+        raise DataError("file not found; check the path", path=where) from None
+    except OSError as exc:
+        raise DataError(
+            f"cannot read the file ({exc.strerror}); check the path", path=where
+        ) from None
+    lines = text.splitlines()
+    metadata: dict[str, str] = {}
+    for start, line in enumerate(lines):
+        stripped = line.strip()
+        if not stripped:
+            continue
+        if not stripped.startswith("#"):
+            return file, lines, metadata, start
+        body = stripped.lstrip("#").strip()
+        if "=" in body:
+            key, value = (part.strip() for part in body.split("=", 1))
+            metadata[key] = value
+    raise DataError("no header line found; add 'name [unit],...' after the comments", path=where)
 
 
 def read_measurements(path: str | os.PathLike[str], *, model: Any | None = None) -> MeasurementSet:
@@ -295,38 +295,15 @@ def read_measurements(path: str | os.PathLike[str], *, model: Any | None = None)
         Missing file, bad header, unknown unit, unknown column (with the
         closest model names), unknown kind.
     """
-    file = Path(path)
+    file, lines, preamble, start = read_table_lines(path)
     where = str(file)
-    try:
-        text = file.read_text(encoding="utf-8-sig")
-    except FileNotFoundError:
-        raise DataError("file not found; check the path", path=where) from None
-    except OSError as exc:
-        raise DataError(
-            f"cannot read the file ({exc.strerror}); check the path", path=where
-        ) from None
-    lines = text.splitlines()
     metadata: dict[str, str] = {}
     settings_text: dict[str, str] = {}
-    start = 0
-    for start, line in enumerate(lines):  # noqa: B007
-        stripped = line.strip()
-        if not stripped:
-            continue
-        if not stripped.startswith("#"):
-            break
-        body = stripped.lstrip("#").strip()
-        if "=" not in body:
-            continue
-        key, value = (part.strip() for part in body.split("=", 1))
+    for key, value in preamble.items():
         if key.startswith("setting "):
             settings_text[key[len("setting ") :].strip()] = value
         else:
             metadata[key] = value
-    else:
-        raise DataError(
-            "no header line found; add 'name [unit],...' after the comments", path=where
-        )
     reader = csv.reader(lines[start:])
     names, written = parse_header(next(reader), where=where, example="beam_power [mW]")
     for name in names:
@@ -348,7 +325,12 @@ def read_measurements(path: str | os.PathLike[str], *, model: Any | None = None)
                 f"row {row_number} has {len(row)} cells, the header has {len(names)}; fix the row",
                 path=where,
             )
-        raw.append([_number(cell, f"{where}: row {row_number}") for cell in row])
+        raw.append(
+            [
+                parse_cell(cell, f"{where}: row {row_number}", column=name)
+                for cell, name in zip(row, names, strict=True)
+            ]
+        )
     if not raw:
         raise DataError("no data rows; add measurements below the header", path=where)
     table = np.array(raw, dtype=float)
@@ -362,9 +344,7 @@ def read_measurements(path: str | os.PathLike[str], *, model: Any | None = None)
         units[name] = (
             target
             if target is not None
-            else str(
-                registry().Quantity(1.0, written[name] or "dimensionless").to_base_units().units
-            )
+            else str(ureg.Quantity(1.0, written[name] or "dimensionless").to_base_units().units)
         )
     settings: dict[str, float] = {}
     for name, value in settings_text.items():
@@ -430,7 +410,7 @@ def _parse_setting(text: str, unit: str | None, where: str) -> float:
     match = re.match(r"^\s*([-+0-9.eE]+)\s*(.*)$", text)
     if match is None:
         raise DataError(f"{text!r} is not 'number unit'; write e.g. '4 mW'", path=where)
-    return float(convert(_number(match[1], where), match[2], target=unit, where=where))
+    return float(convert(parse_cell(match[1], where), match[2], target=unit, where=where))
 
 
 def _infer_kind(names: Sequence[str]) -> str:

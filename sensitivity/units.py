@@ -38,6 +38,7 @@ __all__ = [
     "parse_quantity",
     "parse_tolerance",
     "parse_tolerance_text",
+    "suggest_unit",
     "ureg",
 ]
 
@@ -110,10 +111,13 @@ def _si_unit(unit: str) -> pint.Unit:
     return ureg.parse_units(unit) if unit not in ("", "1") else ureg.dimensionless
 
 
-def _suggest(bad: str, unit: str) -> str:
-    """Return ``"; did you mean 'mW'?"`` for a misspelt unit, preferring matching dimensions."""
+def suggest_unit(bad: str, unit: str | None) -> str:
+    """Return ``"; did you mean 'mW'?"`` for a misspelt unit, preferring the dimension of ``unit``.
+
+    ``unit`` is the SI unit the value should convert to, or None for no preference.
+    """
     try:
-        target = _si_unit(unit).dimensionality
+        target = None if unit is None else _si_unit(unit).dimensionality
     except (pint.errors.PintError, ValueError, AttributeError, TypeError):
         target = None
     compatible = []
@@ -161,11 +165,11 @@ def _units_of(unit_text: str, *, text: object, unit: str, where: str, path: obje
         names = getattr(error, "unit_names", None) or (unit_text,)
         bad = names[0] if isinstance(names, list | tuple) else str(names)
         raise ScenarioError(
-            f"{text!r}: {bad!r} is not a unit{_suggest(unit_text, unit)}", path=path, key=where
+            f"{text!r}: {bad!r} is not a unit{suggest_unit(unit_text, unit)}", path=path, key=where
         ) from None
     except (pint.errors.PintError, ValueError, AttributeError, TypeError, SyntaxError):
         raise ScenarioError(
-            f"{text!r}: {unit_text!r} is not a unit{_suggest(unit_text, unit)}",
+            f"{text!r}: {unit_text!r} is not a unit{suggest_unit(unit_text, unit)}",
             path=path,
             key=where,
         ) from None
