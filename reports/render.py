@@ -34,7 +34,13 @@ import xarray as xr
 from markupsafe import Markup
 
 from trapbudget.sensitivity.errors import UsageError
-from trapbudget.sensitivity.io import atomic_write_json, atomic_write_text, save_dataset
+from trapbudget.sensitivity.io import (
+    atomic_write_bytes,
+    atomic_write_json,
+    atomic_write_text,
+    default_mode,
+    save_dataset,
+)
 
 __all__ = [
     "DATASET_NAMES",
@@ -44,7 +50,6 @@ __all__ = [
     "Section",
     "Table",
     "Text",
-    "apply_umask",
     "build_sections",
     "import_section_modules",
     "load_report",
@@ -235,27 +240,12 @@ def _write_rendered(folder: Path, rendered: RenderedReport) -> None:
     fig_dir = folder / "figures"
     fig_dir.mkdir(parents=True, exist_ok=True)
     for name, png in rendered.figures.items():
-        with open(fig_dir / f".{name}.png.part", "wb") as handle:
-            handle.write(png)
-        os.replace(fig_dir / f".{name}.png.part", fig_dir / f"{name}.png")
+        atomic_write_bytes(fig_dir / f"{name}.png", png)
     for stale in fig_dir.glob("*.png"):
         if stale.stem not in rendered.figures:
             stale.unlink()
     atomic_write_text(folder / "report.html", rendered.html)
     atomic_write_text(folder / "report.md", rendered.markdown)
-
-
-def apply_umask(path: str | os.PathLike[str]) -> None:
-    """Give ``path`` (and everything below it) the usual permissions under the umask.
-
-    Temporary files and folders are created private (0600/0700); a finished
-    report should be as readable as any file the user writes.
-    """
-    mask = os.umask(0)
-    os.umask(mask)
-    root = Path(path)
-    for item in [root, *root.rglob("*")] if root.is_dir() else [root]:
-        os.chmod(item, (0o777 if item.is_dir() else 0o666) & ~mask)
 
 
 def _is_report_folder(folder: Path) -> bool:
@@ -291,6 +281,7 @@ def write_report(
         )
     out.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.", suffix=".part", dir=out.parent))
+    os.chmod(tmp, default_mode(directory=True))  # mkdtemp makes it private
     try:
         for name, ds in datasets.items():
             save_dataset(ds, tmp / f"{name}.nc")
@@ -300,7 +291,6 @@ def write_report(
         if scenario_file is not None and Path(scenario_file).is_file():
             shutil.copyfile(scenario_file, tmp / Path(scenario_file).name)
         _write_rendered(tmp, render_report(datasets, study, extra_sections=extra_sections))
-        apply_umask(tmp)
         if out.exists():
             old = out.with_name(f".{out.name}.old-{os.getpid()}")
             os.replace(out, old)
@@ -358,5 +348,4 @@ def rerender_report(
     datasets, study = load_report(folder)
     import_section_modules()
     _write_rendered(folder, render_report(datasets, study, extra_sections=extra_sections))
-    apply_umask(folder)
     return datasets, study, folder

@@ -704,7 +704,6 @@ def _demo_files() -> list[Any]:
 
 
 def _run_demo(args: argparse.Namespace) -> int:
-    from trapbudget.reports.render import apply_umask
     from trapbudget.sensitivity.io import atomic_write_bytes
 
     folder = Path(args.out) if args.out is not None else DEFAULT_DEMO_DIR
@@ -712,7 +711,6 @@ def _run_demo(args: argparse.Namespace) -> int:
         raise UsageError(f"{PROG} demo: --out {folder} is a file; give a folder")
     for item in _demo_files():
         atomic_write_bytes(folder / item.name, item.read_bytes())
-        apply_umask(folder / item.name)
     if not args.quiet and not args.json:
         print(f"Demo files (invented lab) written to {folder}/", file=sys.stderr)
     scenario = load(folder / DEMO_SCENARIO)

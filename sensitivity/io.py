@@ -18,9 +18,17 @@ __all__ = [
     "atomic_write_bytes",
     "atomic_write_json",
     "atomic_write_text",
+    "default_mode",
     "load_dataset",
     "save_dataset",
 ]
+
+
+def default_mode(*, directory: bool = False) -> int:
+    """Permissions a plainly created file (or folder) gets under the current umask."""
+    mask = os.umask(0)
+    os.umask(mask)
+    return (0o777 if directory else 0o666) & ~mask
 
 
 @contextlib.contextmanager
@@ -28,7 +36,8 @@ def atomic_path(path: str | os.PathLike[str]) -> Iterator[Path]:
     """Yield a temporary path beside ``path``; move it into place only on success.
 
     An exception inside the block removes the temporary file and leaves any
-    existing ``path`` untouched.
+    existing ``path`` untouched. The finished file gets the usual permissions
+    under the umask (a temporary file is created private).
     """
     target = Path(path)
     target.parent.mkdir(parents=True, exist_ok=True)
@@ -37,6 +46,7 @@ def atomic_path(path: str | os.PathLike[str]) -> Iterator[Path]:
     tmp_path = Path(tmp)
     try:
         yield tmp_path
+        os.chmod(tmp_path, default_mode())
         os.replace(tmp_path, target)
     finally:
         if tmp_path.exists():
