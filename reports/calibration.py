@@ -20,7 +20,7 @@ import matplotlib.pyplot as plt
 import numpy as np
 import xarray as xr
 
-from trapbudget.reports.figures import _STYLE, BLUE, GREY, ORANGE, _png
+from trapbudget.reports.figures import BLUE, FIGURE_STYLE, GREY, ORANGE, figure_png
 from trapbudget.reports.formatting import format_number, format_percent, format_quantity
 from trapbudget.reports.render import Figure, Section, Table, Text, register_section
 
@@ -61,7 +61,7 @@ def residual_figure(ds: xr.Dataset) -> bytes:
     outputs = [str(o) for o in ds["output"].values]
     residual = np.asarray(ds["normalized_residual"].values, dtype=float)
     colours = [BLUE, ORANGE, GREY, "#4d8b57", "#7a4d8b"]
-    with plt.rc_context(_STYLE):
+    with plt.rc_context(FIGURE_STYLE):
         fig, ax = plt.subplots(figsize=(6.4, 2.8))
         for k, name in enumerate(dict.fromkeys(outputs)):
             idx = np.flatnonzero(np.array(outputs) == name)
@@ -79,7 +79,7 @@ def residual_figure(ds: xr.Dataset) -> bytes:
         ax.set_xlabel("observation")
         ax.set_ylabel("(measured - predicted) / u")
         ax.legend(loc="upper right", ncols=min(3, len(set(outputs))))
-        return _png(fig)
+        return figure_png(fig)
 
 
 def _correlation_table(ds: xr.Dataset) -> Table | None:

@@ -21,7 +21,7 @@ import matplotlib.pyplot as plt
 import numpy as np
 import xarray as xr
 
-from trapbudget.reports.figures import _STYLE, BLUE, GREY, ORANGE, _png
+from trapbudget.reports.figures import BLUE, FIGURE_STYLE, GREY, ORANGE, figure_png
 from trapbudget.reports.formatting import (
     display_scale,
     format_number,
@@ -29,7 +29,7 @@ from trapbudget.reports.formatting import (
     format_quantity,
 )
 from trapbudget.reports.render import Figure, Section, Table, Text, register_section
-from trapbudget.reports.results import _dim_records, _plain
+from trapbudget.reports.results import dim_records, plain_value
 
 __all__ = [
     "benefit_figure",
@@ -185,7 +185,7 @@ def distribution_figure(ds: xr.Dataset, output: str) -> bytes:
     base = np.asarray(_pick(ds, _options(ds)[0])["quantiles_before"].sel(output=output).values)
     scale, label = display_scale(unit, float(np.nanmax(np.abs(base))) or 1.0)
     colors = [BLUE, ORANGE, "#5a8a3a", "#8a3a6a", "#3a7a8a", "#7a6a3a"]
-    with plt.rc_context(_STYLE):
+    with plt.rc_context(FIGURE_STYLE):
         fig, ax = plt.subplots(figsize=(6.0, 3.4))
         ax.plot(base * scale, levels, color=GREY, lw=1.6, label="before")
         for k, option in enumerate(_options(ds)[: len(colors)]):
@@ -201,14 +201,14 @@ def distribution_figure(ds: xr.Dataset, output: str) -> bytes:
         ax.set_xlabel(f"{text} ({label})" if label and label != "1" else text)
         ax.set_ylabel("fraction of runs below")
         ax.legend(loc="lower right")
-    return _png(fig)
+    return figure_png(fig)
 
 
 def benefit_figure(ds: xr.Dataset) -> bytes:
     """Cost against benefit of each upgrade (benefit as in ``attrs['benefit_metric']``)."""
     costs = np.asarray(ds["cost"].values, dtype=float)
     benefit = np.asarray(ds["benefit"].values, dtype=float)
-    with plt.rc_context(_STYLE):
+    with plt.rc_context(FIGURE_STYLE):
         fig, ax = plt.subplots(figsize=(6.0, 3.6))
         ax.scatter(costs, benefit, color=BLUE, zorder=3)
         for name, x, y in zip(_options(ds), costs, benefit, strict=True):
@@ -218,7 +218,7 @@ def benefit_figure(ds: xr.Dataset) -> bytes:
         ax.axhline(0.0, color=GREY, lw=0.8)
         ax.set_xlabel(f"cost ({ds.attrs.get('currency', '')})".replace(" ()", ""))
         ax.set_ylabel(str(ds.attrs.get("benefit_metric", "benefit")))
-    return _png(fig)
+    return figure_png(fig)
 
 
 def comparison_json(ds: xr.Dataset) -> dict[str, Any]:
@@ -235,19 +235,19 @@ def comparison_json(ds: xr.Dataset) -> dict[str, Any]:
         "currency",
         "benefit_metric",
     )
-    out: dict[str, Any] = {k: _plain(ds.attrs[k]) for k in keys if k in ds.attrs}
+    out: dict[str, Any] = {k: plain_value(ds.attrs[k]) for k in keys if k in ds.attrs}
     changes = []
     for option in _options(ds):
         item = _pick(ds, option)
         entry: dict[str, Any] = {"name": option}
         for key in ("cost", "benefit", "benefit_per_cost", "rank"):
             if key in item:
-                entry[key] = _plain(item[key])
+                entry[key] = plain_value(item[key])
         if "upgrade" not in ds.dims:
-            entry["cost"] = _plain(ds.attrs.get("cost", math.nan))
-        entry["outputs"] = _dim_records(item, "output")
+            entry["cost"] = plain_value(ds.attrs.get("cost", math.nan))
+        entry["outputs"] = dim_records(item, "output")
         if "requirement" in ds.dims:
-            entry["requirements"] = _dim_records(item, "requirement")
+            entry["requirements"] = dim_records(item, "requirement")
         changes.append(entry)
     out["changes"] = changes
     return out

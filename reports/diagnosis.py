@@ -21,7 +21,7 @@ import matplotlib.pyplot as plt
 import numpy as np
 import xarray as xr
 
-from trapbudget.reports.figures import _STYLE, BLUE, GREY, ORANGE, _png
+from trapbudget.reports.figures import BLUE, FIGURE_STYLE, GREY, ORANGE, figure_png
 from trapbudget.reports.formatting import format_number, format_percent
 from trapbudget.reports.render import Figure, Section, Table, Text, register_section
 
@@ -43,7 +43,7 @@ def _days(ds: xr.Dataset) -> list[str]:
 def time_series_figure(ds: xr.Dataset) -> bytes:
     """Measured and predicted output per log entry; flagged days shaded."""
     time = ds["time"].values
-    with plt.rc_context(_STYLE):
+    with plt.rc_context(FIGURE_STYLE):
         fig, ax = plt.subplots(figsize=(6.8, 2.9))
         for day, flagged in zip(ds["day"].values, ds["flagged"].values, strict=True):
             if flagged:
@@ -53,7 +53,7 @@ def time_series_figure(ds: xr.Dataset) -> bytes:
         ax.set_ylabel(str(ds.attrs.get("output", "output")).replace("_", " "))
         ax.legend(loc="best")
         fig.autofmt_xdate()
-        return _png(fig)
+        return figure_png(fig)
 
 
 def attribution_figure(ds: xr.Dataset) -> bytes:
@@ -61,7 +61,7 @@ def attribution_figure(ds: xr.Dataset) -> bytes:
     level = float(ds.attrs.get("reference_level", 1.0)) or 1.0
     phi = np.asarray(ds["attribution"].values, dtype=float) / level
     x = np.arange(ds.sizes["day"])
-    with plt.rc_context(_STYLE):
+    with plt.rc_context(FIGURE_STYLE):
         fig, ax = plt.subplots(figsize=(6.8, 3.2))
         pos = np.zeros(x.size)
         neg = np.zeros(x.size)
@@ -98,7 +98,7 @@ def attribution_figure(ds: xr.Dataset) -> bytes:
         ax.set_xticks(x, _days(ds), rotation=30, ha="right")
         ax.set_ylabel("change vs reference (fraction)")
         ax.legend(loc="center left", bbox_to_anchor=(1.0, 0.5))
-        return _png(fig)
+        return figure_png(fig)
 
 
 def day_rows(ds: xr.Dataset) -> list[list[str]]:

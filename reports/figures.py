@@ -21,8 +21,14 @@ import xarray as xr
 from trapbudget.reports.formatting import display_scale, main_index, units_of
 
 __all__ = [
+    "BLUE",
+    "FIGURE_STYLE",
+    "GREY",
+    "LIGHT_BLUE",
+    "ORANGE",
     "budget_figure",
     "convergence_figure",
+    "figure_png",
     "histogram_figure",
     "interaction_figure",
     "scatter_figure",
@@ -33,7 +39,7 @@ LIGHT_BLUE = "#9bbbd6"
 GREY = "#6b6b6b"
 ORANGE = "#b8641c"
 
-_STYLE = {
+FIGURE_STYLE = {
     "figure.facecolor": "white",
     "axes.facecolor": "white",
     "axes.edgecolor": "#444444",
@@ -50,7 +56,7 @@ _STYLE = {
 }
 
 
-def _png(fig: plt.Figure) -> bytes:
+def figure_png(fig: plt.Figure) -> bytes:
     buffer = io.BytesIO()
     fig.savefig(buffer, format="png", dpi=110, bbox_inches="tight", metadata={"Software": None})
     plt.close(fig)
@@ -84,7 +90,7 @@ def histogram_figure(samples: xr.Dataset, summary: xr.Dataset, output: str) -> b
     unit = units_of(samples, output)
     row = summary.sel(output=output)
     factor, unit_label = display_scale(unit, float(np.median(values)) if values.size else 1.0)
-    with plt.rc_context(_STYLE):
+    with plt.rc_context(FIGURE_STYLE):
         fig, ax = plt.subplots(figsize=(5.6, 3.0))
         if values.size:
             bins = int(np.clip(np.sqrt(values.size), 10, 60))
@@ -101,7 +107,7 @@ def histogram_figure(samples: xr.Dataset, summary: xr.Dataset, output: str) -> b
         ax.set_ylabel("samples")
         ax.legend(loc="upper right")
         ax.set_title(f"Distribution of {output.replace('_', ' ')}")
-        return _png(fig)
+        return figure_png(fig)
 
 
 def _ranked_inputs(budget: xr.Dataset, output: str, top: int | None) -> list[str]:
@@ -125,7 +131,7 @@ def budget_figure(budget: xr.Dataset, output: str, *, top: int = 12) -> bytes:
         if "below_noise_floor" in row
         else np.zeros(len(names), dtype=bool)
     )
-    with plt.rc_context(_STYLE):
+    with plt.rc_context(FIGURE_STYLE):
         fig, ax = plt.subplots(figsize=(5.6, 0.9 + 0.32 * len(names)))
         key, label = main_index(budget)
         total = np.asarray(row[key].values, dtype=float)
@@ -147,7 +153,7 @@ def budget_figure(budget: xr.Dataset, output: str, *, top: int = 12) -> bytes:
         ax.set_xlim(left=min(0.0, float(np.nanmin(np.r_[first, 0.0]))))
         ax.legend(loc="lower right")
         ax.set_title(f"What drives {output.replace('_', ' ')}")
-        return _png(fig)
+        return figure_png(fig)
 
 
 def scatter_figure(
@@ -161,7 +167,7 @@ def scatter_figure(
     index = np.unique(np.linspace(0, n - 1, min(n, max_points)).astype(int)) if n else []
     y = y_all[index]
     y_factor, y_unit = display_scale(units_of(samples, output), float(np.nanmedian(y)) if n else 1)
-    with plt.rc_context(_STYLE):
+    with plt.rc_context(FIGURE_STYLE):
         fig, axes = plt.subplots(
             1, max(1, len(names)), figsize=(2.2 + 2.0 * max(1, len(names)), 2.6), squeeze=False
         )
@@ -172,7 +178,7 @@ def scatter_figure(
             ax.set_xlabel(_label(name, x_unit))
         axes[0][0].set_ylabel(_label(output, y_unit))
         fig.suptitle(f"{output.replace('_', ' ')} against its top drifts", fontsize=10)
-        return _png(fig)
+        return figure_png(fig)
 
 
 def convergence_figure(budget: xr.Dataset, output: str, *, top: int = 6) -> bytes | None:
@@ -183,7 +189,7 @@ def convergence_figure(budget: xr.Dataset, output: str, *, top: int = 6) -> byte
     names = _ranked_inputs(budget, output, top)
     history = budget[f"history_{key}"].sel(output=output)
     steps = np.asarray(budget["step_n_samples"].values, dtype=float)
-    with plt.rc_context(_STYLE):
+    with plt.rc_context(FIGURE_STYLE):
         fig, ax = plt.subplots(figsize=(5.6, 3.0))
         for name in names:
             ax.plot(steps, history.sel(input=name).values, marker="o", ms=3, lw=1, label=name)
@@ -192,7 +198,7 @@ def convergence_figure(budget: xr.Dataset, output: str, *, top: int = 6) -> byte
         ax.set_ylabel(f"{label} index" if "index" not in label else label)
         ax.legend(loc="center left", bbox_to_anchor=(1.0, 0.5))
         ax.set_title(f"Convergence of the indices of {output.replace('_', ' ')}")
-        return _png(fig)
+        return figure_png(fig)
 
 
 def interaction_figure(budget: xr.Dataset, output: str, *, top: int = 8) -> bytes | None:
@@ -203,7 +209,7 @@ def interaction_figure(budget: xr.Dataset, output: str, *, top: int = 8) -> byte
     matrix = budget["second_order"].sel(output=output, input=names, input_b=names).values
     matrix = np.asarray(matrix, dtype=float)
     sym = np.where(np.isfinite(matrix), matrix, matrix.T)
-    with plt.rc_context({**_STYLE, "axes.grid": False}):
+    with plt.rc_context({**FIGURE_STYLE, "axes.grid": False}):
         fig, ax = plt.subplots(figsize=(4.8, 4.0))
         image = ax.imshow(np.clip(sym, 0, None), cmap="Blues", vmin=0)
         labels = [n.replace("_", " ") for n in names]
@@ -211,4 +217,4 @@ def interaction_figure(budget: xr.Dataset, output: str, *, top: int = 8) -> byte
         ax.set_yticks(range(len(names)), labels)
         fig.colorbar(image, ax=ax, label="second-order index")
         ax.set_title(f"Interactions ({output.replace('_', ' ')})")
-        return _png(fig)
+        return figure_png(fig)

@@ -15,7 +15,7 @@ import xarray as xr
 
 from trapbudget.reports.formatting import output_unit
 
-__all__ = ["prediction_json", "study_json"]
+__all__ = ["dim_records", "plain_value", "prediction_json", "study_json"]
 
 _SUMMARY_FIELDS = (
     "nominal",
@@ -44,7 +44,7 @@ _BUDGET_FIELDS = (
 )
 
 
-def _plain(value: Any) -> Any:
+def plain_value(value: Any) -> Any:
     """A JSON-safe Python scalar: NaN and infinities become None."""
     arr = np.asarray(value)
     if arr.dtype == bool:
@@ -63,20 +63,24 @@ def _ranked(budget: xr.Dataset, output: str) -> list[dict[str, Any]]:
     ranked = []
     for i in order:
         item = row.isel(input=int(i))
-        entry: dict[str, Any] = {"input": str(item["input"].values), "rank": _plain(item["rank"])}
+        entry: dict[str, Any] = {
+            "input": str(item["input"].values),
+            "rank": plain_value(item["rank"]),
+        }
         for key in _BUDGET_FIELDS:
             if key in item:
-                entry[key] = _plain(item[key])
+                entry[key] = plain_value(item[key])
         if "below_noise_floor" in item:
             entry["below_noise_floor"] = bool(item["below_noise_floor"])
         ranked.append(entry)
     return ranked
 
 
-def _dim_records(ds: xr.Dataset, dim: str) -> list[dict[str, Any]]:
+def dim_records(ds: xr.Dataset, dim: str) -> list[dict[str, Any]]:
+    """One JSON-safe record per label of ``dim``, with every variable that has only that dim."""
     names = [str(v) for v in ds.data_vars if ds[v].dims == (dim,)]
     return [
-        {dim: str(label), **{n: _plain(ds[n].sel({dim: label})) for n in names}}
+        {dim: str(label), **{n: plain_value(ds[n].sel({dim: label})) for n in names}}
         for label in ds[dim].values
     ]
 
@@ -95,10 +99,10 @@ def study_json(datasets: Mapping[str, xr.Dataset], study: Mapping[str, Any]) -> 
         row = summary.sel(output=name)
         entry: dict[str, Any] = {
             "units": output_unit(name, summary, datasets.get("samples"), budget, linear),
-            "summary": {k: _plain(row[k]) for k in _SUMMARY_FIELDS if k in row},
+            "summary": {k: plain_value(row[k]) for k in _SUMMARY_FIELDS if k in row},
         }
         if linear is not None and name in linear["output"].values:
-            entry["std_linear"] = _plain(linear["output_std_linear"].sel(output=name))
+            entry["std_linear"] = plain_value(linear["output_std_linear"].sel(output=name))
         if name in budget["output"].values:
             entry["ranked_inputs"] = _ranked(budget, name)
         outputs[name] = entry
@@ -111,16 +115,19 @@ def study_json(datasets: Mapping[str, xr.Dataset], study: Mapping[str, Any]) -> 
         "n_samples": study.get("n_samples"),
         "n_evaluations": study.get("n_evaluations"),
         "confidence_level": study.get("confidence_level"),
-        "converged": _plain(budget.attrs["converged"]) if "converged" in budget.attrs else None,
-        # "sobol": Sobol' first/total order; "delta": correlated inputs, full first order and
-        # the moment-independent delta (total order undefined, null).
+        "converged": plain_value(budget.attrs["converged"])
+        if "converged" in budget.attrs
+        else None,
+        # "sobol": Sobol' first/total order; "kucherenko": correlated inputs, full first order
+        # and the total order of the independent part; "delta": correlated inputs, full first
+        # order and the moment-independent delta (total order undefined, null).
         "index_method": str(budget.attrs.get("method", "")),
         "outputs": outputs,
     }
     if "requirements" in datasets and "requirement" in datasets["requirements"].dims:
-        result["requirements"] = _dim_records(datasets["requirements"], "requirement")
+        result["requirements"] = dim_records(datasets["requirements"], "requirement")
     if "linear_check" in datasets and "output" in datasets["linear_check"].dims:
-        result["linear_check"] = _dim_records(datasets["linear_check"], "output")
+        result["linear_check"] = dim_records(datasets["linear_check"], "output")
     samples = datasets.get("samples")
     if samples is not None and samples.attrs.get("validity_counts"):
         result["validity_counts"] = {
@@ -139,14 +146,14 @@ def prediction_json(linear: xr.Dataset, *, title: str = "") -> dict[str, Any]:
         order = np.argsort(-np.nan_to_num(contrib, nan=-1.0), kind="stable")
         outputs[name] = {
             "units": output_unit(name, linear),
-            "nominal": _plain(row["output_nominal"]),
-            "std_linear": _plain(row["output_std_linear"]),
+            "nominal": plain_value(row["output_nominal"]),
+            "std_linear": plain_value(row["output_std_linear"]),
             "contributions": [
                 {
                     "input": str(linear["input"].values[i]),
-                    "sensitivity_coefficient": _plain(row["sensitivity_coefficient"][i]),
-                    "input_uncertainty": _plain(linear["input_uncertainty"][i]),
-                    "uncertainty_contribution": _plain(contrib[i]),
+                    "sensitivity_coefficient": plain_value(row["sensitivity_coefficient"][i]),
+                    "input_uncertainty": plain_value(linear["input_uncertainty"][i]),
+                    "uncertainty_contribution": plain_value(contrib[i]),
                 }
                 for i in order
             ],

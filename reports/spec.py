@@ -21,10 +21,10 @@ import matplotlib.pyplot as plt
 import numpy as np
 import xarray as xr
 
-from trapbudget.reports.figures import _STYLE, BLUE, GREY, ORANGE, _png
+from trapbudget.reports.figures import BLUE, FIGURE_STYLE, GREY, ORANGE, figure_png
 from trapbudget.reports.formatting import format_number, format_percent, format_quantity
 from trapbudget.reports.render import Figure, Section, Table, Text, register_section
-from trapbudget.reports.results import _dim_records, _plain
+from trapbudget.reports.results import dim_records, plain_value
 
 __all__ = [
     "LIMITS",
@@ -167,7 +167,7 @@ def tolerance_figure(allocation: xr.Dataset) -> bytes:
             for n in free
         ]
     )
-    with plt.rc_context(_STYLE):
+    with plt.rc_context(FIGURE_STYLE):
         fig, ax = plt.subplots(figsize=(6.0, 0.42 * len(free) + 1.3))
         y = np.arange(len(free))
         finite = np.where(np.isfinite(ratio), ratio, 1.0)
@@ -184,7 +184,7 @@ def tolerance_figure(allocation: xr.Dataset) -> bytes:
         ax.set_xlabel("required tolerance / present (orange: tighten, blue: may relax)")
         ax.set_ylim(len(free) - 0.5, -0.5)
         ax.legend(loc="lower right")
-    return _png(fig)
+    return figure_png(fig)
 
 
 def allocation_json(allocation: xr.Dataset) -> dict[str, Any]:
@@ -202,10 +202,10 @@ def allocation_json(allocation: xr.Dataset) -> dict[str, Any]:
         "seed",
         "iterations",
     )
-    out: dict[str, Any] = {k: _plain(allocation.attrs.get(k, "")) for k in keys}
+    out: dict[str, Any] = {k: plain_value(allocation.attrs.get(k, "")) for k in keys}
     out["feasible"] = bool(allocation.attrs.get("feasible", False))
-    out["inputs"] = _dim_records(allocation, "input")
-    out["requirements"] = _dim_records(allocation, "requirement")
+    out["inputs"] = dim_records(allocation, "input")
+    out["requirements"] = dim_records(allocation, "requirement")
     return out
 
 
