@@ -53,7 +53,6 @@ DEFAULT_DEMO_DIR = Path("trapbudget-demo")
 #: The demo scenario ``trapbudget demo`` runs.
 DEMO_SCENARIO = "harrier-rb87.toml"
 #: The demo's convergence loop may grow the base size N this many times (keeps it short).
-DEMO_GROWTH = 16  # the engine default: the conditional-sampling budget settles fast
 
 
 # --------------------------------------------------------------------------- parsing
@@ -128,17 +127,15 @@ def add_samples_option(parser: argparse.ArgumentParser) -> None:
     )
 
 
-def add_max_samples_option(
-    parser: argparse.ArgumentParser, *, default_text: str = "16 N, the engine's default"
-) -> None:
+def add_max_samples_option(parser: argparse.ArgumentParser) -> None:
     """Add ``--max-samples N``: the largest base size the convergence loop may reach."""
     parser.add_argument(
         "--max-samples",
         type=_positive_power_of_two,
         default=None,
         metavar="N",
-        help=f"largest base size the convergence loop may reach (power of 2; default "
-        f"{default_text})",
+        help="largest base size the convergence loop may reach (power of 2; default "
+        "16 N, the engine's default)",
     )
 
 
@@ -215,7 +212,7 @@ def _add_demo(subparsers: argparse._SubParsersAction) -> None:
         f"overwriting files of the same name, and run 'rank' on {DEMO_SCENARIO}.",
     )
     add_samples_option(p)
-    add_max_samples_option(p, default_text=f"{DEMO_GROWTH} N, to keep the demo short")
+    add_max_samples_option(p)
     add_common_options(p)
     p.set_defaults(run=_run_demo)
 
@@ -716,9 +713,6 @@ def _run_demo(args: argparse.Namespace) -> int:
     scenario = load(folder / DEMO_SCENARIO)
     args.convergence = True
     args.second_order = False
-    if args.max_samples is None:
-        n = args.samples if args.samples is not None else scenario.settings.n_samples
-        args.max_samples = DEMO_GROWTH * n
     args.out = folder / f"report-{Path(DEMO_SCENARIO).stem}"
     return _rank_and_report(scenario, args, stem=Path(DEMO_SCENARIO).stem)
 
