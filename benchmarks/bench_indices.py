@@ -15,7 +15,7 @@ import numpy as np
 from SALib.analyze import sobol as salib_sobol
 from SALib.sample import sobol as salib_sample
 
-from trapbudget.sensitivity.indices import sobol_indices
+from trapbudget.sensitivity.indices.sobol import sobol_indices
 
 
 def g_function(x: np.ndarray, a: np.ndarray) -> np.ndarray:
@@ -79,7 +79,7 @@ def main() -> None:
 
 def bench_delta(n: int = 2048, resamples: int = 10) -> None:
     """Borgonovo delta on given data: the vectorized estimator against SALib's."""
-    from trapbudget.sensitivity.screening import delta_indices
+    from trapbudget.sensitivity.indices.delta import delta_indices
 
     cov = np.array([[1.0, 0.5, 0.8], [0.5, 1.0, 0.0], [0.8, 0.0, 1.0]])
     x = np.random.default_rng(0).multivariate_normal(np.zeros(3), cov, size=n)
@@ -102,7 +102,7 @@ def bench_rank(n_log2: int) -> None:
     from scipy import stats
 
     from trapbudget.models import VaporCellMOT
-    from trapbudget.sensitivity.budget import rank
+    from trapbudget.sensitivity.ranking import rank
 
     model = VaporCellMOT()
     names = (

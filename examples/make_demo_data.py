@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 
 from trapbudget.sensitivity.io import atomic_write_text
-from trapbudget.sensitivity.scenario import load_scenario
+from trapbudget.sensitivity.scenario.reader import load_scenario
 
 HERE = Path(__file__).resolve().parent
 SCENARIO = HERE / "harrier-rb87.toml"

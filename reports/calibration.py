@@ -1,7 +1,7 @@
 """Report section for a calibration (``trapbudget calibrate``).
 
 Built from the ``calibration`` Dataset (:meth:`Calibration.to_dataset
-<trapbudget.sensitivity.calibrate.Calibration.to_dataset>`): the fitted
+<trapbudget.sensitivity.lab.calibration.Calibration.to_dataset>`): the fitted
 constants with their uncertainties, their correlations, the quality of the
 fit, the residuals, and plainly what the data could not pin down.
 """

@@ -1,8 +1,8 @@
 """Report section for before/after comparisons (``trapbudget compare``).
 
 Built from the ``comparison`` Dataset of
-:func:`trapbudget.sensitivity.compare.compare` (one change) or
-:func:`~trapbudget.sensitivity.compare.compare_upgrades` (dim ``upgrade``):
+:func:`trapbudget.sensitivity.decisions.compare.compare` (one change) or
+:func:`~trapbudget.sensitivity.decisions.compare.compare_upgrades` (dim ``upgrade``):
 tables of what changes, before/after distribution plots, a cost-versus-benefit
 chart and a plain-language summary.
 """

@@ -1,7 +1,7 @@
 """Report section for a drift diagnosis (``trapbudget diagnose``).
 
 Built from the ``diagnosis`` Dataset (:meth:`Diagnosis.to_dataset
-<trapbudget.sensitivity.diagnose.Diagnosis.to_dataset>`): measured against
+<trapbudget.sensitivity.lab.diagnose.Diagnosis.to_dataset>`): measured against
 predicted atom number over time, the daily change split over the monitored
 channels, the channels ranked, and the days whose change the channels do not
 explain.

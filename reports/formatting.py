@@ -81,7 +81,7 @@ def _fallback_quantity(value: float, unit: str, digits: int) -> str:
 def format_quantity(value: float, unit: str, *, digits: int = 3) -> str:
     """A value in SI ``unit`` as readable text with a display unit (``0.004 W`` -> ``4.00 mW``).
 
-    Uses ``trapbudget.sensitivity.units.format_quantity`` when it exists, so the
+    Uses ``trapbudget.sensitivity.scenario.units.format_quantity`` when it exists, so the
     reports show the same display units as the rest of the tool.
     """
     unit = unit or ""
@@ -92,7 +92,7 @@ def format_quantity(value: float, unit: str, *, digits: int = 3) -> str:
     if not math.isfinite(value):
         return f"{format_number(value)} {unit}".strip()
     try:
-        from trapbudget.sensitivity.units import format_quantity as engine_format
+        from trapbudget.sensitivity.scenario.units import format_quantity as engine_format
     except ImportError:
         engine_format = None
     if engine_format is not None:
@@ -129,7 +129,7 @@ def display_scale(unit: str, typical: float) -> tuple[float, str]:
     if unit == "s":
         return (1e3, "ms") if 0 < magnitude < 1 else (1.0, "s")
     try:
-        from trapbudget.sensitivity.units import DISPLAY_UNITS, ureg
+        from trapbudget.sensitivity.scenario.units import DISPLAY_UNITS, ureg
 
         display = DISPLAY_UNITS.get(unit)
         if display and display != "auto":

@@ -1,7 +1,7 @@
 """Report section for a tolerance allocation (``trapbudget spec``).
 
 Built from the ``allocation`` Dataset (:meth:`Allocation.to_dataset
-<trapbudget.sensitivity.allocate.Allocation.to_dataset>`): a spec-sheet table
+<trapbudget.sensitivity.decisions.allocation.Allocation.to_dataset>`): a spec-sheet table
 ready to paste into a document, the probability each requirement is met, a
 chart of present against required tolerances and a plain-language summary for
 readers who are not physicists.

@@ -11,41 +11,34 @@ and, for specs, upgrades, calibration and drift: :func:`allocate`,
 :func:`compare`, :func:`compare_upgrades`, :func:`calibrate`, :func:`diagnose`.
 """
 
-from trapbudget.sensitivity.allocate import Allocation, InfeasibleError, allocate
-from trapbudget.sensitivity.budget import BudgetConvergenceWarning, analyze_budget, rank
-from trapbudget.sensitivity.calibrate import Calibration, calibrate
-from trapbudget.sensitivity.compare import compare, compare_upgrades
-from trapbudget.sensitivity.costs import CostTier, SmoothCost, TieredCost
-from trapbudget.sensitivity.diagnose import Diagnosis, diagnose
-from trapbudget.sensitivity.distributions import Tolerance
+from trapbudget.sensitivity.decisions.allocate import allocate
+from trapbudget.sensitivity.decisions.allocation import Allocation, InfeasibleError
+from trapbudget.sensitivity.decisions.compare import compare, compare_upgrades
 from trapbudget.sensitivity.errors import DataError, ScenarioError, TrapbudgetError, UsageError
-from trapbudget.sensitivity.indices import saltelli_design, sobol_indices
+from trapbudget.sensitivity.indices.budget import BudgetConvergenceWarning, analyze_budget
+from trapbudget.sensitivity.indices.delta import delta_indices
+from trapbudget.sensitivity.indices.screening import morris
+from trapbudget.sensitivity.indices.sobol import saltelli_design, sobol_indices
 from trapbudget.sensitivity.io import load_dataset, save_dataset
+from trapbudget.sensitivity.lab.calibrate import calibrate
+from trapbudget.sensitivity.lab.calibration import Calibration
+from trapbudget.sensitivity.lab.datafiles import read_measurements
+from trapbudget.sensitivity.lab.diagnose import Diagnosis, diagnose
+from trapbudget.sensitivity.lab.fits import fit_loading_curve, fit_time_of_flight
 from trapbudget.sensitivity.linear import compare_linear_monte_carlo, linear_propagation
-from trapbudget.sensitivity.measurements import (
-    fit_loading_curve,
-    fit_time_of_flight,
-    read_measurements,
-)
-from trapbudget.sensitivity.propagate import (
-    ModelValidityWarning,
-    propagate,
-    propagate_adaptive,
-    summarize,
-)
+from trapbudget.sensitivity.propagation import ModelValidityWarning, propagate, propagate_adaptive
 from trapbudget.sensitivity.protocol import BoundModel, as_model, evaluate_in_chunks
-from trapbudget.sensitivity.requirements import Requirement, check_requirements
+from trapbudget.sensitivity.ranking import rank
 from trapbudget.sensitivity.sampling import transform, unit_design
-from trapbudget.sensitivity.scenario import (
-    MODELS,
-    Scenario,
-    Settings,
-    Upgrade,
-    load_scenario,
-    register_model,
-    scenario_to_toml,
-)
-from trapbudget.sensitivity.screening import delta_indices, morris
+from trapbudget.sensitivity.scenario.core import Scenario
+from trapbudget.sensitivity.scenario.costs import CostTier, SmoothCost, TieredCost
+from trapbudget.sensitivity.scenario.distributions import Tolerance
+from trapbudget.sensitivity.scenario.reader import load_scenario
+from trapbudget.sensitivity.scenario.registry import MODELS, register_model
+from trapbudget.sensitivity.scenario.requirements import Requirement, check_requirements
+from trapbudget.sensitivity.scenario.settings import Settings, Upgrade
+from trapbudget.sensitivity.scenario.writer import scenario_to_toml
+from trapbudget.sensitivity.summary import summarize
 
 __all__ = [
     "MODELS",

@@ -34,9 +34,10 @@ from scipy import stats
 
 from trapbudget.models.protocol import ModelError
 from trapbudget.sensitivity.errors import ScenarioError
-from trapbudget.sensitivity.propagate import numerical_tolerance, select_outputs
+from trapbudget.sensitivity.propagation import select_outputs
 from trapbudget.sensitivity.protocol import BoundModel, as_model, model_name
 from trapbudget.sensitivity.sampling import check_correlation, copula_to_pearson, split_inputs
+from trapbudget.sensitivity.summary import numerical_tolerance
 
 __all__ = ["compare_linear_monte_carlo", "jacobian", "linear_propagation"]
 

@@ -12,17 +12,18 @@ import numpy as np
 import pytest
 from scipy import optimize, stats
 
-from trapbudget.sensitivity.allocate import (
+from trapbudget.sensitivity.decisions.allocate import allocate
+from trapbudget.sensitivity.decisions.linear_allocation import (
     LinearProblem,
     TierOption,
-    allocate,
     allocate_tiers,
     lagrange_allocation,
     uncertainty_bound,
 )
 from trapbudget.sensitivity.errors import ScenarioError
-from trapbudget.sensitivity.propagate import propagate
-from trapbudget.sensitivity.scenario import Scenario, load_scenario
+from trapbudget.sensitivity.propagation import propagate
+from trapbudget.sensitivity.scenario.core import Scenario
+from trapbudget.sensitivity.scenario.reader import load_scenario
 
 # ---------------------------------------------------------------- bounds from requirements
 

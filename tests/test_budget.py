@@ -11,10 +11,11 @@ import xarray as xr
 from scipy import stats
 
 from trapbudget.models.protocol import InputSpec, OutputSpec
-from trapbudget.sensitivity.budget import BudgetConvergenceWarning, analyze_budget, rank
 from trapbudget.sensitivity.errors import ScenarioError
-from trapbudget.sensitivity.indices import saltelli_design
+from trapbudget.sensitivity.indices.budget import BudgetConvergenceWarning, analyze_budget
+from trapbudget.sensitivity.indices.sobol import saltelli_design
 from trapbudget.sensitivity.io import load_dataset, save_dataset
+from trapbudget.sensitivity.ranking import rank
 from trapbudget.sensitivity.testfunctions import Ishigami, LinearModel
 
 PI = math.pi
@@ -357,7 +358,7 @@ def _toy_budget(values, lows, highs, below):
 
 
 def test_ranking_stability_allows_statistical_ties_only():
-    from trapbudget.sensitivity.budget import _stable_ranking
+    from trapbudget.sensitivity.indices.convergence import _stable_ranking
 
     before = _toy_budget([0.5, 0.30, 0.01], [0.45, 0.25, 0.0], [0.55, 0.35, 0.02], [0, 0, 1])
     # a and b swap with overlapping intervals: a tie, still stable.

@@ -12,9 +12,9 @@ import tomllib
 from scipy import optimize, stats
 
 from trapbudget.models import InputSpec, ModelError, OutputSpec
-from trapbudget.sensitivity.calibrate import calibrate
 from trapbudget.sensitivity.errors import DataError, ScenarioError
-from trapbudget.sensitivity.measurements import Observations
+from trapbudget.sensitivity.lab.calibrate import calibrate
+from trapbudget.sensitivity.lab.observations import Observations
 
 
 class LoadingModel:

@@ -9,7 +9,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from trapbudget.sensitivity.cli import main
+from trapbudget.cli.main import main
 
 # Ishigami function, a = 7, b = 0.1, inputs uniform on [-pi, pi] (Ishigami & Homma 1990;
 # closed-form indices in Saltelli et al. 2008, Global Sensitivity Analysis: The Primer).
@@ -278,7 +278,9 @@ tolerance = "0.2"
 
 
 # A small demo run: whether its convergence loop settles at this size is not the point here.
-@pytest.mark.filterwarnings("ignore::trapbudget.sensitivity.budget.BudgetConvergenceWarning")
+@pytest.mark.filterwarnings(
+    "ignore::trapbudget.sensitivity.indices.budget.BudgetConvergenceWarning"
+)
 @pytest.mark.slow
 def test_demo_writes_files_and_a_report(capsys, tmp_path):
     code, out, err = _run(capsys, "demo", "--out", str(tmp_path), "--samples", "128", "--json")

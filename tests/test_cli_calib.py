@@ -9,9 +9,9 @@ from pathlib import Path
 
 import pytest
 
+from trapbudget.cli.main import main
 from trapbudget.examples import make_demo_data
-from trapbudget.sensitivity.cli import main
-from trapbudget.sensitivity.scenario import load_scenario
+from trapbudget.sensitivity.scenario.reader import load_scenario
 
 FREE = (
     "loading_prefactor,vapor_loss_coefficient,background_loss_coefficient,"

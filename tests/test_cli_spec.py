@@ -10,7 +10,7 @@ from pathlib import Path
 import pytest
 from scipy import stats
 
-from trapbudget.sensitivity.cli import main
+from trapbudget.cli.main import main
 
 LINEAR = """\
 [scenario]

@@ -9,15 +9,15 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from trapbudget.sensitivity.compare import (
+from trapbudget.sensitivity.decisions.compare import (
     common_random_samples,
     compare,
     compare_samples,
     compare_upgrades,
 )
 from trapbudget.sensitivity.errors import ScenarioError
-from trapbudget.sensitivity.requirements import Requirement
-from trapbudget.sensitivity.scenario import Scenario
+from trapbudget.sensitivity.scenario.core import Scenario
+from trapbudget.sensitivity.scenario.requirements import Requirement
 from trapbudget.sensitivity.testfunctions import LinearModel
 
 N = 2**14

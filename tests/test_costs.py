@@ -6,9 +6,9 @@ import math
 
 import pytest
 
-from trapbudget.sensitivity.costs import CostTier, SmoothCost, TieredCost, parse_costs
-from trapbudget.sensitivity.distributions import Tolerance
 from trapbudget.sensitivity.errors import ScenarioError
+from trapbudget.sensitivity.scenario.costs import CostTier, SmoothCost, TieredCost, parse_costs
+from trapbudget.sensitivity.scenario.distributions import Tolerance
 
 BASE = Tolerance(nominal=4e-3, value=8e-5, relative=True, text="2 %", unit="W")
 TOLERANCES = {"beam_power": BASE}

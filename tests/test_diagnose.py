@@ -12,8 +12,10 @@ import pytest
 from scipy import stats
 
 from trapbudget.models import InputSpec, ModelError, OutputSpec
-from trapbudget.sensitivity.diagnose import diagnose, read_log, shapley_attribution
 from trapbudget.sensitivity.errors import DataError, ScenarioError
+from trapbudget.sensitivity.lab.attribution import shapley_attribution
+from trapbudget.sensitivity.lab.diagnose import diagnose
+from trapbudget.sensitivity.lab.driftlog import read_log
 
 
 class DriftModel:

@@ -8,8 +8,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from trapbudget.sensitivity.distributions import Tolerance
 from trapbudget.sensitivity.errors import ScenarioError
+from trapbudget.sensitivity.scenario.distributions import Tolerance
 
 A = 0.3  # half-width used below (arbitrary)
 

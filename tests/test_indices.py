@@ -10,12 +10,8 @@ from SALib.analyze import delta as salib_delta
 from SALib.analyze import sobol as salib_sobol
 from SALib.sample import sobol as salib_sample
 
-from trapbudget.sensitivity.indices import (
-    default_bins,
-    first_order_given_data,
-    saltelli_design,
-    sobol_indices,
-)
+from trapbudget.sensitivity.indices.givendata import default_bins, first_order_given_data
+from trapbudget.sensitivity.indices.sobol import saltelli_design, sobol_indices
 
 PI = math.pi
 
@@ -182,7 +178,7 @@ def test_vectorized_over_outputs_equals_one_at_a_time():
 
 def test_bootstrap_blocks_give_the_same_intervals(monkeypatch):
     # Chunking the resamples (bounded memory) must not change the numbers.
-    import trapbudget.sensitivity.indices as indices
+    import trapbudget.sensitivity.indices.sobol as indices
 
     _, (f_a, f_b, f_ab, f_ba) = run_design(
         ishigami, 128, 3, lows=[-PI] * 3, highs=[PI] * 3, second_order=True
@@ -234,7 +230,7 @@ def test_dependent_design_structure_and_copula():
     from scipy import stats
     from scipy.stats import qmc
 
-    from trapbudget.sensitivity.indices import dependent_design
+    from trapbudget.sensitivity.indices.dependent import dependent_design
 
     corr = np.array([[1.0, 0.5, 0.8], [0.5, 1.0, 0.0], [0.8, 0.0, 1.0]])
     n = 4096

@@ -12,7 +12,8 @@ from uncertainties import umath
 
 from trapbudget.models.protocol import InputSpec, OutputSpec
 from trapbudget.sensitivity.linear import compare_linear_monte_carlo, linear_propagation
-from trapbudget.sensitivity.propagate import propagate, summarize
+from trapbudget.sensitivity.propagation import propagate
+from trapbudget.sensitivity.summary import summarize
 from trapbudget.sensitivity.testfunctions import LinearModel, MassCalibration
 
 SQRT3 = math.sqrt(3.0)

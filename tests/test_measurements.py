@@ -11,15 +11,11 @@ import scipy.constants as const
 from scipy import integrate, optimize
 
 from trapbudget.models import InputSpec, OutputSpec
+from trapbudget.models.observables import loading_curve, time_of_flight_radius
 from trapbudget.sensitivity.errors import DataError
-from trapbudget.sensitivity.measurements import (
-    fit_loading_curve,
-    fit_time_of_flight,
-    loading_curve,
-    read_measurements,
-    time_of_flight_radius,
-    to_observations,
-)
+from trapbudget.sensitivity.lab.datafiles import read_measurements
+from trapbudget.sensitivity.lab.fits import fit_loading_curve, fit_time_of_flight
+from trapbudget.sensitivity.lab.observations import to_observations
 
 # Rb-87 mass, 86.909 180 531 u (Steck, "Rubidium 87 D Line Data"; NIST atomic masses)
 RB87_MASS = 86.909180531 * const.atomic_mass

@@ -12,15 +12,9 @@ from scipy import optimize, special, stats
 from trapbudget.models.protocol import InputSpec, OutputSpec
 from trapbudget.sensitivity.errors import ScenarioError
 from trapbudget.sensitivity.io import load_dataset, save_dataset
-from trapbudget.sensitivity.propagate import (
-    ModelValidityWarning,
-    coverage_interval,
-    numerical_tolerance,
-    propagate,
-    propagate_adaptive,
-    summarize,
-)
+from trapbudget.sensitivity.propagation import ModelValidityWarning, propagate, propagate_adaptive
 from trapbudget.sensitivity.protocol import evaluate_in_chunks
+from trapbudget.sensitivity.summary import coverage_interval, numerical_tolerance, summarize
 from trapbudget.sensitivity.testfunctions import LinearModel
 
 ADDITIVE = LinearModel([1.0, 1.0, 1.0, 1.0])  # JCGM 101:2008, 9.2: Y = X1 + X2 + X3 + X4

@@ -9,8 +9,8 @@ import pytest
 from scipy import stats
 
 from trapbudget.sensitivity.errors import ScenarioError
-from trapbudget.sensitivity.propagate import propagate
-from trapbudget.sensitivity.requirements import (
+from trapbudget.sensitivity.propagation import propagate
+from trapbudget.sensitivity.scenario.requirements import (
     Requirement,
     check_requirements,
     parse_requirements,

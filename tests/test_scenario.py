@@ -12,17 +12,15 @@ import numpy as np
 import pytest
 import tomllib
 
-from trapbudget.sensitivity.costs import SmoothCost, TieredCost
-from trapbudget.sensitivity.distributions import Tolerance
 from trapbudget.sensitivity.errors import ScenarioError
 from trapbudget.sensitivity.protocol import BoundModel
-from trapbudget.sensitivity.scenario import (
-    MODELS,
-    Scenario,
-    Settings,
-    load_scenario,
-    scenario_to_toml,
-)
+from trapbudget.sensitivity.scenario.core import Scenario
+from trapbudget.sensitivity.scenario.costs import SmoothCost, TieredCost
+from trapbudget.sensitivity.scenario.distributions import Tolerance
+from trapbudget.sensitivity.scenario.reader import load_scenario
+from trapbudget.sensitivity.scenario.registry import MODELS
+from trapbudget.sensitivity.scenario.settings import Settings
+from trapbudget.sensitivity.scenario.writer import scenario_to_toml
 
 TOML = textwrap.dedent(
     """
@@ -406,7 +404,8 @@ def test_head_errors(head, message):
 
 def test_scenario_nominal_reaches_propagation(scenario):
     from trapbudget.sensitivity.linear import linear_propagation
-    from trapbudget.sensitivity.propagate import propagate, summarize
+    from trapbudget.sensitivity.propagation import propagate
+    from trapbudget.sensitivity.summary import summarize
 
     ds = propagate(scenario.model, scenario.inputs, n_samples=256, rng=1)
     at_nominal = scenario.model.evaluate({})

@@ -8,8 +8,9 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from trapbudget.sensitivity.indices import default_bins
-from trapbudget.sensitivity.screening import delta_indices, morris
+from trapbudget.sensitivity.indices.delta import delta_indices
+from trapbudget.sensitivity.indices.givendata import default_bins
+from trapbudget.sensitivity.indices.screening import morris
 from trapbudget.sensitivity.testfunctions import LinearModel
 
 # Linear Gaussian with correlated inputs (references.md, [F]): Y = x1 + x2 + x3, unit normals.
@@ -97,8 +98,8 @@ def test_fast_delta_matches_salib_kernel_estimate():
     # the same classes; ours bins the kernels on a fine grid, so agree to a few 1e-3.
     from SALib.analyze.delta import calc_delta
 
-    from trapbudget.sensitivity.indices import rank_classes
-    from trapbudget.sensitivity.screening import _delta_estimates
+    from trapbudget.sensitivity.indices.delta import _delta_estimates
+    from trapbudget.sensitivity.indices.givendata import rank_classes
 
     n = 2048
     rng = np.random.default_rng(8)

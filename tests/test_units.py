@@ -7,7 +7,7 @@ import math
 import pytest
 
 from trapbudget.sensitivity.errors import ScenarioError
-from trapbudget.sensitivity.units import (
+from trapbudget.sensitivity.scenario.units import (
     DISPLAY_UNITS,
     format_quantity,
     parse_quantity,

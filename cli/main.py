@@ -406,7 +406,7 @@ def _main(parser: argparse.ArgumentParser, argv: Sequence[str] | None) -> int:
 
 def load(path: Path) -> Any:
     """Load a scenario file, with a one-line error when it does not exist."""
-    from trapbudget.sensitivity.scenario import load_scenario
+    from trapbudget.sensitivity.scenario.reader import load_scenario
 
     path = Path(path)
     if not path.is_file():
@@ -580,9 +580,10 @@ def run_study(
     import numpy as np
 
     from trapbudget.reports.study import describe_study
-    from trapbudget.sensitivity.budget import rank
     from trapbudget.sensitivity.linear import compare_linear_monte_carlo, linear_propagation
-    from trapbudget.sensitivity.propagate import propagate, summarize
+    from trapbudget.sensitivity.propagation import propagate
+    from trapbudget.sensitivity.ranking import rank
+    from trapbudget.sensitivity.summary import summarize
 
     settings = scenario.settings
     seed = settings.seed if seed is None else seed
@@ -638,7 +639,7 @@ def run_study(
         "budget": budget,
     }
     if scenario.requirements:
-        from trapbudget.sensitivity.requirements import check_requirements
+        from trapbudget.sensitivity.scenario.requirements import check_requirements
 
         datasets["requirements"] = check_requirements(samples, scenario.requirements)
     study = describe_study(scenario, seed=seed, n_samples=n, datasets=datasets)
@@ -721,8 +722,8 @@ def _run_calibrate(args: argparse.Namespace) -> int:
     from trapbudget.reports.calibration import calibration_json, calibration_rich_table
     from trapbudget.reports.render import write_report
     from trapbudget.reports.study import describe_study
-    from trapbudget.sensitivity.calibrate import calibrate
     from trapbudget.sensitivity.io import atomic_write_text
+    from trapbudget.sensitivity.lab.calibrate import calibrate
 
     scenario = load(args.scenario)
     free = [n.strip() for n in args.free.split(",") if n.strip()] if args.free else None
@@ -756,7 +757,7 @@ def _run_diagnose(args: argparse.Namespace) -> int:
     from trapbudget.reports.diagnosis import diagnosis_json, diagnosis_rich_tables
     from trapbudget.reports.render import write_report
     from trapbudget.reports.study import describe_study
-    from trapbudget.sensitivity.diagnose import diagnose
+    from trapbudget.sensitivity.lab.diagnose import diagnose
 
     scenario = load(args.scenario)
     reference = args.reference.split(":") if ":" in args.reference else args.reference
@@ -795,7 +796,8 @@ def _run_spec(args: argparse.Namespace) -> int:
     from trapbudget.reports.render import write_report
     from trapbudget.reports.spec import allocation_json, allocation_rich_table
     from trapbudget.reports.study import describe_study
-    from trapbudget.sensitivity.allocate import InfeasibleError, allocate
+    from trapbudget.sensitivity.decisions.allocate import allocate
+    from trapbudget.sensitivity.decisions.allocation import InfeasibleError
 
     scenario = load(args.scenario)
     seed = scenario.settings.seed if args.seed is None else args.seed
@@ -849,7 +851,7 @@ def _run_compare(args: argparse.Namespace) -> int:
     from trapbudget.reports.compare import comparison_json, comparison_rich_tables
     from trapbudget.reports.render import write_report
     from trapbudget.reports.study import describe_study
-    from trapbudget.sensitivity.compare import compare, compare_upgrades
+    from trapbudget.sensitivity.decisions.compare import compare, compare_upgrades
 
     before = load(args.before)
     seed = before.settings.seed if args.seed is None else args.seed

@@ -91,7 +91,7 @@ def common_random_samples(
     -------
     list of xarray.Dataset
         One samples Dataset per scenario, dim ``sample``, in the schema of
-        :func:`trapbudget.sensitivity.propagate.propagate`; sample k of every
+        :func:`trapbudget.sensitivity.propagation.propagate`; sample k of every
         Dataset comes from row k of the same unit design.
 
     Notes

@@ -33,7 +33,7 @@ import xarray as xr
 from scipy import stats
 
 from trapbudget.sensitivity.errors import ScenarioError
-from trapbudget.sensitivity.units import did_you_mean, parse_quantity
+from trapbudget.sensitivity.scenario.units import did_you_mean, parse_quantity
 
 __all__ = [
     "KINDS",

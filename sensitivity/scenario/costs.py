@@ -17,9 +17,9 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
-from trapbudget.sensitivity.distributions import Tolerance
 from trapbudget.sensitivity.errors import ScenarioError
-from trapbudget.sensitivity.units import parse_tolerance_text
+from trapbudget.sensitivity.scenario.distributions import Tolerance
+from trapbudget.sensitivity.scenario.units import parse_tolerance_text
 
 __all__ = ["CostModel", "CostTier", "SmoothCost", "TieredCost", "parse_costs"]
 

@@ -1,0 +1,367 @@
+"""Tolerance allocation: the cheapest tolerances that meet every requirement.
+
+Two passes. The first works on the linearized variance budget of each
+required output,
+
+    Var Y_r  ~=  V_r,fixed + sum_i a_ri t_i^2 ,      a_ri = (c_ri u_i / t_i)^2 ,
+
+with ``c_ri`` the sensitivity coefficient dY_r/dX_i at the nominal point,
+``u_i`` the standard uncertainty that goes with the tolerance value ``t_i`` as
+written (so shape and meaning are kept), and inputs without a cost model in
+the fixed part. Each requirement becomes a bound ``U_r`` on u(Y_r) through the
+normal approximation (:func:`uncertainty_bound`). Smooth power-law costs
+``C_i (t_ref,i / t_i)^p_i`` are allocated by the Lagrange condition
+(:func:`lagrange_allocation`), tiered costs by an exact branch-and-bound over
+the tiers (:func:`allocate_tiers`), the two mixed when a scenario has both.
+
+The second pass verifies and refines the answer with the full nonlinear Monte
+Carlo: every candidate allocation is pushed through the model on the *same*
+unit-cube design (common random numbers), the probability each requirement is
+met is estimated with its binomial standard error, and the bounds ``U_r`` are
+rescaled until every requirement is met, since the linear answer can be wrong
+where the model curves."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from trapbudget.sensitivity.decisions.allocation import Allocation, _check, _result, _Setup
+from trapbudget.sensitivity.decisions.linear_allocation import (
+    LinearProblem,
+    TierOption,
+    TierSolution,
+    allocate_tiers,
+    uncertainty_bound,
+)
+from trapbudget.sensitivity.errors import ScenarioError
+
+__all__ = ["allocate"]
+
+
+def _linear_setup(scenario, requirements, labels) -> _Setup:
+    from trapbudget.sensitivity.linear import linear_propagation
+
+    source = getattr(scenario, "source", None)
+    for name in scenario.costs:
+        if name not in scenario.inputs:
+            raise ScenarioError(
+                f"input {name!r} has a cost but no tolerance; give inputs.{name} a tolerance "
+                "or remove the cost table",
+                path=source,
+                key=f"costs.{name}",
+            )
+    outputs = list(dict.fromkeys(req.output for req in requirements))
+    linear = linear_propagation(
+        scenario.model,
+        scenario.inputs,
+        nominal=scenario.nominal,
+        correlation=None,
+        outputs=outputs,
+    )
+    coefficient = linear["sensitivity_coefficient"]
+    sensitivity = {}
+    for r, req in enumerate(requirements):
+        for name in scenario.inputs:
+            c = float(coefficient.sel(output=req.output, input=name))
+            sensitivity[(r, name)] = c * c if math.isfinite(c) else 0.0
+    means = np.array(
+        [float(linear["output_nominal"].sel(output=req.output)) for req in requirements]
+    )
+    bounds = np.array(
+        [
+            uncertainty_bound(req.kind, req.limit, mean=m, probability=req.probability)
+            for req, m in zip(requirements, means, strict=True)
+        ]
+    )
+    smooth = [n for n, c in scenario.costs.items() if not hasattr(c, "tiers")]
+    tiered = [n for n, c in scenario.costs.items() if hasattr(c, "tiers")]
+    fixed = [n for n in scenario.inputs if n not in scenario.costs]
+    return _Setup(tuple(requirements), labels, smooth, tiered, fixed, sensitivity, means, bounds)
+
+
+def _problem(scenario, setup: _Setup, bounds: np.ndarray, max_loosen: float) -> LinearProblem:
+    n_req = len(setup.requirements)
+    tol = scenario.tolerances
+
+    def u(name):
+        return float(tol[name].standard_uncertainty)
+
+    def sens(names):
+        return np.array(
+            [[setup.sensitivity[(r, n)] for n in names] for r in range(n_req)]
+        ).reshape(n_req, len(names))
+
+    fixed_var = np.array(
+        [sum(setup.sensitivity[(r, n)] * u(n) ** 2 for n in setup.fixed) for r in range(n_req)]
+    )
+    smooth_models = [scenario.costs[n] for n in setup.free_smooth]
+    ratio = np.array([u(n) / float(tol[n].value) for n in setup.free_smooth])
+    tiers = [
+        [
+            TierOption(
+                str(t.name),
+                float(t.tolerance.value),
+                float(t.tolerance.standard_uncertainty),
+                float(t.cost),
+            )
+            for t in scenario.costs[n].tiers
+        ]
+        for n in setup.free_tiered
+    ]
+    return LinearProblem(
+        requirements=setup.labels,
+        budgets=np.asarray(bounds, dtype=float) ** 2,
+        fixed_variance=fixed_var,
+        smooth=setup.free_smooth,
+        smooth_weights=sens(setup.free_smooth) * ratio**2,
+        smooth_cost=np.array([float(m.reference_cost) for m in smooth_models]),
+        smooth_reference=np.array([float(m.tolerance.value) for m in smooth_models]),
+        smooth_exponent=np.array([float(m.exponent) for m in smooth_models]),
+        smooth_lower=np.full(len(smooth_models), 1e-300),
+        smooth_upper=np.array([float(tol[n].value) * max_loosen for n in setup.free_smooth]),
+        tiered=setup.free_tiered,
+        tiered_sensitivity=sens(setup.free_tiered),
+        tiers=tiers,
+    )
+
+
+def _tolerances(scenario, setup: _Setup, solution: TierSolution) -> dict:
+    out = {}
+    for name, t in zip(setup.free_smooth, solution.smooth_tolerance, strict=True):
+        out[name] = scenario.tolerances[name].with_value(float(t))
+    for name, k in zip(setup.free_tiered, solution.tier_index, strict=True):
+        out[name] = scenario.costs[name].tiers[k].tolerance
+    return out
+
+
+def _label_of(req, index: int) -> str:
+    label = getattr(req, "label", "") or ""
+    return label or f"{req.output} {req.kind} #{index + 1}"
+
+
+def allocate(
+    scenario: object,
+    *,
+    n_samples: int | None = None,
+    rng: object = None,
+    method: str | None = None,
+    refine: bool = True,
+    max_iterations: int = 8,
+    safety_margin: float = 1.0,
+    max_loosen: float = 4.0,
+    rtol: float = 0.02,
+    progress: object = None,
+) -> Allocation:
+    """Find the tolerances that meet every requirement at least cost.
+
+    Inputs with a cost model (``[costs.<input>]``) are free to change; the
+    other uncertain inputs are held at their present tolerance.
+
+    Parameters
+    ----------
+    scenario : Scenario
+        With requirements and costs.
+    n_samples : int, optional
+        Monte Carlo samples of each verification (default the scenario's).
+    rng : seed or numpy.random.Generator, optional
+        Randomness of the shared design (default the scenario's seed).
+    method : {"random", "latin", "sobol"}, optional
+        Design (default the scenario's).
+    refine : bool
+        Rescale the requirement bounds from the Monte Carlo result until every
+        requirement is met (True), or return the linear answer with its Monte
+        Carlo check (False: ``feasible`` then means linearly feasible, and
+        ``requirements["met"]`` says what the Monte Carlo found).
+    max_iterations : int
+        Monte Carlo rounds of refinement at most.
+    safety_margin : float
+        A probability requirement counts as met when the estimate minus this
+        many binomial standard errors reaches the required probability.
+    max_loosen : float
+        A smooth-cost tolerance may be loosened to at most this multiple of
+        its present value (the linear model is not trusted far outside).
+    rtol : float
+        Refinement stops once every requirement passes and no binding bound
+        would move by more than this fraction.
+    progress : callable, optional
+        ``progress(done, total)`` for each verification.
+
+    Returns
+    -------
+    Allocation
+
+    Raises
+    ------
+    ScenarioError
+        No requirements, or a cost on an input without a tolerance.
+
+    Notes
+    -----
+    Linear pass: see the module notes, :func:`uncertainty_bound`,
+    :func:`lagrange_allocation`, :func:`allocate_tiers`. Correlations between
+    inputs are ignored by the linear pass and included by the Monte Carlo
+    verification. Refinement: a probability requirement met with estimate
+    ``P`` against a target ``p`` rescales its bound by ``z(P) / z(p)`` (normal
+    quantiles; clipped to [1/2, 2] per round), a spread requirement by
+    ``limit / spread``; every round reuses the same unit design (common
+    random numbers), and the cheapest allocation that passes is kept.
+    """
+    from trapbudget.sensitivity.decisions.compare import common_random_samples
+    from trapbudget.sensitivity.sampling import unit_design
+
+    requirements = tuple(scenario.requirements)  # type: ignore[attr-defined]
+    source = getattr(scenario, "source", None)
+    if not requirements:
+        raise ScenarioError(
+            "no requirements to allocate against; add a [[requirements]] table",
+            path=source,
+            key="requirements",
+        )
+    if not scenario.costs:  # type: ignore[attr-defined]
+        raise ScenarioError(
+            "no cost tables, so no input is free to change; add [costs.<input>] tiers or smooth",
+            path=source,
+            key="costs",
+        )
+    labels = [_label_of(req, i) for i, req in enumerate(requirements)]
+    setup = _linear_setup(scenario, requirements, labels)
+    settings = getattr(scenario, "settings", None)
+    n = int(n_samples if n_samples is not None else getattr(settings, "n_samples", 4096))
+    m = str(method if method is not None else getattr(settings, "method", "sobol"))
+    seed = rng if rng is not None else getattr(settings, "seed", None)
+    unit = unit_design(n, len(scenario.inputs), method=m, rng=seed)  # type: ignore[attr-defined]
+
+    bounds = setup.bounds.astype(float).copy()
+    best = None
+    history = []
+    last = None
+    reason = ""
+    failing = blocking = ""
+    rounds = max(1, int(max_iterations)) if refine else 1
+    seen: dict = {}  # candidate allocation -> its Monte Carlo check (same design: reuse)
+    repeats = 0
+    for _ in range(rounds):
+        problem = _problem(scenario, setup, bounds, max_loosen)
+        solution = allocate_tiers(problem, fixed_parts=_fixed_parts(scenario, setup))
+        if not solution.feasible:
+            failing, blocking = solution.failing, solution.blocking
+            last = (problem, solution, None, None)
+            break
+        tolerances = _tolerances(scenario, setup, solution)
+        key = (
+            solution.tier_index,
+            tuple(np.round(np.log(solution.smooth_tolerance) / math.log1p(rtol / 10)).astype(int)),
+        )
+        if key in seen:
+            repeats += 1
+            if repeats >= 2:
+                break
+            candidate, samples, checks = seen[key]
+        else:
+            repeats = 0
+            candidate = scenario.with_tolerances(tolerances)  # type: ignore[attr-defined]
+            (samples,) = common_random_samples(
+                [candidate], n_samples=n, method=m, unit=unit, progress=progress
+            )  # type: ignore[arg-type]
+            checks = _check(samples, requirements, safety_margin=safety_margin)
+            seen[key] = (candidate, samples, checks)
+        passed = all(c["met"] for c in checks)
+        history.append((solution.cost, passed))
+        last = (problem, solution, tolerances, (candidate, samples, checks))
+        if passed and (best is None or solution.cost <= best[1].cost):
+            best = last
+        # a failing requirement is aimed a little inside its limit, so the bound is not
+        # approached from the wrong side forever
+        factors = np.array(
+            [
+                min(
+                    max(c["factor"] if c["met"] else min(c["factor"], 1.0) * (1 - rtol / 2), 0.5),
+                    2.0,
+                )
+                for c in checks
+            ]
+        )
+        used = solution.variance / np.where(np.isfinite(problem.budgets), problem.budgets, np.inf)
+        active = used > 0.9
+        if passed and np.all(np.abs(np.log(factors[active])) < math.log1p(rtol)):
+            break
+        for r, check in enumerate(checks):
+            if check["met"] and not active[r]:
+                continue
+            if not math.isfinite(bounds[r]):
+                bounds[r] = math.sqrt(max(solution.variance[r], 1e-300))
+            bounds[r] *= factors[r]
+
+    if not refine and last is not None and last[3] is not None:
+        best = last  # the linear answer as it stands; its Monte Carlo check is reported
+    chosen = best if best is not None else last
+    problem, solution, tolerances, verified = chosen  # type: ignore[misc]
+    feasible = best is not None
+    if not solution.feasible:
+        r = labels.index(failing) if failing in labels else 0
+        if setup.bounds[r] == 0.0:
+            reason = (
+                f"requirement '{failing}' fails at the nominal point "
+                f"({requirements[r].output} = {setup.means[r]:.4g}); no tolerance can meet it: "
+                "change a nominal value or the requirement"
+            )
+            blocking = "nominal"
+        else:
+            reason = (
+                f"requirement '{failing}' cannot be met by any affordable choice: "
+                f"'{blocking}' alone (at its tightest option, or held fixed) leaves too little "
+                "room; add a tighter tier for it or relax the requirement"
+            )
+    elif not feasible:
+        bad = [labels[r] for r, c in enumerate(verified[2]) if not c["met"]]
+        failing = bad[0] if bad else ""
+        reason = (
+            f"the linear allocation fails the Monte Carlo check of '{', '.join(bad)}' after "
+            f"{len(history)} rounds; the model curves too much here: raise max_iterations "
+            "or n_samples"
+        )
+    else:
+        reason = f"all {len(requirements)} requirement(s) met at a cost of {solution.cost:.6g}"
+        if not refine:
+            bad = [labels[r] for r, c in enumerate(verified[2]) if not c["met"]]
+            reason = (
+                f"linear allocation at a cost of {solution.cost:.6g} (refinement off); the "
+                + (
+                    f"Monte Carlo check fails '{', '.join(bad)}': refine it"
+                    if bad
+                    else "Monte Carlo check meets every requirement"
+                )
+            )
+    return _result(
+        scenario,
+        setup,
+        problem,
+        solution,
+        tolerances,
+        verified,
+        feasible=feasible,
+        reason=reason,
+        failing=failing,
+        blocking=blocking,
+        n_samples=n,
+        method=m,
+        seed=seed,
+        history=tuple(history),
+        max_loosen=max_loosen,
+    )
+
+
+def _fixed_parts(scenario, setup: _Setup) -> dict[str, np.ndarray]:
+    n_req = len(setup.requirements)
+    return {
+        name: np.array(
+            [
+                setup.sensitivity[(r, name)]
+                * float(scenario.tolerances[name].standard_uncertainty) ** 2
+                for r in range(n_req)
+            ]
+        )
+        for name in setup.fixed
+    }

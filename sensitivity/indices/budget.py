@@ -1,0 +1,392 @@
+"""The error budget: global ranking of the inputs by Sobol' indices.
+
+:func:`rank` runs the Saltelli design through a model and returns the budget
+Dataset (dims ``output``, ``input``) of DEVELOPERS.md; :func:`analyze_budget`
+does the analysis alone on precomputed evaluations.
+
+Columns of the budget
+---------------------
+Independent inputs (``method="sobol"``): ``first_order`` and ``total_order``
+are Sobol' indices (Saltelli 2010 and Jansen 1999 estimators), with bootstrap
+bounds; ``interaction = total_order - first_order``; ``variance_share`` is
+``total_order * Var(Y)``.
+
+Correlated inputs (a ``correlation`` given, or ``method="delta"``): Sobol'
+indices assume independent inputs, so the budget is computed from one
+correlated sample instead. ``first_order`` is then the *full* first-order
+index ``Var(E[Y|X_i]) / Var(Y)``, which includes the part of Y an input
+explains through the inputs it is correlated with (these can add to more than
+one); ``delta`` is Borgonovo's moment-independent index; ``total_order`` is NaN;
+``rank`` follows ``delta``; ``variance_share`` is ``first_order * Var(Y)``.
+The noise floor is the dummy's upper bounds on both, and an input is below
+it when both its indices are.
+
+Correlated inputs, conditional sampling (``method="kucherenko"``): for inputs
+joined by the Gaussian copula, ``first_order`` is again the full first-order
+index and ``total_order`` is ``E[Var(Y|X_~i)] / Var(Y)``, the share of the
+variance X_i still carries when every other input is known (Kucherenko,
+Tarantola & Annoni 2012); ``interaction = total - first`` may be negative
+when correlation dominates. Model runs N(2d+2). ``rank`` follows
+``total_order``. ``attrs["method"]`` says which of the three applies."""
+
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Mapping, Sequence
+from typing import Any, Literal
+
+import numpy as np
+import xarray as xr
+
+from trapbudget.sensitivity.errors import ScenarioError
+from trapbudget.sensitivity.indices.givendata import first_order_given_data
+from trapbudget.sensitivity.indices.sobol import SobolResult, check_power_of_two, sobol_indices
+from trapbudget.sensitivity.protocol import evaluate_in_chunks
+from trapbudget.sensitivity.sampling import is_distribution, transform
+
+__all__ = ["DUMMY", "BudgetConvergenceWarning", "Method", "analyze_budget"]
+
+Method = Literal["sobol", "delta", "kucherenko"]
+_METHODS = ("sobol", "delta", "kucherenko")
+DUMMY = "dummy"
+_FULL_FIRST_ORDER = "full first-order index Var(E[Y|Xi])/Var(Y), correlations included"
+
+
+class BudgetConvergenceWarning(UserWarning):
+    """The convergence loop stopped at ``max_samples`` before the indices settled."""
+
+
+# --------------------------------------------------------------------------- helpers
+def _power_of_two(value: int, name: str) -> int:
+    try:
+        return check_power_of_two(value, name=name)
+    except ValueError as error:
+        raise ScenarioError(str(error)) from None
+
+
+def _split_inputs(inputs: Mapping[str, Any]) -> tuple[dict[str, Any], dict[str, float]]:
+    uncertain, fixed = {}, {}
+    for name, value in inputs.items():
+        if is_distribution(value):
+            uncertain[name] = value
+        else:
+            try:
+                fixed[name] = float(value)
+            except (TypeError, ValueError):
+                raise ScenarioError(
+                    f"inputs[{name!r}]: {value!r} is neither a frozen scipy.stats "
+                    "distribution nor a number; give e.g. scipy.stats.norm(4e-3, 8e-5) or 4e-3"
+                ) from None
+    if not uncertain:
+        raise ScenarioError("rank needs at least one uncertain input (a frozen distribution)")
+    if DUMMY in uncertain:
+        raise ScenarioError(
+            f"input name {DUMMY!r} is reserved for the noise-floor input; rename it"
+        )
+    return uncertain, fixed
+
+
+def _normalise_groups(
+    groups: Mapping[str, Any] | None, names: Sequence[str]
+) -> dict[str, tuple[str, ...]]:
+    """Accept group -> [inputs] or input -> group; return group -> members."""
+    if not groups:
+        return {}
+    values = list(groups.values())
+    if all(isinstance(v, str) for v in values):  # input -> group name
+        inverted: dict[str, list[str]] = {}
+        for member, group in groups.items():
+            inverted.setdefault(group, []).append(member)
+        groups = inverted
+    out = {}
+    for group, members in groups.items():
+        members = tuple(members)
+        unknown = [m for m in members if m not in names]
+        if unknown or not members:
+            raise ScenarioError(
+                f"groups[{group!r}]: {unknown or 'no members'} are not uncertain inputs; "
+                f"choose from {list(names)}"
+            )
+        out[str(group)] = members
+    return out
+
+
+def _output_names(model, evaluated: Mapping[str, np.ndarray], outputs) -> list[str]:
+    if outputs is not None:
+        missing = [o for o in outputs if o not in evaluated]
+        if missing:
+            raise ScenarioError(
+                f"outputs {missing} are not outputs of the model; choose from "
+                f"{[k for k in evaluated if k != 'validity']}"
+            )
+        return list(outputs)
+    return [k for k in evaluated if k != "validity" and np.issubdtype(evaluated[k].dtype, float)]
+
+
+def _units(model, names: Sequence[str], kind: str) -> dict[str, str]:
+    specs = getattr(model, kind, {}) or {}
+    return {n: getattr(specs.get(n), "unit", "") if n in specs else "" for n in names}
+
+
+def _validity_counts(model, validity: np.ndarray | None) -> dict[str, int]:
+    if validity is None:
+        return {}
+    validity = np.asarray(validity).astype(np.int64)
+    counts = {"any": int(np.count_nonzero(validity))}
+    flags = getattr(model, "validity_flags", None)
+    if flags is not None:
+        for flag in flags:
+            if int(flag):
+                counts[str(flag.name)] = int(np.count_nonzero(validity & int(flag)))
+    return counts
+
+
+class _Runner:
+    """Evaluate unit-cube rows through a model, collecting outputs and validity."""
+
+    def __init__(self, model, names, distributions, fixed, outputs, chunk_size, progress):
+        self.model = model
+        self.names = list(names)
+        self.distributions = list(distributions)
+        self.fixed = dict(fixed)
+        self.requested = outputs
+        self.outputs: list[str] | None = None
+        self.chunk_size = chunk_size
+        self.progress = progress
+        self.validity: list[np.ndarray] = []
+        self.n_evaluations = 0
+
+    def __call__(self, unit_rows: np.ndarray) -> np.ndarray:
+        """Evaluate unit-cube rows (n, d) through the inverse CDFs; (n, m) outputs."""
+        return self.evaluate_physical(transform(unit_rows, self.distributions))
+
+    def evaluate_physical(self, phys: np.ndarray) -> np.ndarray:
+        """Evaluate input rows (n, d) in SI; (n, m) outputs."""
+        n = phys.shape[0]
+        columns = {name: phys[:, j] for j, name in enumerate(self.names)}
+        columns.update({name: np.full(n, value) for name, value in self.fixed.items()})
+        done_before = self.n_evaluations
+        report = None
+        if self.progress is not None:
+            # Cumulative over the steps of the convergence loop.
+            def report(done: int, total: int) -> None:
+                self.progress(done_before + done, done_before + total)
+
+        result = evaluate_in_chunks(
+            self.model, columns, chunk_size=self.chunk_size, progress=report
+        )
+        result = {k: np.asarray(v) for k, v in result.items()}
+        if self.outputs is None:
+            self.outputs = _output_names(self.model, result, self.requested)
+        if "validity" in result:
+            self.validity.append(result["validity"])
+        self.n_evaluations += n
+        return np.column_stack([np.asarray(result[o], dtype=float) for o in self.outputs])
+
+
+# --------------------------------------------------------------------------- analysis
+def analyze_budget(
+    f_A: np.ndarray,
+    f_B: np.ndarray,
+    f_AB: np.ndarray,
+    f_BA: np.ndarray | None = None,
+    *,
+    inputs: Sequence[str],
+    outputs: Sequence[str],
+    f_AB_total: np.ndarray | None = None,
+    f_AB_groups: np.ndarray | None = None,
+    f_AB_groups_total: np.ndarray | None = None,
+    groups: Mapping[str, Sequence[str]] | None = None,
+    dummy_samples: np.ndarray | None = None,
+    output_units: Mapping[str, str] | None = None,
+    confidence_level: float = 0.95,
+    n_bootstrap: int = 200,
+    rng: int | np.random.Generator | None = None,
+    estimator: Literal["jansen", "sobol2007"] = "jansen",
+) -> xr.Dataset:
+    """Budget Dataset from precomputed Saltelli-design evaluations.
+
+    Parameters
+    ----------
+    f_A, f_B : numpy.ndarray, shape (n, m)
+        Outputs on the rows of A and B (m outputs, in the order of ``outputs``).
+    f_AB : numpy.ndarray, shape (d, n, m)
+        Outputs on AB_i, one per input of ``inputs``.
+    f_BA : numpy.ndarray, optional, shape (d, n, m)
+        Outputs on BA_i; gives ``second_order``.
+    inputs, outputs : sequence of str
+        Names along the ``input`` and ``output`` dims.
+    f_AB_total : numpy.ndarray, optional, shape (d, n, m)
+        For dependent inputs (:func:`~trapbudget.sensitivity.indices.dependent.dependent_design`):
+        ``f_AB`` holds the outputs on C_i (first order) and this the outputs
+        on D_i (total order).
+    f_AB_groups : numpy.ndarray, optional, shape (g, n, m)
+        Outputs on A with each group's columns from B (grouped indices).
+    f_AB_groups_total : numpy.ndarray, optional, shape (g, n, m)
+        For dependent inputs, the D rows of each group (as ``f_AB_total``).
+    groups : mapping, optional
+        Group name -> member inputs, in the order of ``f_AB_groups``.
+    dummy_samples : numpy.ndarray, optional, shape (2n,)
+        Values of an independent uniform input the model ignored, on the A
+        rows then the B rows; gives the noise floor.
+    output_units : mapping, optional
+        Output name -> unit string.
+    confidence_level : float, default 0.95
+    n_bootstrap : int, default 200
+    rng : int or numpy.random.Generator, optional
+    estimator : {"jansen", "sobol2007"}, default "jansen"
+
+    Returns
+    -------
+    xarray.Dataset
+        The budget (DEVELOPERS.md, "Result Datasets"), without the linear
+        (GUM) columns: :func:`rank` adds those.
+
+    Notes
+    -----
+    Noise floor: a non-influential input has Jansen total index exactly zero
+    in the Saltelli design (its AB rows give the outputs of A), so the
+    ignored dummy cannot mark a floor through the design itself. The floor is
+    the upper bootstrap bound of the dummy's first-order index estimated from
+    the 2n independent A and B rows by the class-mean (given-data) estimator
+    (Plischke, Borgonovo & Smith 2013): the size of index an estimator
+    returns at this n for an input that does nothing. An input whose
+    total-order estimate lies below it is reported as negligible, the
+    screening threshold of Khorashadi Zadeh et al. (2017); the floor falls
+    roughly as 1/n.
+
+    References
+    ----------
+    F. Khorashadi Zadeh et al., Environ. Model. Softw. 91, 210 (2017);
+    A. Saltelli et al., Comput. Phys. Commun. 181, 259 (2010).
+    """
+    generator = np.random.default_rng(rng)
+    inputs, outputs = list(inputs), list(outputs)
+    units = dict(output_units or {})
+    kwargs = {
+        "n_bootstrap": n_bootstrap,
+        "confidence_level": confidence_level,
+        "rng": generator,
+        "estimator": estimator,
+    }
+    res = _first_and_total(f_A, f_B, f_AB, f_AB_total, f_BA, **kwargs)
+    a = np.asarray(f_A, float).reshape(f_A.shape[0], -1)
+    b = np.asarray(f_B, float).reshape(a.shape)
+    both = np.concatenate([a, b])
+    ds = _index_dataset(res, inputs, outputs, dim="input")
+    ds["interaction"] = ds["total_order"] - ds["first_order"]
+    ds["interaction"].attrs.update(
+        units="1", long_name="total minus first order (interactions of the input)"
+    )
+    mean = both.mean(axis=0)
+    std = both.std(axis=0, ddof=1)
+    ds["output_mean"] = ("output", mean)
+    ds["output_std"] = ("output", std)
+    ds["variance_share"] = ds["total_order"] * xr.DataArray(std**2, dims="output")
+    ds["variance_share"].attrs["long_name"] = "total order x Var(Y), output units squared"
+    if dummy_samples is not None:
+        _, interval = first_order_given_data(
+            np.asarray(dummy_samples).reshape(-1, 1),
+            both,
+            n_bootstrap=max(n_bootstrap, 2),
+            confidence_level=confidence_level,
+            rng=generator,
+        )
+        floor = np.maximum(interval.high[0], 0.0)
+    else:
+        floor = np.zeros(len(outputs))
+    ds["noise_floor"] = ("output", floor)
+    ds["noise_floor"].attrs.update(
+        units="1", long_name="upper bound of the ignored dummy input's index"
+    )
+    ds["below_noise_floor"] = ds["total_order"] < ds["noise_floor"]
+    if dummy_samples is None:
+        ds["below_noise_floor"][:] = False
+    ds["rank"] = _ranks(ds["total_order"])
+    if res.second_order is not None:
+        _add_second_order(ds, res, inputs, outputs)
+    if groups:
+        gres = _first_and_total(f_A, f_B, f_AB_groups, f_AB_groups_total, None, **kwargs)
+        gds = _index_dataset(gres, list(groups), outputs, dim="group")
+        for name in gds.data_vars:
+            ds[f"group_{name}"] = gds[name]
+        ds["group_rank"] = _ranks(ds["group_total_order"], dim="group")
+        ds["group_members"] = ("group", [",".join(m) for m in groups.values()])
+    _unit_attrs(ds, units)
+    ds.attrs.update(
+        n_samples=int(a.shape[0]),
+        confidence_level=float(confidence_level),
+        n_bootstrap=int(n_bootstrap),
+        estimator=estimator,
+        method="sobol",
+        rank_by="total_order",
+        dummy=dummy_samples is not None,
+    )
+    return ds
+
+
+def _first_and_total(f_A, f_B, f_first, f_total, f_BA, **kwargs) -> SobolResult:
+    """Sobol' estimates; the total order from ``f_total`` when the design has one."""
+    res = sobol_indices(f_A, f_B, f_first, f_BA, **kwargs)
+    if f_total is None:
+        return res
+    total = sobol_indices(f_A, f_B, f_total, **kwargs)
+    return dataclasses.replace(
+        res,
+        total_order=total.total_order,
+        total_order_interval=total.total_order_interval,
+        total_order_se=total.total_order_se,
+    )
+
+
+def _index_dataset(res: SobolResult, factors, outputs, *, dim: str) -> xr.Dataset:
+    def arr(x):
+        return xr.DataArray(
+            np.asarray(x).reshape(len(factors), len(outputs)).T, dims=("output", dim)
+        )
+
+    ds = xr.Dataset(coords={"output": list(outputs), dim: list(factors)})
+    for key, label in (("first_order", "first-order"), ("total_order", "total-order")):
+        interval = getattr(res, f"{key}_interval")
+        ds[key] = arr(getattr(res, key))
+        ds[f"{key}_low"] = arr(interval.low)
+        ds[f"{key}_high"] = arr(interval.high)
+        ds[key].attrs.update(units="1", long_name=f"{label} Sobol' index")
+        ds[f"{key}_low"].attrs.update(units="1", long_name=f"{label} index, lower bound")
+        ds[f"{key}_high"].attrs.update(units="1", long_name=f"{label} index, upper bound")
+    return ds
+
+
+def _add_second_order(ds: xr.Dataset, res: SobolResult, inputs, outputs) -> None:
+    d, m = len(inputs), len(outputs)
+    ds.coords["input_b"] = list(inputs)
+    for key, values in (
+        ("second_order", res.second_order),
+        ("second_order_low", res.second_order_interval.low),
+        ("second_order_high", res.second_order_interval.high),
+    ):
+        v = np.asarray(values).reshape(d, d, m)
+        ds[key] = (("output", "input", "input_b"), np.moveaxis(v, -1, 0))
+        ds[key].attrs.update(units="1", long_name="closed second-order Sobol' index")
+
+
+def _ranks(values: xr.DataArray, dim: str = "input") -> xr.DataArray:
+    """1 = largest; NaN last; ties broken by input order."""
+    v = values.transpose("output", dim).values
+    key = np.where(np.isnan(v), -np.inf, v)
+    order = np.argsort(-key, axis=1, kind="stable")
+    ranks = np.empty_like(order)
+    rows = np.arange(v.shape[0])[:, None]
+    ranks[rows, order] = np.arange(1, v.shape[1] + 1)[None, :]
+    out = xr.DataArray(ranks, dims=("output", dim))
+    out.attrs["long_name"] = "rank (1 = largest total-order index)"
+    return out
+
+
+def _unit_attrs(ds: xr.Dataset, units: Mapping[str, str]) -> None:
+    """Per-output units in ``attrs["units_<output>"]`` (variables mix outputs)."""
+    for name in ds["output"].values:
+        ds.attrs[f"units_{name}"] = units.get(str(name), "")
+    ds["output"].attrs["units"] = [units.get(str(n), "") for n in ds["output"].values]
+    ds["output_mean"].attrs["long_name"] = "output mean (units in attrs units_<output>)"
+    ds["output_std"].attrs["long_name"] = "output standard deviation (units_<output>)"

@@ -1,0 +1,119 @@
+"""The convergence loop of a ranking: grow the base size until the indices settle."""
+
+from __future__ import annotations
+
+import dataclasses
+import warnings
+from collections.abc import Callable, Sequence
+from typing import Any
+
+import numpy as np
+import xarray as xr
+
+from trapbudget.sensitivity.indices.budget import BudgetConvergenceWarning
+
+__all__ = []
+
+
+@dataclasses.dataclass(frozen=True)
+class _Options:
+    """Settings every budget driver shares."""
+
+    dummy: bool
+    convergence: bool
+    tolerance: float
+    max_samples: int
+    confidence_level: float
+    n_bootstrap: int
+    rng: np.random.Generator
+    estimator: str
+
+    def analysis(self) -> dict[str, Any]:
+        return {
+            "confidence_level": self.confidence_level,
+            "n_bootstrap": self.n_bootstrap,
+            "rng": self.rng,
+            "estimator": self.estimator,
+        }
+
+
+def _converge(step: Callable[[int], xr.Dataset], n_samples: int, opts: _Options) -> xr.Dataset:
+    """Run ``step(n_new)`` (adds n_new base samples, returns the budget so far).
+
+    One step without ``opts.convergence``; else double N until the budget
+    settles (Sarrazin, Pianosi & Wagener 2016) or the next step would pass
+    ``opts.max_samples``.
+    """
+    convergence, tolerance, max_samples = opts.convergence, opts.tolerance, opts.max_samples
+    history = [step(n_samples)]
+    n_total = n_samples
+    converged = not convergence
+    while convergence:
+        if len(history) >= 2 and _settled(history[-2], history[-1], tolerance):
+            converged = True
+            break
+        if 2 * n_total > max_samples:
+            warnings.warn(
+                f"rank: the indices did not settle (interval width <= {tolerance} and a "
+                f"stable ranking) by n_samples = {n_total}; raise max_samples or tolerance",
+                BudgetConvergenceWarning,
+                stacklevel=4,
+            )
+            break
+        history.append(step(n_total))
+        n_total *= 2
+    ds = history[-1]
+    if convergence:
+        _add_history(ds, history)
+    ds.attrs["converged"] = bool(converged)
+    return ds
+
+
+_INDEX_KEYS = ("first_order", "total_order", "delta")
+
+
+def _max_width(ds: xr.Dataset) -> float:
+    widths = [
+        np.nanmax((ds[f"{k}_high"] - ds[f"{k}_low"]).values)
+        for k in _INDEX_KEYS
+        if k in ds and np.isfinite(ds[k].values).any()
+    ]
+    return float(max(widths))
+
+
+def _stable_ranking(previous: xr.Dataset, current: xr.Dataset) -> bool:
+    """True when no two inputs above the noise floor swapped places significantly.
+
+    A swap counts only between inputs whose current intervals of the ranking
+    index do not overlap: inputs whose indices are statistically tied may trade
+    places from one step to the next without the ranking being unsettled.
+    """
+    key = current.attrs.get("rank_by", "total_order")
+    for name in current["output"].values:
+        now, before = current.sel(output=name), previous.sel(output=name)
+        keep = ~now["below_noise_floor"].values.astype(
+            bool
+        )  # the floor of the larger, current sample
+        value, old = now[key].values[keep], before[key].values[keep]
+        low, high = now[f"{key}_low"].values[keep], now[f"{key}_high"].values[keep]
+        flipped = np.sign(value[:, None] - value[None, :]) != np.sign(old[:, None] - old[None, :])
+        separate = (low[:, None] > high[None, :]) | (high[:, None] < low[None, :])
+        if np.any(flipped & separate):
+            return False
+    return True
+
+
+def _settled(previous: xr.Dataset, current: xr.Dataset, tolerance: float) -> bool:
+    return _max_width(current) < tolerance and _stable_ranking(previous, current)
+
+
+def _add_history(ds: xr.Dataset, history: Sequence[xr.Dataset]) -> None:
+    ds.coords["step_n_samples"] = ("step", [h.attrs["n_samples"] for h in history])
+    for key in _INDEX_KEYS:
+        if key in ds:
+            ds[f"history_{key}"] = xr.concat([h[key] for h in history], dim="step")
+            ds[f"history_{key}"].attrs.update(units="1", long_name=f"{key} at each step")
+    ds["history_max_width"] = ("step", [_max_width(h) for h in history])
+    ds["history_max_width"].attrs.update(
+        units="1", long_name="widest bootstrap interval at each step"
+    )
