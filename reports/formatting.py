@@ -4,6 +4,9 @@ from __future__ import annotations
 
 import math
 
+from trapbudget.sensitivity.scenario.units import display_unit, ureg
+from trapbudget.sensitivity.scenario.units import format_quantity as engine_format_quantity
+
 __all__ = [
     "display_scale",
     "format_index",
@@ -14,20 +17,6 @@ __all__ = [
     "output_unit",
     "units_of",
 ]
-
-# Display units for SI units when the engine's units module offers none:
-# (SI unit, display unit, factor SI -> display).
-_FALLBACK_DISPLAY: dict[str, tuple[str, float]] = {
-    "W": ("mW", 1e3),
-    "m": ("mm", 1e3),
-    "Hz": ("MHz", 1e-6),
-    "T/m": ("G/cm", 100.0),
-    "T": ("G", 1e4),
-    "Pa": ("mbar", 1e-2),
-    "m/s": ("m/s", 1.0),
-    "1/m**3": ("1/cm^3", 1e-6),
-    "1/m^3": ("1/cm^3", 1e-6),
-}
 
 
 def format_number(value: float, *, digits: int = 3) -> str:
@@ -60,29 +49,12 @@ def format_percent(fraction: float, *, digits: int = 1) -> str:
     return f"{100 * fraction:.{digits}f} %"
 
 
-def _fallback_quantity(value: float, unit: str, digits: int) -> str:
-    if unit == "K":
-        magnitude = abs(value)
-        if 0 < magnitude < 1e-3:
-            return f"{format_number(value * 1e6, digits=digits)} uK"
-        if 0 < magnitude < 1:
-            return f"{format_number(value * 1e3, digits=digits)} mK"
-        return f"{format_number(value, digits=digits)} K"
-    if unit == "s":
-        magnitude = abs(value)
-        if 0 < magnitude < 1:
-            return f"{format_number(value * 1e3, digits=digits)} ms"
-        return f"{format_number(value, digits=digits)} s"
-    display, factor = _FALLBACK_DISPLAY.get(unit, (unit, 1.0))
-    text = format_number(value * factor, digits=digits)
-    return f"{text} {display}".strip()
-
-
 def format_quantity(value: float, unit: str, *, digits: int = 3) -> str:
-    """A value in SI ``unit`` as readable text with a display unit (``0.004 W`` -> ``4.00 mW``).
+    """A value in SI ``unit`` as readable text in its display unit (``0.004 W`` -> ``4 mW``).
 
-    Uses ``trapbudget.sensitivity.scenario.units.format_quantity`` when it exists, so the
-    reports show the same display units as the rest of the tool.
+    The display units are the engine's
+    (:data:`trapbudget.sensitivity.scenario.units.DISPLAY_UNITS`),
+    so the reports show the same units as the rest of the tool.
     """
     unit = unit or ""
     try:
@@ -91,16 +63,7 @@ def format_quantity(value: float, unit: str, *, digits: int = 3) -> str:
         return str(value)
     if not math.isfinite(value):
         return f"{format_number(value)} {unit}".strip()
-    try:
-        from trapbudget.sensitivity.scenario.units import format_quantity as engine_format
-    except ImportError:
-        engine_format = None
-    if engine_format is not None:
-        try:
-            return engine_format(value, unit, digits=digits)
-        except Exception:  # an engine unit it cannot display: fall back to ours
-            pass
-    return _fallback_quantity(value, unit, digits)
+    return engine_format_quantity(value, unit, digits=digits)
 
 
 def units_of(ds, name: str) -> str:
@@ -110,9 +73,6 @@ def units_of(ds, name: str) -> str:
     return str(ds.attrs.get(f"units_{name}", ""))
 
 
-_SCALES: dict[str, tuple[str, float]] = {**_FALLBACK_DISPLAY, "1/s": ("1/s", 1.0)}
-
-
 def display_scale(unit: str, typical: float) -> tuple[float, str]:
     """Factor and label to show SI ``unit`` values of size ``typical`` on a plot axis.
 
@@ -120,25 +80,11 @@ def display_scale(unit: str, typical: float) -> tuple[float, str]:
     """
     unit = unit or ""
     magnitude = abs(float(typical)) if math.isfinite(float(typical)) else 0.0
-    if unit == "K":
-        if 0 < magnitude < 1e-3:
-            return 1e6, "uK"
-        if 0 < magnitude < 1:
-            return 1e3, "mK"
-        return 1.0, "K"
-    if unit == "s":
-        return (1e3, "ms") if 0 < magnitude < 1 else (1.0, "s")
-    try:
-        from trapbudget.sensitivity.scenario.units import DISPLAY_UNITS, ureg
-
-        display = DISPLAY_UNITS.get(unit)
-        if display and display != "auto":
-            factor = float(ureg.Quantity(1.0, unit).to(display).magnitude)
-            return factor, display.replace("**", "^")
-    except Exception:  # no engine units module, or a unit it cannot convert: ours
-        pass
-    display, factor = _SCALES.get(unit, (unit, 1.0))
-    return factor, display
+    display = display_unit(unit, magnitude)
+    if display == unit:
+        return 1.0, unit.replace("**", "^")
+    factor = float(ureg.Quantity(1.0, unit).to(display).magnitude)
+    return factor, display.replace("**", "^")
 
 
 def output_unit(name: str, *datasets) -> str:

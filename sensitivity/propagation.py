@@ -28,8 +28,15 @@ from numpy.typing import ArrayLike
 
 from trapbudget.models.protocol import ModelError
 from trapbudget.sensitivity.errors import ScenarioError
-from trapbudget.sensitivity.protocol import BoundModel, as_model, evaluate_in_chunks, model_name
-from trapbudget.sensitivity.sampling import Method, sample_inputs, split_inputs
+from trapbudget.sensitivity.protocol import (
+    BoundModel,
+    as_model,
+    evaluate_in_chunks,
+    model_name,
+    select_outputs,
+    validity_counts,
+)
+from trapbudget.sensitivity.sampling import SamplingMethod, sample_inputs, split_inputs
 from trapbudget.sensitivity.summary import _output_names, coverage_interval, numerical_tolerance
 
 __all__ = ["ModelValidityWarning", "propagate", "propagate_adaptive", "select_outputs"]
@@ -64,27 +71,6 @@ def _split_inputs(model: Any, inputs: Mapping[str, Any]):
     return uncertain, fixed
 
 
-def select_outputs(
-    model: Any, results: Mapping[str, Any], outputs: Sequence[str] | None
-) -> list[str]:
-    """Names of the outputs to keep (default all but ``validity``); unknown names raise.
-
-    Raises
-    ------
-    ScenarioError
-        For a name the model did not return.
-    """
-    keep = [o for o in results if o != "validity"] if outputs is None else list(outputs)
-    missing = [name for name in keep if name not in results]
-    if missing:
-        raise ScenarioError(
-            f"model {model_name(model)} has no output {missing[0]!r}; outputs are "
-            f"{', '.join(o for o in results if o != 'validity')}",
-            key="outputs.names",
-        )
-    return keep
-
-
 def _evaluate(model, columns, *, n_samples, chunk_size, progress):
     try:
         return evaluate_in_chunks(
@@ -110,7 +96,7 @@ def propagate(
     inputs: Mapping[str, Any],
     *,
     n_samples: int,
-    method: Method = "sobol",
+    method: SamplingMethod = "sobol",
     correlation: ArrayLike | None = None,
     rng: Any = None,
     outputs: Sequence[str] | None = None,
@@ -229,15 +215,7 @@ def propagate(
 
 def _report_validity(ds: xr.Dataset, model: Any, *, stacklevel: int) -> None:
     mask = np.asarray(ds["validity"].values).astype(np.int64)
-    flags = getattr(model, "validity_flags", None)
-    counts: dict[str, int] = {}
-    if flags is not None:
-        for flag in flags:
-            value = int(flag)
-            if value:
-                counts[flag.name or str(value)] = int(np.count_nonzero(mask & value))
-    else:
-        counts["invalid"] = int(np.count_nonzero(mask))
+    counts = validity_counts(model, mask)
     n_invalid = int(np.count_nonzero(mask))
     ds.attrs["validity_counts"] = counts
     ds.attrs["invalid_fraction"] = n_invalid / mask.size
@@ -271,9 +249,9 @@ def propagate_adaptive(
     *,
     confidence_level: float = 0.95,
     significant_digits: int = 2,
-    max_trials: int = 1_000_000,
+    max_samples: int = 1_000_000,
     rng: Any = None,
-    method: Method = "random",
+    method: SamplingMethod = "random",
     correlation: ArrayLike | None = None,
     outputs: Sequence[str] | None = None,
     chunk_size: int = 65536,
@@ -297,12 +275,12 @@ def propagate_adaptive(
         Coverage probability p.
     significant_digits : int
         n_dig, significant digits of u(y) to stabilise.
-    max_trials : int
+    max_samples : int
         Stop (unconverged) after this many trials in all.
     rng : seed or Generator
         One child stream per batch is spawned from it.
     progress : callable(done, total), optional
-        Called after each batch with (trials so far, max_trials).
+        Called after each batch with (trials so far, max_samples).
 
     Returns
     -------
@@ -324,7 +302,7 @@ def propagate_adaptive(
     converged = False
     delta: dict[str, float] = {}
     achieved: dict[str, list[float]] = {}
-    while (len(batches) + 1) * batch <= max(max_trials, batch):
+    while (len(batches) + 1) * batch <= max(max_samples, batch):
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", ModelValidityWarning)
             ds = propagate(
@@ -343,7 +321,7 @@ def propagate_adaptive(
         batches.append(ds)
         stats.append(_batch_statistics(ds, names, confidence_level))
         if progress is not None:
-            progress(len(batches) * batch, max_trials)
+            progress(len(batches) * batch, max_samples)
         if len(batches) < 2:
             continue
         table = np.stack(stats)  # (h, outputs, 4)
@@ -381,8 +359,8 @@ def propagate_adaptive(
         _report_validity(result, as_model(model), stacklevel=3)
     if not converged:
         warnings.warn(
-            f"adaptive Monte Carlo did not converge within max_trials={max_trials}; "
-            "raise max_trials or lower significant_digits",
+            f"adaptive Monte Carlo did not converge within max_samples={max_samples}; "
+            "raise max_samples or lower significant_digits",
             RuntimeWarning,
             stacklevel=2,
         )

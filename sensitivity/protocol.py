@@ -9,13 +9,14 @@ from __future__ import annotations
 
 import dataclasses
 import math
-from collections.abc import Callable, Iterable, Mapping
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from typing import Any, Protocol, runtime_checkable
 
 import numpy as np
 from numpy.typing import ArrayLike
 
 from trapbudget.models.protocol import InputSpec, ModelError, OutputSpec
+from trapbudget.sensitivity.errors import ScenarioError
 
 __all__ = [
     "BoundModel",
@@ -24,6 +25,8 @@ __all__ = [
     "as_model",
     "evaluate_in_chunks",
     "model_name",
+    "select_outputs",
+    "validity_counts",
 ]
 
 
@@ -255,3 +258,53 @@ def evaluate_in_chunks(
         if progress is not None:
             progress(stop, total)
     return {name: np.concatenate(parts) for name, parts in pieces.items()}
+
+
+def select_outputs(
+    model: Any, results: Mapping[str, Any], outputs: Sequence[str] | None
+) -> list[str]:
+    """Names of the outputs to keep; unknown names raise.
+
+    Without ``outputs``: every floating-point output the model returned
+    (``validity`` and other integer masks are left out).
+
+    Raises
+    ------
+    ScenarioError
+        For a name the model did not return.
+    """
+    if outputs is None:
+        return [
+            name
+            for name, value in results.items()
+            if name != "validity" and np.issubdtype(np.asarray(value).dtype, np.floating)
+        ]
+    keep = list(outputs)
+    missing = [name for name in keep if name not in results]
+    if missing:
+        raise ScenarioError(
+            f"model {model_name(model)} has no output {missing[0]!r}; outputs are "
+            f"{', '.join(o for o in results if o != 'validity')}",
+            key="outputs.names",
+        )
+    return keep
+
+
+def validity_counts(model: Any, mask: ArrayLike) -> dict[str, int]:
+    """Samples outside the model's validity, per flag of ``model.validity_flags``.
+
+    Without flags on the model, the one key ``"invalid"`` counts every sample
+    with a non-zero mask.
+    """
+    mask = np.asarray(mask).astype(np.int64)
+    flags = getattr(model, "validity_flags", None)
+    if flags is None:
+        base = getattr(model, "base", None)
+        flags = getattr(base, "validity_flags", None)
+    if flags is None:
+        return {"invalid": int(np.count_nonzero(mask))}
+    return {
+        str(flag.name or int(flag)): int(np.count_nonzero(mask & int(flag)))
+        for flag in flags
+        if int(flag)
+    }

@@ -43,7 +43,7 @@ from trapbudget.sensitivity.indices.budget import (
     _FULL_FIRST_ORDER,
     _METHODS,
     DUMMY,
-    Method,
+    IndexMethod,
     _normalise_groups,
     _power_of_two,
     _ranks,
@@ -80,11 +80,11 @@ def rank(
     groups: Mapping[str, Any] | None = None,
     dummy: bool = True,
     convergence: bool = False,
-    tolerance: float = 0.05,
+    convergence_tolerance: float = 0.05,
     max_samples: int | None = None,
     chunk_size: int = 65536,
     progress: Callable[[int, int], None] | None = None,
-    method: Method = "sobol",
+    method: IndexMethod = "sobol",
     estimator: Literal["jansen", "sobol2007"] = "jansen",
 ) -> xr.Dataset:
     """Rank the inputs of a model by global sensitivity indices: the error budget.
@@ -121,10 +121,10 @@ def rank(
         floor (``noise_floor``, ``below_noise_floor``).
     convergence : bool, default False
         Double N (reusing every earlier run) until every index's interval
-        is narrower than ``tolerance`` and the ranking is stable between the
+        is narrower than ``convergence_tolerance`` and the ranking is stable between the
         last two steps (Sarrazin et al. 2016): no two inputs above the noise
         floor swap places unless their intervals overlap (a statistical tie).
-    tolerance : float, default 0.05
+    convergence_tolerance : float, default 0.05
         Largest accepted width of a bootstrap interval.
     max_samples : int, optional
         Largest base size the loop may reach (default 16 N).
@@ -178,8 +178,10 @@ def rank(
     """
     if method not in _METHODS:
         raise ScenarioError(f"method must be one of {_METHODS}; got {method!r}")
-    if not 0 < tolerance:
-        raise ScenarioError(f"tolerance must be positive; got {tolerance!r}")
+    if not 0 < convergence_tolerance:
+        raise ScenarioError(
+            f"convergence_tolerance must be positive; got {convergence_tolerance!r}"
+        )
     n_samples = _power_of_two(n_samples, "n_samples")
     model = as_model(model, input_names=list(inputs))
     uncertain, fixed = _split_inputs(inputs)
@@ -202,7 +204,7 @@ def rank(
     opts = _Options(
         dummy=dummy,
         convergence=convergence,
-        tolerance=tolerance,
+        convergence_tolerance=convergence_tolerance,
         max_samples=max_samples,
         confidence_level=confidence_level,
         n_bootstrap=n_bootstrap,
@@ -228,7 +230,7 @@ def rank(
         seed=int(rng) if isinstance(rng, int | np.integer) and not isinstance(rng, bool) else "",
         validity_counts=counts,
         n_invalid=int(counts.get("any", 0)),
-        tolerance=float(tolerance),
+        convergence_tolerance=float(convergence_tolerance),
         model=type(getattr(model, "base", model)).__name__,
     )
     ds.attrs.setdefault("converged", True)

@@ -37,7 +37,7 @@ from trapbudget.sensitivity.errors import ScenarioError
 
 __all__ = [
     "METHODS",
-    "Method",
+    "SamplingMethod",
     "check_correlation",
     "copula_to_pearson",
     "is_distribution",
@@ -50,7 +50,7 @@ __all__ = [
     "unit_design",
 ]
 
-Method = Literal["random", "latin", "sobol"]
+SamplingMethod = Literal["random", "latin", "sobol"]
 METHODS: tuple[str, ...] = ("random", "latin", "sobol")
 
 # Unit values are kept this far from 0 and 1 so that unbounded ppfs stay finite.
@@ -59,7 +59,7 @@ _EDGE = float(np.finfo(float).eps)
 
 def is_power_of_two(n: int) -> bool:
     """True for n = 1, 2, 4, 8, ..."""
-    return n >= 1 and (n & (n - 1)) == 0
+    return isinstance(n, int | np.integer) and n >= 1 and (int(n) & (int(n) - 1)) == 0
 
 
 def _next_power_of_two(n: int) -> int:
@@ -77,7 +77,7 @@ def unit_design(
     n_samples: int,
     dimension: int,
     *,
-    method: Method = "sobol",
+    method: SamplingMethod = "sobol",
     rng: Any = None,
 ) -> np.ndarray:
     """Sample points in the open unit hypercube (0, 1)^d.
@@ -317,7 +317,7 @@ def sample_inputs(
     inputs: Mapping[str, Any],
     *,
     n_samples: int,
-    method: Method = "sobol",
+    method: SamplingMethod = "sobol",
     correlation: ArrayLike | None = None,
     rng: Any = None,
 ) -> dict[str, np.ndarray]:

@@ -462,7 +462,7 @@ def test_relative_spread_requirement_is_allocated_to_the_limit():
     assert allocation.feasible, allocation.reason
     u = {n: t.standard_uncertainty for n, t in allocation.scenario.tolerances.items()}
     spread = math.sqrt(sum((B[n] * u[n]) ** 2 for n in u)) / OFFSET
-    # at or just inside the limit: the refinement stops within rtol = 2 %
+    # at or just inside the limit: the refinement stops within convergence_tolerance = 2 %
     assert 0.02 * (1 - 0.03) <= spread <= 0.02 * (1 + 1.0 / math.sqrt(N_MC))
 
 

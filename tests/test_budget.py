@@ -124,7 +124,9 @@ def test_grouped_second_order_budget_round_trips(tmp_path):
 def test_convergence_loop_terminates_and_is_stable():
     # Sarrazin, Pianosi & Wagener 2016: interval width below the tolerance, stable ranking.
     inputs = {"x1": UNIFORM, "x2": UNIFORM, "x3": UNIFORM}
-    ds = rank(Ishigami(), inputs, n_samples=256, rng=1, convergence=True, tolerance=0.15)
+    ds = rank(
+        Ishigami(), inputs, n_samples=256, rng=1, convergence=True, convergence_tolerance=0.15
+    )
     assert ds.attrs["converged"] is True
     steps = ds["step_n_samples"].values
     assert steps[0] == 256 and np.all(steps[1:] == 2 * steps[:-1])
@@ -140,7 +142,7 @@ def test_convergence_loop_terminates_and_is_stable():
     assert list(np.argsort(-last)) == list(np.argsort(-prev))
     # Progress is cumulative over the steps and ends at the number of model runs.
     calls = []
-    rank(Ishigami(), inputs, n_samples=64, rng=1, convergence=True, tolerance=0.3,
+    rank(Ishigami(), inputs, n_samples=64, rng=1, convergence=True, convergence_tolerance=0.3,
          progress=lambda done, total: calls.append((done, total)))  # fmt: skip
     assert [c[0] for c in calls] == sorted(c[0] for c in calls)
     assert calls[-1][0] == calls[-1][1]
@@ -160,7 +162,7 @@ def test_convergence_warns_when_max_samples_is_reached():
             n_samples=128,
             rng=0,
             convergence=True,
-            tolerance=1e-3,
+            convergence_tolerance=1e-3,
             max_samples=512,
         )
     assert ds.attrs["converged"] is False
@@ -216,7 +218,15 @@ def test_validity_counts_and_netcdf_round_trip(tmp_path):
     inputs = {"x1": stats.norm(0, 1), "x2": stats.uniform(0, 2), "fixed": 1.0}
     model = FlaggedModel()
     model.inputs = {**model.inputs, "fixed": InputSpec("fixed", "", 1.0, 0, 2, "held")}
-    ds = rank(model, inputs, n_samples=256, rng=5, n_bootstrap=20, convergence=True, tolerance=0.5)
+    ds = rank(
+        model,
+        inputs,
+        n_samples=256,
+        rng=5,
+        n_bootstrap=20,
+        convergence=True,
+        convergence_tolerance=0.5,
+    )
     counts = ds.attrs["validity_counts"]
     n_eval = ds.attrs["n_evaluations"]
     # About half the samples have x1 < 0 and half have x2 > 1 (exact probabilities 1/2).
@@ -322,7 +332,7 @@ def test_given_data_convergence_loop():
     inputs = {"x1": stats.norm(0, 1), "x2": stats.norm(0, 1)}
     ds = rank(
         LinearModel([1.0, 0.3]), inputs, n_samples=64, correlation=corr, rng=3,
-        n_bootstrap=30, convergence=True, tolerance=0.1, method="delta",
+        n_bootstrap=30, convergence=True, convergence_tolerance=0.1, method="delta",
     )  # fmt: skip
     assert ds.attrs["converged"] is True and ds.attrs["method"] == "delta"
     assert ds["history_max_width"].values[-1] < 0.1
@@ -335,7 +345,7 @@ def test_errors_name_the_fix():
     # User mistakes are ScenarioErrors (the command line prints them on one line).
     with pytest.raises(ScenarioError, match=r"power of 2; got 1000, use 1024"):
         rank(Ishigami(), inputs, n_samples=1000)
-    with pytest.raises(ValueError, match=r"outputs \['z'\] are not outputs of the model"):
+    with pytest.raises(ValueError, match=r"outputs.names: model Ishigami has no output 'z'"):
         rank(Ishigami(), inputs, n_samples=64, outputs=["z"])
     with pytest.raises(ValueError, match=r"groups\['g'\]: \['x9'\] are not uncertain inputs"):
         rank(Ishigami(), inputs, n_samples=64, groups={"g": ["x1", "x9"]})

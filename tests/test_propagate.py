@@ -128,9 +128,9 @@ def test_adaptive_procedure_converges():
 
 def test_adaptive_warns_when_not_converged():
     inputs = {"x1": stats.norm(0, 1), "x2": stats.norm(0, 1)}
-    with pytest.warns(RuntimeWarning, match=r"did not converge within max_trials=10000"):
+    with pytest.warns(RuntimeWarning, match=r"did not converge within max_samples=10000"):
         ds = propagate_adaptive(
-            LinearModel([1.0, 1.0]), inputs, rng=1, significant_digits=4, max_trials=10_000
+            LinearModel([1.0, 1.0]), inputs, rng=1, significant_digits=4, max_samples=10_000
         )
     assert ds.attrs["converged"] is False
 

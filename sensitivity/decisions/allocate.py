@@ -151,7 +151,7 @@ def allocate(
     max_iterations: int = 8,
     safety_margin: float = 1.0,
     max_loosen: float = 4.0,
-    rtol: float = 0.02,
+    convergence_tolerance: float = 0.02,
     progress: object = None,
 ) -> Allocation:
     """Find the tolerances that meet every requirement at least cost.
@@ -182,7 +182,7 @@ def allocate(
     max_loosen : float
         A smooth-cost tolerance may be loosened to at most this multiple of
         its present value (the linear model is not trusted far outside).
-    rtol : float
+    convergence_tolerance : float
         Refinement stops once every requirement passes and no binding bound
         would move by more than this fraction.
     progress : callable, optional
@@ -252,7 +252,11 @@ def allocate(
         tolerances = _tolerances(scenario, setup, solution)
         key = (
             solution.tier_index,
-            tuple(np.round(np.log(solution.smooth_tolerance) / math.log1p(rtol / 10)).astype(int)),
+            tuple(
+                np.round(
+                    np.log(solution.smooth_tolerance) / math.log1p(convergence_tolerance / 10)
+                ).astype(int)
+            ),
         )
         if key in seen:
             repeats += 1
@@ -277,7 +281,12 @@ def allocate(
         factors = np.array(
             [
                 min(
-                    max(c["factor"] if c["met"] else min(c["factor"], 1.0) * (1 - rtol / 2), 0.5),
+                    max(
+                        c["factor"]
+                        if c["met"]
+                        else min(c["factor"], 1.0) * (1 - convergence_tolerance / 2),
+                        0.5,
+                    ),
                     2.0,
                 )
                 for c in checks
@@ -285,7 +294,7 @@ def allocate(
         )
         used = solution.variance / np.where(np.isfinite(problem.budgets), problem.budgets, np.inf)
         active = used > 0.9
-        if passed and np.all(np.abs(np.log(factors[active])) < math.log1p(rtol)):
+        if passed and np.all(np.abs(np.log(factors[active])) < math.log1p(convergence_tolerance)):
             break
         for r, check in enumerate(checks):
             if check["met"] and not active[r]:

@@ -41,12 +41,12 @@ import xarray as xr
 from trapbudget.sensitivity.errors import ScenarioError
 from trapbudget.sensitivity.indices.givendata import first_order_given_data
 from trapbudget.sensitivity.indices.sobol import SobolResult, check_power_of_two, sobol_indices
-from trapbudget.sensitivity.protocol import evaluate_in_chunks
-from trapbudget.sensitivity.sampling import is_distribution, transform
+from trapbudget.sensitivity.protocol import evaluate_in_chunks, select_outputs, validity_counts
+from trapbudget.sensitivity.sampling import split_inputs, transform
 
-__all__ = ["DUMMY", "BudgetConvergenceWarning", "Method", "analyze_budget"]
+__all__ = ["DUMMY", "BudgetConvergenceWarning", "IndexMethod", "analyze_budget"]
 
-Method = Literal["sobol", "delta", "kucherenko"]
+IndexMethod = Literal["sobol", "delta", "kucherenko"]
 _METHODS = ("sobol", "delta", "kucherenko")
 DUMMY = "dummy"
 _FULL_FIRST_ORDER = "full first-order index Var(E[Y|Xi])/Var(Y), correlations included"
@@ -65,18 +65,8 @@ def _power_of_two(value: int, name: str) -> int:
 
 
 def _split_inputs(inputs: Mapping[str, Any]) -> tuple[dict[str, Any], dict[str, float]]:
-    uncertain, fixed = {}, {}
-    for name, value in inputs.items():
-        if is_distribution(value):
-            uncertain[name] = value
-        else:
-            try:
-                fixed[name] = float(value)
-            except (TypeError, ValueError):
-                raise ScenarioError(
-                    f"inputs[{name!r}]: {value!r} is neither a frozen scipy.stats "
-                    "distribution nor a number; give e.g. scipy.stats.norm(4e-3, 8e-5) or 4e-3"
-                ) from None
+    """Uncertain and fixed inputs of a ranking (at least one uncertain, no input named dummy)."""
+    uncertain, fixed = split_inputs(inputs)
     if not uncertain:
         raise ScenarioError("rank needs at least one uncertain input (a frozen distribution)")
     if DUMMY in uncertain:
@@ -111,18 +101,6 @@ def _normalise_groups(
     return out
 
 
-def _output_names(model, evaluated: Mapping[str, np.ndarray], outputs) -> list[str]:
-    if outputs is not None:
-        missing = [o for o in outputs if o not in evaluated]
-        if missing:
-            raise ScenarioError(
-                f"outputs {missing} are not outputs of the model; choose from "
-                f"{[k for k in evaluated if k != 'validity']}"
-            )
-        return list(outputs)
-    return [k for k in evaluated if k != "validity" and np.issubdtype(evaluated[k].dtype, float)]
-
-
 def _units(model, names: Sequence[str], kind: str) -> dict[str, str]:
     specs = getattr(model, kind, {}) or {}
     return {n: getattr(specs.get(n), "unit", "") if n in specs else "" for n in names}
@@ -131,14 +109,7 @@ def _units(model, names: Sequence[str], kind: str) -> dict[str, str]:
 def _validity_counts(model, validity: np.ndarray | None) -> dict[str, int]:
     if validity is None:
         return {}
-    validity = np.asarray(validity).astype(np.int64)
-    counts = {"any": int(np.count_nonzero(validity))}
-    flags = getattr(model, "validity_flags", None)
-    if flags is not None:
-        for flag in flags:
-            if int(flag):
-                counts[str(flag.name)] = int(np.count_nonzero(validity & int(flag)))
-    return counts
+    return {"any": int(np.count_nonzero(validity)), **validity_counts(model, validity)}
 
 
 class _Runner:
@@ -177,7 +148,7 @@ class _Runner:
         )
         result = {k: np.asarray(v) for k, v in result.items()}
         if self.outputs is None:
-            self.outputs = _output_names(self.model, result, self.requested)
+            self.outputs = select_outputs(self.model, result, self.requested)
         if "validity" in result:
             self.validity.append(result["validity"])
         self.n_evaluations += n

@@ -21,7 +21,7 @@ class _Options:
 
     dummy: bool
     convergence: bool
-    tolerance: float
+    convergence_tolerance: float
     max_samples: int
     confidence_level: float
     n_bootstrap: int
@@ -44,18 +44,23 @@ def _converge(step: Callable[[int], xr.Dataset], n_samples: int, opts: _Options)
     settles (Sarrazin, Pianosi & Wagener 2016) or the next step would pass
     ``opts.max_samples``.
     """
-    convergence, tolerance, max_samples = opts.convergence, opts.tolerance, opts.max_samples
+    convergence, convergence_tolerance, max_samples = (
+        opts.convergence,
+        opts.convergence_tolerance,
+        opts.max_samples,
+    )
     history = [step(n_samples)]
     n_total = n_samples
     converged = not convergence
     while convergence:
-        if len(history) >= 2 and _settled(history[-2], history[-1], tolerance):
+        if len(history) >= 2 and _settled(history[-2], history[-1], convergence_tolerance):
             converged = True
             break
         if 2 * n_total > max_samples:
             warnings.warn(
-                f"rank: the indices did not settle (interval width <= {tolerance} and a "
-                f"stable ranking) by n_samples = {n_total}; raise max_samples or tolerance",
+                f"rank: the indices did not settle (interval width <= "
+                f"{convergence_tolerance} and a stable ranking) by n_samples = {n_total}; "
+                "raise max_samples (--max-samples) or convergence_tolerance",
                 BudgetConvergenceWarning,
                 stacklevel=4,
             )
@@ -103,8 +108,8 @@ def _stable_ranking(previous: xr.Dataset, current: xr.Dataset) -> bool:
     return True
 
 
-def _settled(previous: xr.Dataset, current: xr.Dataset, tolerance: float) -> bool:
-    return _max_width(current) < tolerance and _stable_ranking(previous, current)
+def _settled(previous: xr.Dataset, current: xr.Dataset, convergence_tolerance: float) -> bool:
+    return _max_width(current) < convergence_tolerance and _stable_ranking(previous, current)
 
 
 def _add_history(ds: xr.Dataset, history: Sequence[xr.Dataset]) -> None:

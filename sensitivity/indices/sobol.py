@@ -16,6 +16,8 @@ import numpy as np
 from scipy import stats
 from scipy.stats import qmc
 
+from trapbudget.sensitivity.sampling import is_power_of_two
+
 __all__ = [
     "ConfidenceInterval",
     "Estimator",
@@ -26,7 +28,6 @@ __all__ = [
     "check_power_of_two",
     "cross_matrices",
     "design_from_base",
-    "is_power_of_two",
     "resample_weights",
     "saltelli_design",
     "sobol_indices",
@@ -47,14 +48,9 @@ class ConfidenceInterval(NamedTuple):
     high: np.ndarray
 
 
-def is_power_of_two(n: int) -> bool:
-    """True when ``n`` is a positive integer power of two (1, 2, 4, ...)."""
-    return isinstance(n, int | np.integer) and n > 0 and (int(n) & (int(n) - 1)) == 0
-
-
 def check_power_of_two(n_samples: int, *, name: str = "n_samples") -> int:
     """Return ``n_samples`` as int, or raise ValueError naming the nearest power of two."""
-    if not isinstance(n_samples, int | np.integer) or isinstance(n_samples, bool):
+    if not isinstance(n_samples, int | np.integer) or isinstance(n_samples, bool) or n_samples < 1:
         raise ValueError(f"{name} must be an integer power of 2; got {n_samples!r}")
     if not is_power_of_two(n_samples):
         suggestion = 1 << max(1, round(np.log2(max(int(n_samples), 1))))

@@ -33,7 +33,7 @@ class Settings:
         Use the JCGM 101 adaptive procedure for prediction.
     significant_digits : int
         n_dig for the adaptive procedure and the linear-vs-MC check.
-    max_trials : int
+    max_samples : int
         Cap for the adaptive procedure.
     chunk_size : int
         Samples per model call.
@@ -49,7 +49,7 @@ class Settings:
     seed: int | None = None
     adaptive: bool = False
     significant_digits: int = 2
-    max_trials: int = 1_000_000
+    max_samples: int = 1_000_000
     chunk_size: int = 65536
     n_bootstrap: int = 1000
     second_order: bool = False
@@ -62,7 +62,7 @@ class Settings:
         kinds = {
             "n_samples": int,
             "significant_digits": int,
-            "max_trials": int,
+            "max_samples": int,
             "chunk_size": int,
             "n_bootstrap": int,
             "confidence_level": float,
@@ -118,7 +118,7 @@ class Settings:
             raise ScenarioError(
                 f"seed {self.seed} must be a non-negative integer", path=path, key="settings.seed"
             )
-        for name in ("significant_digits", "max_trials", "chunk_size", "n_bootstrap"):
+        for name in ("significant_digits", "max_samples", "chunk_size", "n_bootstrap"):
             if getattr(self, name) < 1:
                 raise ScenarioError(
                     f"{getattr(self, name)} must be >= 1", path=path, key=f"settings.{name}"

@@ -34,6 +34,7 @@ from trapbudget.sensitivity.errors import ScenarioError
 __all__ = [
     "DISPLAY_UNITS",
     "did_you_mean",
+    "display_unit",
     "format_quantity",
     "parse_quantity",
     "parse_tolerance",
@@ -370,6 +371,22 @@ def _written_in_offset_unit(text: str | float | int) -> bool:
         return False
 
 
+def display_unit(unit: str, magnitude: float) -> str:
+    """The unit to show SI ``unit`` values of size ``magnitude`` in (:data:`DISPLAY_UNITS`).
+
+    ``"auto"`` entries pick the prefix by size (``2e-4 K`` -> ``uK``); a unit
+    without an entry is shown as it is.
+    """
+    display = DISPLAY_UNITS.get(unit, unit)
+    if display != "auto":
+        return display
+    if magnitude > 0 and math.isfinite(magnitude):
+        for name, scale in _AUTO_PREFIXES[unit]:
+            if magnitude < 1000 * scale:
+                return name
+    return _AUTO_PREFIXES[unit][-1][0]
+
+
 def format_quantity(value: float, unit: str, *, digits: int = 3) -> str:
     """Format an SI value in a readable unit for reports.
 
@@ -388,19 +405,9 @@ def format_quantity(value: float, unit: str, *, digits: int = 3) -> str:
     str
         E.g. ``"4 mW"``, ``"-12 MHz"``, ``"12 G/cm"``, ``"145 uK"``.
     """
-    display = DISPLAY_UNITS.get(unit)
-    if display is None:
+    display = display_unit(unit, abs(value))
+    if display == unit and unit not in DISPLAY_UNITS:
         text = f"{value:.{digits}g}"
         return f"{text} {unit}" if unit not in ("", "1") else text
-    if display == "auto":
-        display = unit
-        magnitude = abs(value)
-        if magnitude > 0 and math.isfinite(magnitude):
-            for name, scale in _AUTO_PREFIXES[unit]:
-                if magnitude < 1000 * scale:
-                    display = name
-                    break
-            else:
-                display = _AUTO_PREFIXES[unit][-1][0]
     shown = ureg.Quantity(value, _si_unit(unit)).to(display).magnitude
     return f"{shown:.{digits}g} {display}"
