@@ -23,7 +23,6 @@ from trapbudget.reports.render import (
     write_report,
 )
 from trapbudget.reports.results import prediction_json, study_json
-from trapbudget.reports.study import describe_study
 
 __all__ = [
     "Figure",
@@ -32,7 +31,6 @@ __all__ = [
     "Table",
     "Text",
     "build_sections",
-    "describe_study",
     "load_report",
     "prediction_json",
     "register_section",

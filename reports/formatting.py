@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import math
 
-from trapbudget.sensitivity.scenario.units import display_unit, ureg
+from trapbudget.sensitivity.scenario.units import display_unit, format_percent, ureg
 from trapbudget.sensitivity.scenario.units import format_quantity as engine_format_quantity
 
 __all__ = [
@@ -39,14 +39,6 @@ def format_index(value: float) -> str:
     """A sensitivity index to three decimals (indices are fractions of a variance)."""
     value = float(value)
     return "nan" if math.isnan(value) else f"{value:.3f}"
-
-
-def format_percent(fraction: float, *, digits: int = 1) -> str:
-    """A fraction as a percentage, e.g. 0.1234 -> '12.3 %'."""
-    fraction = float(fraction)
-    if math.isnan(fraction):
-        return "nan"
-    return f"{100 * fraction:.{digits}f} %"
 
 
 def format_quantity(value: float, unit: str, *, digits: int = 3) -> str:

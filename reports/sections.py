@@ -4,7 +4,7 @@ Each builder is ``builder(datasets, study) -> Section | None`` and returns None
 when the Datasets it needs are absent. ``datasets`` keys: ``samples``,
 ``summary``, ``linear``, ``linear_check``, ``budget``, ``requirements``
 (schemas in DEVELOPERS.md); ``study`` is the record of
-:func:`trapbudget.reports.study.describe_study`.
+:func:`trapbudget.sensitivity.study_record.describe_study`.
 """
 
 from __future__ import annotations

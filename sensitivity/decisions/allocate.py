@@ -24,6 +24,7 @@ where the model curves."""
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 
 import numpy as np
 
@@ -36,6 +37,7 @@ from trapbudget.sensitivity.decisions.linear_allocation import (
     uncertainty_bound,
 )
 from trapbudget.sensitivity.errors import ScenarioError
+from trapbudget.sensitivity.scenario.core import Scenario
 
 __all__ = ["allocate"]
 
@@ -142,17 +144,17 @@ def _label_of(req, index: int) -> str:
 
 
 def allocate(
-    scenario: object,
+    scenario: Scenario,
     *,
     n_samples: int | None = None,
-    rng: object = None,
+    rng: int | np.random.Generator | None = None,
     method: str | None = None,
     refine: bool = True,
     max_iterations: int = 8,
     safety_margin: float = 1.0,
     max_loosen: float = 4.0,
     convergence_tolerance: float = 0.02,
-    progress: object = None,
+    progress: Callable[[int, int], None] | None = None,
 ) -> Allocation:
     """Find the tolerances that meet every requirement at least cost.
 
@@ -227,10 +229,8 @@ def allocate(
         )
     labels = [_label_of(req, i) for i, req in enumerate(requirements)]
     setup = _linear_setup(scenario, requirements, labels)
-    settings = getattr(scenario, "settings", None)
-    n = int(n_samples if n_samples is not None else getattr(settings, "n_samples", 4096))
-    m = str(method if method is not None else getattr(settings, "method", "sobol"))
-    seed = rng if rng is not None else getattr(settings, "seed", None)
+    options = scenario.settings.resolve(n_samples=n_samples, method=method, rng=rng)
+    n, m, seed = options.n_samples, options.method, options.rng
     unit = unit_design(n, len(scenario.inputs), method=m, rng=seed)  # type: ignore[attr-defined]
 
     bounds = setup.bounds.astype(float).copy()

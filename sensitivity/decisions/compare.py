@@ -17,6 +17,8 @@ from collections.abc import Callable, Sequence
 import numpy as np
 import xarray as xr
 
+from trapbudget.sensitivity.scenario.core import Scenario
+
 __all__ = [
     "common_random_samples",
     "compare",
@@ -374,13 +376,9 @@ def compare_samples(
 # ---------------------------------------------------------------------------
 
 
-def _settings(scenario, n_samples, method, rng):
-    settings = getattr(scenario, "settings", None)
-    n = n_samples if n_samples is not None else getattr(settings, "n_samples", 4096)
-    m = method if method is not None else getattr(settings, "method", "sobol")
-    r = rng if rng is not None else getattr(settings, "seed", None)
-    level = getattr(settings, "confidence_level", 0.95)
-    return int(n), str(m), r, float(level)
+def _settings(scenario: Scenario, n_samples, method, rng):
+    options = scenario.settings.resolve(n_samples=n_samples, method=method, rng=rng)
+    return options.n_samples, options.method, options.rng, options.confidence_level
 
 
 def compare(

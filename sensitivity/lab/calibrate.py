@@ -27,6 +27,7 @@ from trapbudget.sensitivity.lab.calibration import (
 )
 from trapbudget.sensitivity.lab.datafiles import MeasurementSet, read_measurements
 from trapbudget.sensitivity.lab.observations import Observations, to_observations
+from trapbudget.sensitivity.scenario.core import Scenario
 
 __all__ = ["calibrate"]
 
@@ -53,7 +54,7 @@ def _as_observations(
     return Observations.concatenate(parts)
 
 
-def _species_mass(scenario: Any) -> float | None:
+def _species_mass(scenario: Scenario) -> float | None:
     name = getattr(scenario, "species", None)
     if not name:
         return None
@@ -67,7 +68,7 @@ def _species_mass(scenario: Any) -> float | None:
         return None
 
 
-def _free_constants(scenario: Any, model: Any, free: Sequence[str] | None) -> tuple[str, ...]:
+def _free_constants(scenario: Scenario, model: Any, free: Sequence[str] | None) -> tuple[str, ...]:
     if free is None:
         free = (getattr(scenario, "calibration", None) or {}).get("free")
     if not free:
@@ -94,7 +95,7 @@ def _free_constants(scenario: Any, model: Any, free: Sequence[str] | None) -> tu
 
 
 def calibrate(
-    scenario: Any,
+    scenario: Scenario,
     datasets: Any,
     *,
     free: Sequence[str] | None = None,

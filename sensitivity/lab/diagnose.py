@@ -56,6 +56,7 @@ from trapbudget.sensitivity.lab.driftlog import (
     _mapping_from,
     read_log,
 )
+from trapbudget.sensitivity.scenario.core import Scenario
 
 __all__ = ["Diagnosis", "diagnose"]
 
@@ -196,7 +197,7 @@ def _constants_covariance(scenario: Any, model: Any) -> tuple[list[str], np.ndar
 
 
 def diagnose(
-    scenario: Any,
+    scenario: Scenario,
     log: str | os.PathLike[str] | LogTable,
     *,
     reference: Any = "first-day",
@@ -419,7 +420,7 @@ def diagnose(
 
 
 def _calibration_variance(
-    scenario: Any,
+    scenario: Scenario,
     model: Any,
     base: Mapping[str, float],
     ref_point: Mapping[str, float],

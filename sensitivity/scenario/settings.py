@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
+import operator
 from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
@@ -14,7 +15,46 @@ from trapbudget.sensitivity.sampling import (
 )
 from trapbudget.sensitivity.scenario.tables import _INPUT_KEYS, _check_keys, _close, _table
 
-__all__ = ["Settings", "Upgrade"]
+__all__ = [
+    "DEFAULT_CHUNK_SIZE",
+    "DEFAULT_MAX_SAMPLES",
+    "DEFAULT_N_SAMPLES",
+    "RunOptions",
+    "Settings",
+    "Upgrade",
+    "draw_seed",
+]
+
+#: Monte Carlo size and Saltelli base size N when a scenario gives none.
+DEFAULT_N_SAMPLES = 4096
+#: Samples per model call (bounded memory).
+DEFAULT_CHUNK_SIZE = 65536
+#: Cap of the JCGM 101 adaptive Monte Carlo.
+DEFAULT_MAX_SAMPLES = 1_000_000
+
+
+def draw_seed() -> int:
+    """A fresh seed from the operating system's entropy, to be recorded with the results."""
+    import numpy as np
+
+    return int(np.random.SeedSequence().entropy % 2**32)
+
+
+@dataclass(frozen=True)
+class RunOptions:
+    """The sizes and seed a run uses, resolved once from arguments and a scenario's settings.
+
+    Every verb (``run_study``, ``allocate``, ``compare``) resolves its
+    options through :meth:`Settings.resolve`, so the defaults live in one place.
+    """
+
+    n_samples: int
+    method: str
+    seed: int | None
+    rng: Any
+    confidence_level: float
+    chunk_size: int
+    n_bootstrap: int
 
 
 @dataclass(frozen=True)
@@ -43,14 +83,14 @@ class Settings:
         Second-order Sobol' indices in ``rank``.
     """
 
-    n_samples: int = 4096
+    n_samples: int = DEFAULT_N_SAMPLES
     method: str = "sobol"
     confidence_level: float = 0.95
     seed: int | None = None
     adaptive: bool = False
     significant_digits: int = 2
-    max_samples: int = 1_000_000
-    chunk_size: int = 65536
+    max_samples: int = DEFAULT_MAX_SAMPLES
+    chunk_size: int = DEFAULT_CHUNK_SIZE
     n_bootstrap: int = 1000
     second_order: bool = False
 
@@ -85,6 +125,37 @@ class Settings:
         settings = cls(**values)
         settings.validate(path=path)
         return settings
+
+    def resolve(
+        self,
+        *,
+        n_samples: int | None = None,
+        method: str | None = None,
+        rng: Any = None,
+    ) -> RunOptions:
+        """Arguments given to a verb, else these settings; a seed is drawn when neither has one.
+
+        ``rng`` is an integer seed (recorded as ``seed``) or a numpy Generator
+        (used as given; ``seed`` is then None). ``rng=0`` is a seed.
+        """
+        given = self.seed if rng is None else rng
+        if isinstance(given, bool):
+            raise ScenarioError(f"rng={rng!r} is not a seed; give an integer, e.g. rng=1")
+        try:
+            seed = None if given is None else operator.index(given)
+        except TypeError:  # a Generator, SeedSequence or BitGenerator: used as given
+            seed = None
+        if given is None:
+            seed = draw_seed()
+        return RunOptions(
+            n_samples=int(self.n_samples if n_samples is None else n_samples),
+            method=str(self.method if method is None else method),
+            seed=seed,
+            rng=given if seed is None else seed,
+            confidence_level=float(self.confidence_level),
+            chunk_size=int(self.chunk_size),
+            n_bootstrap=int(self.n_bootstrap),
+        )
 
     def validate(self, *, path=None) -> None:
         """Raise ScenarioError for values that cannot run."""

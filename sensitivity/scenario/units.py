@@ -35,6 +35,7 @@ __all__ = [
     "DISPLAY_UNITS",
     "did_you_mean",
     "display_unit",
+    "format_percent",
     "format_quantity",
     "parse_quantity",
     "parse_tolerance",
@@ -369,6 +370,14 @@ def _written_in_offset_unit(text: str | float | int) -> bool:
         return str(ureg.parse_units(match.group(2))) in _OFFSET_TO_DELTA
     except (pint.errors.PintError, ValueError, AttributeError, TypeError):
         return False
+
+
+def format_percent(fraction: float, *, digits: int = 1) -> str:
+    """A fraction as a percentage, e.g. 0.1234 -> '12.3 %'."""
+    fraction = float(fraction)
+    if math.isnan(fraction):
+        return "nan"
+    return f"{100 * fraction:.{digits}f} %"
 
 
 def display_unit(unit: str, magnitude: float) -> str:

@@ -1,4 +1,4 @@
-"""What a study was: the plain, JSON-serialisable record a report shows about its scenario.
+"""What a study was: the plain, JSON-serialisable record of its scenario, saved beside its results.
 
 :func:`describe_study` reads a Scenario's attributes (it never runs the model)
 and returns a dict that is saved as ``study.json`` beside the Datasets, so a
@@ -14,39 +14,10 @@ from typing import Any
 
 import numpy as np
 
-from trapbudget.reports.formatting import format_percent, format_quantity
+from trapbudget.sensitivity.scenario.core import Scenario
+from trapbudget.sensitivity.scenario.units import format_percent, format_quantity
 
-__all__ = ["MODEL_ASSUMPTIONS", "describe_study", "trapbudget_version"]
-
-#: Assumptions and limits stated in the report, per model name, when the model
-#: object carries no ``assumptions`` attribute of its own.
-MODEL_ASSUMPTIONS: dict[str, list[str]] = {
-    "VaporCellMOT": [
-        "Three retro-reflected Gaussian beam pairs; the scattering force of each beam is "
-        "that of a "
-        "two-level atom on the cycling transition, saturation shared between beams (no "
-        "interference, no polarisation gradients in the force).",
-        "Capture velocity from the critical trajectory through the beam overlap region in one "
-        "dimension; atoms faster than it are lost, slower ones are captured (no partial capture).",
-        "Loading rate from kinetic theory of a thermal vapor at the cell temperature; "
-        "the prefactor "
-        "is a calibratable constant, so absolute atom numbers are only as good as its "
-        "calibration.",
-        "Losses: hot alkali and background-gas collisions (rates proportional to density and "
-        "pressure) and light-assisted two-body loss; steady state of the rate equation.",
-        "Cloud size temperature-limited or, above the density limit, density-limited "
-        "(reradiation); temperature Doppler plus an optional calibrated sub-Doppler term.",
-        "Repumping as a bright fraction from repump and leak rates; fluorescence from "
-        "the detected "
-        "solid angle and efficiency.",
-        "Outside its validity (no power, blue detuning, no gradient, no capture) the "
-        "model returns "
-        "its honest limit (no atoms) and flags the sample; such samples are counted in "
-        "the report.",
-        "Tolerances are treated as independent unless correlated in the scenario; Sobol' indices "
-        "assume independent inputs (with correlations the budget uses given-data methods).",
-    ],
-}
+__all__ = ["describe_study", "trapbudget_version"]
 
 
 def trapbudget_version() -> str:
@@ -76,7 +47,7 @@ def _float(value: Any) -> float:
         return math.nan
 
 
-def _input_rows(scenario: Any) -> list[dict[str, Any]]:
+def _input_rows(scenario: Scenario) -> list[dict[str, Any]]:
     model = scenario.model
     tolerances: Mapping[str, Any] = getattr(scenario, "tolerances", {}) or {}
     groups = getattr(scenario, "groups", {}) or {}
@@ -111,7 +82,7 @@ def _input_rows(scenario: Any) -> list[dict[str, Any]]:
     return rows
 
 
-def _fixed_rows(scenario: Any) -> list[dict[str, Any]]:
+def _fixed_rows(scenario: Scenario) -> list[dict[str, Any]]:
     model = scenario.model
     rows = []
     for name, value in scenario.nominal.items():
@@ -130,7 +101,7 @@ def _fixed_rows(scenario: Any) -> list[dict[str, Any]]:
     return rows
 
 
-def _default_rows(scenario: Any) -> list[dict[str, Any]]:
+def _default_rows(scenario: Scenario) -> list[dict[str, Any]]:
     """Model inputs the scenario leaves at their defaults (constants flagged)."""
     specs = getattr(scenario.model, "inputs", {}) or {}
     rows = []
@@ -152,7 +123,7 @@ def _default_rows(scenario: Any) -> list[dict[str, Any]]:
     return rows
 
 
-def _correlation_rows(scenario: Any) -> list[dict[str, Any]]:
+def _correlation_rows(scenario: Scenario) -> list[dict[str, Any]]:
     matrix = getattr(scenario, "correlation", None)
     if matrix is None:
         return []
@@ -175,7 +146,7 @@ def _limit_text(limit: Any, unit: str, kind: str) -> str:
     return format_quantity(_float(limit), unit)
 
 
-def _requirement_rows(scenario: Any) -> list[dict[str, Any]]:
+def _requirement_rows(scenario: Scenario) -> list[dict[str, Any]]:
     outputs = getattr(scenario.model, "outputs", {}) or {}
     rows = []
     for req in getattr(scenario, "requirements", ()) or ():
@@ -193,18 +164,17 @@ def _requirement_rows(scenario: Any) -> list[dict[str, Any]]:
     return rows
 
 
-def _assumptions(scenario: Any) -> list[str]:
+def _assumptions(scenario: Scenario) -> list[str]:
     model = scenario.model
     for obj in (model, getattr(model, "base", None)):
         found = getattr(obj, "assumptions", None)
         if found:
             return [str(a) for a in found]
-    name = str(getattr(scenario, "model_name", "") or "")
-    return list(MODEL_ASSUMPTIONS.get(name, []))
+    return []
 
 
 def describe_study(
-    scenario: Any,
+    scenario: Scenario,
     *,
     seed: int | None,
     n_samples: int,

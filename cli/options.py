@@ -1,0 +1,121 @@
+"""The options shared by the subcommands, and the parser that turns usage errors into one line."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from trapbudget.sensitivity.errors import UsageError
+
+__all__ = [
+    "DEFAULT_DEMO_DIR",
+    "DEFAULT_REPORT_ROOT",
+    "DEMO_SCENARIO",
+    "PROG",
+    "add_common_options",
+    "add_max_samples_option",
+    "add_samples_option",
+]
+
+PROG = "trapbudget"
+#: Parent folder of reports written without ``--out`` (not ``./reports/``, a source folder).
+DEFAULT_REPORT_ROOT = Path("trapbudget-reports")
+#: Folder the demo writes its files to without ``--out``.
+DEFAULT_DEMO_DIR = Path("trapbudget-demo")
+#: The demo scenario ``trapbudget demo`` runs.
+DEMO_SCENARIO = "harrier-rb87.toml"
+#: The demo's convergence loop may grow the base size N this many times (keeps it short).
+
+
+# --------------------------------------------------------------------------- parsing
+
+
+class _Parser(argparse.ArgumentParser):
+    """An ArgumentParser whose usage errors raise :class:`UsageError` instead of exiting."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        raise UsageError(f"{self.prog}: {message}; see '{self.prog} --help'")
+
+
+def _positive_power_of_two(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not an integer; use e.g. 1024") from None
+    if value < 2 or value & (value - 1):
+        low = 1 << max(1, value.bit_length() - 1) if value > 1 else 2
+        hint = low if value - low <= 2 * low - value else 2 * low
+        raise argparse.ArgumentTypeError(
+            f"{text!r} is not a power of 2 (Sobol' designs need n = 2^m); use {hint}"
+        )
+    return value
+
+
+def _seed(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not an integer seed") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"{text!r} is negative; seeds are integers >= 0")
+    return value
+
+
+def add_common_options(
+    parser: argparse.ArgumentParser, *, out: bool = True, seed: bool = True
+) -> None:
+    """Add the flags shared by every computing subcommand.
+
+    ``--json`` (machine-readable result on stdout, nothing else there),
+    ``--quiet`` (no progress bar, no tables), ``--seed S`` (overrides the
+    scenario's seed) and, with ``out=True``, ``--out DIR``.
+    """
+    parser.add_argument(
+        "--json", action="store_true", help="print the result as JSON on stdout (nothing else)"
+    )
+    parser.add_argument("--quiet", action="store_true", help="no progress bar and no tables")
+    if seed:
+        parser.add_argument(
+            "--seed", type=_seed, default=None, help="random seed (default: the scenario's)"
+        )
+    if out:
+        parser.add_argument(
+            "--out",
+            type=Path,
+            default=None,
+            metavar="DIR",
+            help=f"folder to write to (default: a new folder under ./{DEFAULT_REPORT_ROOT}/)",
+        )
+
+
+def add_samples_option(parser: argparse.ArgumentParser) -> None:
+    """Add ``--samples N`` (a power of 2; default: the scenario's ``settings.n_samples``)."""
+    parser.add_argument(
+        "--samples",
+        type=_positive_power_of_two,
+        default=None,
+        metavar="N",
+        help="sample size: Monte Carlo n and Saltelli base N (power of 2; default: scenario's)",
+    )
+
+
+def add_max_samples_option(parser: argparse.ArgumentParser) -> None:
+    """Add ``--max-samples N``: the largest base size the convergence loop may reach."""
+    parser.add_argument(
+        "--max-samples",
+        type=_positive_power_of_two,
+        default=None,
+        metavar="N",
+        help="largest base size the convergence loop may reach (power of 2; default "
+        "16 N, the engine's default)",
+    )
+
+
+def _positive_rate(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number; use e.g. 0.5") from None
+    if not value > 0:
+        raise argparse.ArgumentTypeError(f"{text!r} must be a positive rate in Hz")
+    return value

@@ -1,0 +1,257 @@
+"""The subcommands of a study: ``predict``, ``rank``, ``report``, ``species`` and ``demo``."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from importlib import resources
+from pathlib import Path
+from typing import Any
+
+from trapbudget.cli.options import (
+    DEFAULT_DEMO_DIR,
+    DEMO_SCENARIO,
+    PROG,
+    add_common_options,
+    add_max_samples_option,
+    add_samples_option,
+)
+from trapbudget.cli.output import (
+    emit_json,
+    load,
+    progress_reporter,
+    report_dir,
+    stage_progress,
+    stdout_console,
+)
+from trapbudget.sensitivity.errors import UsageError
+
+__all__ = ["add_demo", "add_predict", "add_rank", "add_report", "add_species"]
+
+
+def add_predict(subparsers: argparse._SubParsersAction) -> None:
+    p = subparsers.add_parser(
+        "predict",
+        help="nominal outputs with first-order (linear, GUM) uncertainties",
+        description="Nominal outputs of the scenario's model with first-order (GUM, JCGM 100) "
+        "standard uncertainties and the largest contributions. Takes seconds.",
+    )
+    p.add_argument("scenario", type=Path, help="scenario TOML file")
+    add_common_options(p, out=False, seed=False)
+    p.set_defaults(run=_run_predict)
+
+
+def add_rank(subparsers: argparse._SubParsersAction) -> None:
+    p = subparsers.add_parser(
+        "rank",
+        help="full study: Monte Carlo, linear check, ranked error budget and report",
+        description="Propagate the tolerances by Monte Carlo, check the linear (GUM) result, "
+        "rank the drifts by Sobol' indices (convergence loop on by default) and write a report.",
+    )
+    p.add_argument("scenario", type=Path, nargs="?", help="scenario TOML file")
+    p.add_argument(
+        "--from",
+        dest="from_dir",
+        type=Path,
+        default=None,
+        metavar="DIR",
+        help="re-render the report saved in DIR instead of running (same as 'report DIR')",
+    )
+    add_samples_option(p)
+    add_max_samples_option(p)
+    p.add_argument(
+        "--no-convergence",
+        dest="convergence",
+        action="store_false",
+        help="one pass at N instead of doubling N until the indices settle",
+    )
+    p.add_argument(
+        "--second-order", action="store_true", help="also estimate pairwise interactions"
+    )
+    add_common_options(p)
+    p.set_defaults(run=_run_rank)
+
+
+def add_report(subparsers: argparse._SubParsersAction) -> None:
+    p = subparsers.add_parser(
+        "report",
+        help="re-render a saved report from its NetCDF Datasets",
+        description="Re-render report.html and report.md in DIR from the Datasets saved there, "
+        "without running the model.",
+    )
+    p.add_argument("dir", type=Path, metavar="DIR", help="a folder written by 'trapbudget rank'")
+    add_common_options(p, out=False, seed=False)
+    p.set_defaults(run=_run_report)
+
+
+def add_species(subparsers: argparse._SubParsersAction) -> None:
+    p = subparsers.add_parser(
+        "species",
+        help="the atomic data table with sources",
+        description="Atomic data of every species the models know, with the source of each value.",
+    )
+    add_common_options(p, out=False, seed=False)
+    p.set_defaults(run=_run_species)
+
+
+def add_demo(subparsers: argparse._SubParsersAction) -> None:
+    p = subparsers.add_parser(
+        "demo",
+        help="write the invented demo lab's scenarios and run 'rank' on the Rb-87 one",
+        description="Write the demo scenario files (an invented lab and apparatus) into a folder, "
+        f"overwriting files of the same name, and run 'rank' on {DEMO_SCENARIO}.",
+    )
+    add_samples_option(p)
+    add_max_samples_option(p)
+    add_common_options(p)
+    p.set_defaults(run=_run_demo)
+
+
+# --------------------------------------------------------------------------- subcommands
+
+
+def _run_predict(args: argparse.Namespace) -> int:
+    from trapbudget.reports.results import prediction_json
+    from trapbudget.reports.terminal import prediction_table
+    from trapbudget.sensitivity.linear import linear_propagation
+
+    scenario = load(args.scenario)
+    linear = linear_propagation(
+        scenario.model,
+        scenario.inputs,
+        nominal=scenario.nominal,
+        correlation=scenario.correlation,
+        outputs=list(scenario.outputs),
+    )
+    if args.json:
+        emit_json(prediction_json(linear, title=scenario.title))
+        return 0
+    console = stdout_console(args)
+    if console is not None:
+        console.print(prediction_table(linear, title=scenario.title))
+    return 0
+
+
+def _run_rank(args: argparse.Namespace) -> int:
+    if args.from_dir is not None:
+        if args.scenario is not None:
+            raise UsageError(f"{PROG} rank: give either SCENARIO or --from DIR, not both")
+        return _rerender(args.from_dir, args)
+    if args.scenario is None:
+        raise UsageError(f"{PROG} rank: give a SCENARIO file (or --from DIR)")
+    scenario = load(args.scenario)
+    return _rank_and_report(scenario, args, stem=Path(args.scenario).stem)
+
+
+def _rank_and_report(scenario: Any, args: argparse.Namespace, *, stem: str) -> int:
+    from trapbudget.reports.render import write_report
+    from trapbudget.reports.results import study_json
+    from trapbudget.reports.terminal import budget_tables
+    from trapbudget.sensitivity.study import run_study
+
+    n = args.samples if args.samples is not None else scenario.settings.n_samples
+    if args.max_samples is not None and args.max_samples < n:
+        raise UsageError(
+            f"{PROG}: --max-samples {args.max_samples} is below the sample size {n}; "
+            f"give at least {n}"
+        )
+    out = report_dir(args, stem)
+    with progress_reporter(args) as task:
+        study = run_study(
+            scenario,
+            n_samples=args.samples,
+            rng=args.seed,
+            convergence=args.convergence,
+            max_samples=args.max_samples,
+            second_order=args.second_order or None,
+            progress=stage_progress(task),
+        )
+    datasets, record = dict(study.datasets), dict(study.record)
+    result = study_json(datasets, record)
+    written = write_report(
+        out, datasets=datasets, study=record, result=result, scenario_file=scenario.source
+    )
+    if args.json:
+        emit_json({**result, "report": str(written)})
+        return 0
+    console = stdout_console(args)
+    if console is not None:
+        for table in budget_tables(datasets["summary"], datasets["budget"]):
+            console.print(table)
+        console.print(f"Report: {written / 'report.html'}")
+    else:
+        print(f"Report: {written / 'report.html'}", file=sys.stderr)
+    return 0
+
+
+def _rerender(folder: Path, args: argparse.Namespace) -> int:
+    from trapbudget.reports.render import rerender_report
+    from trapbudget.reports.results import study_json
+    from trapbudget.reports.terminal import budget_tables
+
+    datasets, study, written = rerender_report(folder)
+    ranked = "summary" in datasets and "budget" in datasets
+    if args.json:
+        if ranked:
+            result = study_json(datasets, study)
+        else:  # a folder of another subcommand: its saved result
+            saved = Path(folder) / "result.json"
+            result = json.loads(saved.read_text(encoding="utf-8")) if saved.is_file() else {}
+        emit_json({**result, "report": str(written)})
+        return 0
+    console = stdout_console(args)
+    if console is not None:
+        if ranked:
+            for table in budget_tables(datasets["summary"], datasets["budget"]):
+                console.print(table)
+        console.print(f"Report: {written / 'report.html'}")
+    return 0
+
+
+def _run_report(args: argparse.Namespace) -> int:
+    return _rerender(args.dir, args)
+
+
+def _run_species(args: argparse.Namespace) -> int:
+    from trapbudget.models.species import species_table
+
+    rows = species_table()
+    if args.json:
+        emit_json(rows)
+        return 0
+    console = stdout_console(args)
+    if console is not None:
+        from trapbudget.reports.terminal import species_rich_table
+
+        console.print(species_rich_table(rows))
+    return 0
+
+
+def _demo_files() -> list[Any]:
+    package = resources.files("trapbudget.examples")
+    return sorted(
+        (
+            f
+            for f in package.iterdir()
+            if f.is_file() and f.name.endswith((".toml", ".csv", ".md"))
+        ),
+        key=lambda f: f.name,
+    )
+
+
+def _run_demo(args: argparse.Namespace) -> int:
+    from trapbudget.sensitivity.io import atomic_write_bytes
+
+    folder = Path(args.out) if args.out is not None else DEFAULT_DEMO_DIR
+    if folder.exists() and not folder.is_dir():
+        raise UsageError(f"{PROG} demo: --out {folder} is a file; give a folder")
+    for item in _demo_files():
+        atomic_write_bytes(folder / item.name, item.read_bytes())
+    if not args.quiet and not args.json:
+        print(f"Demo files (invented lab) written to {folder}/", file=sys.stderr)
+    scenario = load(folder / DEMO_SCENARIO)
+    args.convergence = True
+    args.second_order = False
+    args.out = folder / f"report-{Path(DEMO_SCENARIO).stem}"
+    return _rank_and_report(scenario, args, stem=Path(DEMO_SCENARIO).stem)
