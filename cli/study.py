@@ -214,7 +214,7 @@ def _run_report(args: argparse.Namespace) -> int:
 
 
 def _run_species(args: argparse.Namespace) -> int:
-    from trapbudget.models.species import species_table
+    from trapbudget.models.catalog import species_table
 
     rows = species_table()
     if args.json:

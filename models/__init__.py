@@ -7,8 +7,9 @@ published formulas it is built from, each usable on its own.
 
 from trapbudget.models import capture, cooling, field, light, mot, vapor
 from trapbudget.models import species as species_data
+from trapbudget.models.catalog import species, species_table
 from trapbudget.models.protocol import InputSpec, ModelError, OutputSpec
-from trapbudget.models.species import SPECIES, Species, VaporPressure, species, species_table
+from trapbudget.models.species import SPECIES, Species, VaporPressure
 from trapbudget.models.trap import Validity, VaporCellMOT
 
 __all__ = [

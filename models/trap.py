@@ -29,9 +29,9 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from trapbudget.models import capture, cooling, field, light, mot, vapor
+from trapbudget.models.catalog import species as lookup_species
 from trapbudget.models.protocol import InputSpec, ModelError, OutputSpec
 from trapbudget.models.species import Species
-from trapbudget.models.species import species as lookup_species
 
 __all__ = ["Validity", "VaporCellMOT"]
 

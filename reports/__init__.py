@@ -9,15 +9,11 @@ Markdown; :func:`write_report` writes a whole report folder atomically and
 matplotlib and rich.
 """
 
+from trapbudget.reports.blocks import Figure, Section, Table, Text, register_section
 from trapbudget.reports.render import (
-    Figure,
     RenderedReport,
-    Section,
-    Table,
-    Text,
     build_sections,
     load_report,
-    register_section,
     render_report,
     rerender_report,
     write_report,

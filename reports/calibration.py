@@ -20,9 +20,9 @@ import matplotlib.pyplot as plt
 import numpy as np
 import xarray as xr
 
+from trapbudget.reports.blocks import Figure, Section, Table, Text, register_section
 from trapbudget.reports.figures import BLUE, FIGURE_STYLE, GREY, ORANGE, figure_png
 from trapbudget.reports.formatting import format_number, format_percent, format_quantity
-from trapbudget.reports.render import Figure, Section, Table, Text, register_section
 
 __all__ = ["calibration_json", "calibration_section", "constant_rows", "residual_figure"]
 

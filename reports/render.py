@@ -14,18 +14,16 @@ generic templates render, or names its own template pair
 
 The HTML is self-contained (inline CSS, figures as base64 PNG) and autoescaped;
 the Markdown sits beside ``figures/*.png``. Folders are built in a temporary
-folder and moved into place.
-"""
+folder and moved into place."""
 
 from __future__ import annotations
 
 import base64
 import os
-import re
 import shutil
 import tempfile
-from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass, field
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -33,6 +31,13 @@ import jinja2
 import xarray as xr
 from markupsafe import Markup
 
+from trapbudget.reports.blocks import (
+    SECTION_BUILDERS,
+    Figure,
+    Section,
+    Table,
+    Text,
+)
 from trapbudget.sensitivity.errors import UsageError
 from trapbudget.sensitivity.io import (
     atomic_write_bytes,
@@ -44,16 +49,10 @@ from trapbudget.sensitivity.io import (
 
 __all__ = [
     "DATASET_NAMES",
-    "SECTION_BUILDERS",
-    "Figure",
     "RenderedReport",
-    "Section",
-    "Table",
-    "Text",
     "build_sections",
     "import_section_modules",
     "load_report",
-    "register_section",
     "render_report",
     "rerender_report",
     "write_report",
@@ -70,67 +69,6 @@ DATASET_NAMES: tuple[str, ...] = (
 )
 
 
-@dataclass(frozen=True)
-class Text:
-    """A paragraph of plain text (escaped on output). ``kind``: 'p', 'note' or 'caution'."""
-
-    text: str
-    kind: str = "p"
-
-
-@dataclass(frozen=True)
-class Table:
-    """A table of already formatted cells; ``numeric[i]`` right-aligns column i."""
-
-    columns: Sequence[str]
-    rows: Sequence[Sequence[str]]
-    caption: str = ""
-    numeric: Sequence[bool] | None = None
-
-    def align(self, i: int) -> str:
-        return "right" if self.numeric is not None and self.numeric[i] else "left"
-
-
-@dataclass(frozen=True)
-class Figure:
-    """A PNG figure; ``name`` is its file stem in ``figures/``."""
-
-    name: str
-    png: bytes
-    caption: str = ""
-
-
-@dataclass
-class Section:
-    """One report section: a title and blocks, or its own template with a context."""
-
-    title: str
-    blocks: list[Text | Table | Figure] = field(default_factory=list)
-    template: str | None = None
-    context: dict[str, Any] = field(default_factory=dict)
-    figures: list[Figure] = field(default_factory=list)
-
-    @property
-    def anchor(self) -> str:
-        return re.sub(r"[^a-z0-9]+", "-", self.title.lower()).strip("-") or "section"
-
-    def all_figures(self) -> list[Figure]:
-        return [b for b in self.blocks if isinstance(b, Figure)] + list(self.figures)
-
-
-SectionBuilder = Callable[[Mapping[str, xr.Dataset], Mapping[str, Any]], "Section | None"]
-
-#: Builders of the sections that come after the core ones and before the closing ones.
-SECTION_BUILDERS: list[SectionBuilder] = []
-
-
-def register_section(builder: SectionBuilder) -> SectionBuilder:
-    """Register ``builder(datasets, study) -> Section | None``; usable as a decorator."""
-    if builder not in SECTION_BUILDERS:
-        SECTION_BUILDERS.append(builder)
-    return builder
-
-
 def build_sections(
     datasets: Mapping[str, xr.Dataset],
     study: Mapping[str, Any],
@@ -138,7 +76,7 @@ def build_sections(
     extra_sections: Sequence[Section] = (),
 ) -> list[Section]:
     """Core sections, registered ones, ``extra_sections``, then assumptions and cautions."""
-    from trapbudget.reports import sections as core
+    from trapbudget.reports import checks as core
 
     built: list[Section | None] = [b(datasets, study) for b in core.CORE_BUILDERS]
     built += [b(datasets, study) for b in SECTION_BUILDERS]
@@ -334,10 +272,8 @@ def import_section_modules() -> None:
     import importlib
     import pkgutil
 
-    import trapbudget.reports as package
-
-    for info in pkgutil.iter_modules(package.__path__):
-        importlib.import_module(f"{package.__name__}.{info.name}")
+    for info in pkgutil.iter_modules([str(Path(__file__).parent)]):
+        importlib.import_module(f"{__package__}.{info.name}")
 
 
 def rerender_report(

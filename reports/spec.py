@@ -21,9 +21,9 @@ import matplotlib.pyplot as plt
 import numpy as np
 import xarray as xr
 
+from trapbudget.reports.blocks import Figure, Section, Table, Text, register_section
 from trapbudget.reports.figures import BLUE, FIGURE_STYLE, GREY, ORANGE, figure_png
 from trapbudget.reports.formatting import format_number, format_percent, format_quantity
-from trapbudget.reports.render import Figure, Section, Table, Text, register_section
 from trapbudget.reports.results import dim_records, plain_value
 
 __all__ = [

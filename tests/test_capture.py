@@ -17,9 +17,9 @@ from trapbudget.models.capture import (
     mirrored_path,
     scattering_acceleration,
 )
+from trapbudget.models.catalog import species
 from trapbudget.models.cooling import damping_coefficient, spring_constant
 from trapbudget.models.light import peak_intensity
-from trapbudget.models.species import species
 
 RB = species("Rb87")
 CS = species("Cs133")

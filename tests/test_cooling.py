@@ -10,6 +10,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import constants, optimize
 
+from trapbudget.models.catalog import species
 from trapbudget.models.cooling import (
     damping_coefficient,
     doppler_temperature,
@@ -18,7 +19,6 @@ from trapbudget.models.cooling import (
     temperature,
 )
 from trapbudget.models.light import scattering_rate
-from trapbudget.models.species import species
 
 HBAR, KB = constants.hbar, constants.k
 MU_B = constants.physical_constants["Bohr magneton"][0]

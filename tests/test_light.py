@@ -10,6 +10,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import constants, integrate, optimize
 
+from trapbudget.models.catalog import species
 from trapbudget.models.light import (
     beam_intensity,
     clipped_fraction,
@@ -18,7 +19,6 @@ from trapbudget.models.light import (
     saturation_parameter,
     scattering_rate,
 )
-from trapbudget.models.species import species
 
 RB = species("Rb87")
 

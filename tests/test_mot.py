@@ -9,6 +9,7 @@ import pytest
 from scipy import constants, integrate, linalg, stats
 from scipy.optimize import brentq
 
+from trapbudget.models.catalog import species
 from trapbudget.models.mot import (
     LOADING_FRACTION,
     bright_fraction,
@@ -23,7 +24,6 @@ from trapbudget.models.mot import (
     two_body_loss_rate,
     vapor_loss_rate,
 )
-from trapbudget.models.species import species
 from trapbudget.models.vapor import most_probable_speed
 
 RB = species("Rb87")

@@ -12,18 +12,9 @@ import pytest
 import xarray as xr
 
 from trapbudget.reports import figures
+from trapbudget.reports.blocks import SECTION_BUILDERS, Section, Table, Text, register_section
 from trapbudget.reports.formatting import format_number, format_quantity
-from trapbudget.reports.render import (
-    SECTION_BUILDERS,
-    Section,
-    Table,
-    Text,
-    load_report,
-    register_section,
-    render_report,
-    rerender_report,
-    write_report,
-)
+from trapbudget.reports.render import load_report, render_report, rerender_report, write_report
 from trapbudget.reports.results import study_json
 from trapbudget.reports.sections import budget_rows
 

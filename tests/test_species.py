@@ -12,7 +12,8 @@ from hypothesis import strategies as st
 from scipy import constants
 
 from trapbudget.models import ModelError
-from trapbudget.models.species import SPECIES, Species, VaporPressure, species, species_table
+from trapbudget.models.catalog import species, species_table
+from trapbudget.models.species import SPECIES, Species, VaporPressure
 
 HBAR, C, KB = constants.hbar, constants.c, constants.k
 MU_B = constants.physical_constants["Bohr magneton"][0]

@@ -10,7 +10,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import constants, integrate, optimize, stats
 
-from trapbudget.models.species import SPECIES, species
+from trapbudget.models.catalog import species
+from trapbudget.models.species import SPECIES
 from trapbudget.models.vapor import (
     ARPORNTHIP_COEFFICIENT,
     background_loss_rate,

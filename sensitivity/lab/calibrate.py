@@ -59,7 +59,7 @@ def _species_mass(scenario: Scenario) -> float | None:
     if not name:
         return None
     try:
-        from trapbudget.models.species import species
+        from trapbudget.models.catalog import species
     except ImportError:  # pragma: no cover
         return None
     try:
