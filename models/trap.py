@@ -30,7 +30,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from trapbudget.models import capture, cooling, field, light, mot, vapor
 from trapbudget.models.catalog import species as lookup_species
-from trapbudget.models.protocol import InputSpec, ModelError, OutputSpec
+from trapbudget.models.protocol import InputSpec, ModelError, OutputSpec, values_in_si
 from trapbudget.models.species import Species
 
 __all__ = ["Validity", "VaporCellMOT"]
@@ -400,8 +400,9 @@ class VaporCellMOT:
         Parameters
         ----------
         values : mapping
-            Input name -> array_like in SI units; missing inputs take their
-            defaults.
+            Input name -> array_like in SI units, or a pint Quantity (converted
+            to the input's unit, or refused if its dimension is wrong); missing
+            inputs take their defaults.
 
         Returns
         -------
@@ -420,6 +421,7 @@ class VaporCellMOT:
                 f"VaporCellMOT: unknown input {unknown[0]!r}; valid inputs: "
                 + ", ".join(self.inputs)
             )
+        values = values_in_si(values, self.inputs)
         arrays = {
             name: np.asarray(values.get(name, spec.default), dtype=float)
             for name, spec in self.inputs.items()

@@ -138,7 +138,7 @@ def linear_propagation(
         ``coverage_factor``, ``units_<output>``, ``units_<input>``.
     """
     model = as_model(model, input_names=inputs)
-    uncertain, fixed = split_inputs(inputs)
+    uncertain, fixed = split_inputs(inputs, model)
     names = list(uncertain)
     u = np.array([float(dist.std()) for dist in uncertain.values()])
     x0 = {k: float(dist.mean()) for k, dist in uncertain.items()}

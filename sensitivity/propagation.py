@@ -60,7 +60,6 @@ def _seed_attr(rng: Any) -> int | None:
 
 
 def _split_inputs(model: Any, inputs: Mapping[str, Any]):
-    uncertain, fixed = split_inputs(inputs)
     unknown = [name for name in inputs if name not in model.inputs]
     if unknown:
         raise ScenarioError(
@@ -68,7 +67,7 @@ def _split_inputs(model: Any, inputs: Mapping[str, Any]):
             f"{', '.join(model.inputs)}",
             key=f"inputs.{unknown[0]}",
         )
-    return uncertain, fixed
+    return split_inputs(inputs, model)
 
 
 def _evaluate(model, columns, *, n_samples, chunk_size, progress):

@@ -184,7 +184,7 @@ def rank(
         )
     n_samples = _power_of_two(n_samples, "n_samples")
     model = as_model(model, input_names=list(inputs))
-    uncertain, fixed = _split_inputs(inputs)
+    uncertain, fixed = _split_inputs(inputs, model)
     names = list(uncertain)
     group_map = _normalise_groups(groups, names)
     generator = np.random.default_rng(rng)

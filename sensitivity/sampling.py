@@ -33,6 +33,7 @@ from numpy.typing import ArrayLike
 from scipy import special, stats
 from scipy.stats import qmc
 
+from trapbudget.models.protocol import ModelError, is_quantity, to_si
 from trapbudget.sensitivity.errors import ScenarioError
 
 __all__ = [
@@ -344,20 +345,40 @@ def sample_inputs(
     return {name: values[:, j] for j, name in enumerate(uncertain)}
 
 
-def split_inputs(inputs: Mapping[str, Any]) -> tuple[dict[str, Any], dict[str, float]]:
+def split_inputs(
+    inputs: Mapping[str, Any], model: Any = None
+) -> tuple[dict[str, Any], dict[str, float]]:
     """Split ``inputs`` into (name -> distribution, name -> fixed float).
+
+    A fixed value may be a pint Quantity when ``model`` is given: it is
+    converted to the model input's SI unit (or refused for a wrong dimension).
+    Distributions are in SI (scipy.stats carries no units).
 
     Raises
     ------
     ScenarioError
-        For a value that is neither a frozen distribution nor a number.
+        For a value that is neither a frozen distribution nor a number, or a
+        Quantity of the wrong dimension.
     """
+    specs = getattr(model, "inputs", None) or {}
     uncertain: dict[str, Any] = {}
     fixed: dict[str, float] = {}
     for name, value in inputs.items():
         if is_distribution(value):
             uncertain[name] = value
             continue
+        if is_quantity(value):
+            if name not in specs:
+                raise ScenarioError(
+                    f"{value!r} carries units, but the model declares no unit for this "
+                    "input; give the number in SI",
+                    key=f"inputs.{name}",
+                )
+            try:
+                value = to_si(name, value, specs[name].unit)
+            except ModelError as error:
+                message = str(error).removeprefix(f"input {name!r}: ")
+                raise ScenarioError(message, key=f"inputs.{name}") from None
         try:
             fixed[name] = float(value)
         except (TypeError, ValueError):

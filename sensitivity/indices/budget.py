@@ -64,9 +64,11 @@ def _power_of_two(value: int, name: str) -> int:
         raise ScenarioError(str(error)) from None
 
 
-def _split_inputs(inputs: Mapping[str, Any]) -> tuple[dict[str, Any], dict[str, float]]:
+def _split_inputs(
+    inputs: Mapping[str, Any], model: Any = None
+) -> tuple[dict[str, Any], dict[str, float]]:
     """Uncertain and fixed inputs of a ranking (at least one uncertain, no input named dummy)."""
-    uncertain, fixed = split_inputs(inputs)
+    uncertain, fixed = split_inputs(inputs, model)
     if not uncertain:
         raise ScenarioError("rank needs at least one uncertain input (a frozen distribution)")
     if DUMMY in uncertain:

@@ -106,7 +106,7 @@ def morris(
         raise ScenarioError(f"tail must be in (0, 0.5); got {tail!r}")
     model = as_model(model, input_names=list(inputs))
     generator = np.random.default_rng(rng)
-    uncertain, fixed = _split_inputs(inputs)
+    uncertain, fixed = _split_inputs(inputs, model)
     names = list(uncertain)
     problem = {"num_vars": len(names), "names": names, "bounds": [[0.0, 1.0]] * len(names)}
     unit = salib_sample.sample(problem, int(n_trajectories), num_levels=levels, seed=generator)

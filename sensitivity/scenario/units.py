@@ -29,6 +29,7 @@ from pathlib import Path
 
 import pint
 
+from trapbudget.models.protocol import is_quantity
 from trapbudget.sensitivity.errors import ScenarioError
 
 __all__ = [
@@ -146,6 +147,8 @@ def _split(text: str | float | int, *, unit: str, where: str, path: object | Non
         )
     if isinstance(text, int | float):
         return float(text), ""
+    if is_quantity(text):  # a pint Quantity from Python: its magnitude and unit name
+        return float(text.magnitude), str(text.units)
     if not isinstance(text, str):
         raise ScenarioError(
             f"{text!r} is not a quantity; write a string such as '1 {unit or ''}'".rstrip(),
@@ -180,7 +183,11 @@ def _units_of(unit_text: str, *, text: object, unit: str, where: str, path: obje
 def _convert(magnitude: float, units: pint.Unit, *, text, unit, where, path) -> float:
     target = _si_unit(unit)
     try:
-        return float(ureg.Quantity(magnitude, units).to(target).magnitude)
+        quantity = ureg.Quantity(magnitude, units)
+        if unit == "Hz" and "radian" in str(units):
+            # pint takes 1 rad/s for 1 Hz; a cyclic frequency is the angular one over 2 pi
+            return float(quantity.to("radian/second").magnitude / (2 * math.pi))
+        return float(quantity.to(target).magnitude)
     except pint.errors.DimensionalityError:
         want = unit or "dimensionless"
         raise ScenarioError(
