@@ -173,4 +173,3 @@ def _run_compare(args: argparse.Namespace) -> int:
             console.print(table)
         console.print(f"Report: {written / 'report.html'}")
     return 0
-

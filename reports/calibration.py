@@ -13,15 +13,11 @@ from collections.abc import Mapping
 from typing import Any
 
 import matplotlib
-
-matplotlib.use("Agg")
-
-import matplotlib.pyplot as plt
 import numpy as np
 import xarray as xr
 
 from trapbudget.reports.blocks import Figure, Section, Table, Text, register_section
-from trapbudget.reports.figures import BLUE, FIGURE_STYLE, GREY, ORANGE, figure_png
+from trapbudget.reports.figures import BLUE, FIGURE_STYLE, GREY, ORANGE, figure_png, subplots
 from trapbudget.reports.formatting import format_number, format_percent, format_quantity
 
 __all__ = ["calibration_json", "calibration_section", "constant_rows", "residual_figure"]
@@ -61,8 +57,8 @@ def residual_figure(ds: xr.Dataset) -> bytes:
     outputs = [str(o) for o in ds["output"].values]
     residual = np.asarray(ds["normalized_residual"].values, dtype=float)
     colours = [BLUE, ORANGE, GREY, "#4d8b57", "#7a4d8b"]
-    with plt.rc_context(FIGURE_STYLE):
-        fig, ax = plt.subplots(figsize=(6.4, 2.8))
+    with matplotlib.rc_context(FIGURE_STYLE):
+        fig, ax = subplots(figsize=(6.4, 2.8))
         for k, name in enumerate(dict.fromkeys(outputs)):
             idx = np.flatnonzero(np.array(outputs) == name)
             ax.plot(

@@ -14,15 +14,11 @@ from collections.abc import Mapping
 from typing import Any
 
 import matplotlib
-
-matplotlib.use("Agg")
-
-import matplotlib.pyplot as plt
 import numpy as np
 import xarray as xr
 
 from trapbudget.reports.blocks import Figure, Section, Table, Text, register_section
-from trapbudget.reports.figures import BLUE, FIGURE_STYLE, GREY, ORANGE, figure_png
+from trapbudget.reports.figures import BLUE, FIGURE_STYLE, GREY, ORANGE, figure_png, subplots
 from trapbudget.reports.formatting import (
     display_scale,
     format_number,
@@ -185,8 +181,8 @@ def distribution_figure(ds: xr.Dataset, output: str) -> bytes:
     base = np.asarray(_pick(ds, _options(ds)[0])["quantiles_before"].sel(output=output).values)
     scale, label = display_scale(unit, float(np.nanmax(np.abs(base))) or 1.0)
     colors = [BLUE, ORANGE, "#5a8a3a", "#8a3a6a", "#3a7a8a", "#7a6a3a"]
-    with plt.rc_context(FIGURE_STYLE):
-        fig, ax = plt.subplots(figsize=(6.0, 3.4))
+    with matplotlib.rc_context(FIGURE_STYLE):
+        fig, ax = subplots(figsize=(6.0, 3.4))
         ax.plot(base * scale, levels, color=GREY, lw=1.6, label="before")
         for k, option in enumerate(_options(ds)[: len(colors)]):
             after = _pick(ds, option)["quantiles_after"].sel(output=output).values
@@ -208,8 +204,8 @@ def benefit_figure(ds: xr.Dataset) -> bytes:
     """Cost against benefit of each upgrade (benefit as in ``attrs['benefit_metric']``)."""
     costs = np.asarray(ds["cost"].values, dtype=float)
     benefit = np.asarray(ds["benefit"].values, dtype=float)
-    with plt.rc_context(FIGURE_STYLE):
-        fig, ax = plt.subplots(figsize=(6.0, 3.6))
+    with matplotlib.rc_context(FIGURE_STYLE):
+        fig, ax = subplots(figsize=(6.0, 3.6))
         ax.scatter(costs, benefit, color=BLUE, zorder=3)
         for name, x, y in zip(_options(ds), costs, benefit, strict=True):
             ax.annotate(

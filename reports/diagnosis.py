@@ -14,15 +14,11 @@ from collections.abc import Mapping
 from typing import Any
 
 import matplotlib
-
-matplotlib.use("Agg")
-
-import matplotlib.pyplot as plt
 import numpy as np
 import xarray as xr
 
 from trapbudget.reports.blocks import Figure, Section, Table, Text, register_section
-from trapbudget.reports.figures import BLUE, FIGURE_STYLE, GREY, ORANGE, figure_png
+from trapbudget.reports.figures import BLUE, FIGURE_STYLE, GREY, ORANGE, figure_png, subplots
 from trapbudget.reports.formatting import format_number, format_percent
 
 __all__ = [
@@ -43,8 +39,8 @@ def _days(ds: xr.Dataset) -> list[str]:
 def time_series_figure(ds: xr.Dataset) -> bytes:
     """Measured and predicted output per log entry; flagged days shaded."""
     time = ds["time"].values
-    with plt.rc_context(FIGURE_STYLE):
-        fig, ax = plt.subplots(figsize=(6.8, 2.9))
+    with matplotlib.rc_context(FIGURE_STYLE):
+        fig, ax = subplots(figsize=(6.8, 2.9))
         for day, flagged in zip(ds["day"].values, ds["flagged"].values, strict=True):
             if flagged:
                 ax.axvspan(day, day + np.timedelta64(1, "D"), color=ORANGE, alpha=0.15, lw=0)
@@ -61,8 +57,8 @@ def attribution_figure(ds: xr.Dataset) -> bytes:
     level = float(ds.attrs.get("reference_level", 1.0)) or 1.0
     phi = np.asarray(ds["attribution"].values, dtype=float) / level
     x = np.arange(ds.sizes["day"])
-    with plt.rc_context(FIGURE_STYLE):
-        fig, ax = plt.subplots(figsize=(6.8, 3.2))
+    with matplotlib.rc_context(FIGURE_STYLE):
+        fig, ax = subplots(figsize=(6.8, 3.2))
         pos = np.zeros(x.size)
         neg = np.zeros(x.size)
         for j, name in enumerate(ds["channel"].values):

@@ -1,4 +1,4 @@
-"""Figures of the report, drawn from result Datasets with matplotlib (Agg backend).
+"""Figures of the report, drawn from result Datasets with matplotlib (no pyplot).
 
 Every function takes Datasets (the schemas of DEVELOPERS.md) and returns PNG
 bytes, so the HTML can embed them and the Markdown can sit beside them. The
@@ -9,14 +9,12 @@ for reference marks, light grid.
 from __future__ import annotations
 
 import io
+from typing import Any
 
 import matplotlib
-
-matplotlib.use("Agg")
-
-import matplotlib.pyplot as plt
 import numpy as np
 import xarray as xr
+from matplotlib.figure import Figure
 
 from trapbudget.reports.formatting import display_scale, main_index, units_of
 
@@ -32,6 +30,7 @@ __all__ = [
     "histogram_figure",
     "interaction_figure",
     "scatter_figure",
+    "subplots",
 ]
 
 BLUE = "#2b5d8a"
@@ -56,10 +55,20 @@ FIGURE_STYLE = {
 }
 
 
-def figure_png(fig: plt.Figure) -> bytes:
+def subplots(*args: Any, figsize: tuple[float, float] | None = None, **kwargs: Any):
+    """A new :class:`matplotlib.figure.Figure` and its axes, like ``pyplot.subplots``.
+
+    Figures are made without pyplot, so drawing a report neither changes a
+    notebook's backend nor keeps figures alive in pyplot's list.
+    """
+    fig = Figure(figsize=figsize)
+    return fig, fig.subplots(*args, **kwargs)
+
+
+def figure_png(fig: Figure) -> bytes:
+    """The figure as PNG bytes (no timestamp metadata, so reports are reproducible)."""
     buffer = io.BytesIO()
     fig.savefig(buffer, format="png", dpi=110, bbox_inches="tight", metadata={"Software": None})
-    plt.close(fig)
     return buffer.getvalue()
 
 
@@ -90,8 +99,8 @@ def histogram_figure(samples: xr.Dataset, summary: xr.Dataset, output: str) -> b
     unit = units_of(samples, output)
     row = summary.sel(output=output)
     factor, unit_label = display_scale(unit, float(np.median(values)) if values.size else 1.0)
-    with plt.rc_context(FIGURE_STYLE):
-        fig, ax = plt.subplots(figsize=(5.6, 3.0))
+    with matplotlib.rc_context(FIGURE_STYLE):
+        fig, ax = subplots(figsize=(5.6, 3.0))
         if values.size:
             bins = int(np.clip(np.sqrt(values.size), 10, 60))
             ax.hist(values * factor, bins=bins, color=LIGHT_BLUE, edgecolor=BLUE, linewidth=0.4)
@@ -131,8 +140,8 @@ def budget_figure(budget: xr.Dataset, output: str, *, top: int = 12) -> bytes:
         if "below_noise_floor" in row
         else np.zeros(len(names), dtype=bool)
     )
-    with plt.rc_context(FIGURE_STYLE):
-        fig, ax = plt.subplots(figsize=(5.6, 0.9 + 0.32 * len(names)))
+    with matplotlib.rc_context(FIGURE_STYLE):
+        fig, ax = subplots(figsize=(5.6, 0.9 + 0.32 * len(names)))
         key, label = main_index(budget)
         total = np.asarray(row[key].values, dtype=float)
         first = np.asarray(row["first_order"].values, dtype=float)
@@ -167,8 +176,8 @@ def scatter_figure(
     index = np.unique(np.linspace(0, n - 1, min(n, max_points)).astype(int)) if n else []
     y = y_all[index]
     y_factor, y_unit = display_scale(units_of(samples, output), float(np.nanmedian(y)) if n else 1)
-    with plt.rc_context(FIGURE_STYLE):
-        fig, axes = plt.subplots(
+    with matplotlib.rc_context(FIGURE_STYLE):
+        fig, axes = subplots(
             1, max(1, len(names)), figsize=(2.2 + 2.0 * max(1, len(names)), 2.6), squeeze=False
         )
         for ax, name in zip(axes[0], names, strict=False):
@@ -189,8 +198,8 @@ def convergence_figure(budget: xr.Dataset, output: str, *, top: int = 6) -> byte
     names = _ranked_inputs(budget, output, top)
     history = budget[f"history_{key}"].sel(output=output)
     steps = np.asarray(budget["step_n_samples"].values, dtype=float)
-    with plt.rc_context(FIGURE_STYLE):
-        fig, ax = plt.subplots(figsize=(5.6, 3.0))
+    with matplotlib.rc_context(FIGURE_STYLE):
+        fig, ax = subplots(figsize=(5.6, 3.0))
         for name in names:
             ax.plot(steps, history.sel(input=name).values, marker="o", ms=3, lw=1, label=name)
         ax.set_xscale("log", base=2)
@@ -209,8 +218,8 @@ def interaction_figure(budget: xr.Dataset, output: str, *, top: int = 8) -> byte
     matrix = budget["second_order"].sel(output=output, input=names, input_b=names).values
     matrix = np.asarray(matrix, dtype=float)
     sym = np.where(np.isfinite(matrix), matrix, matrix.T)
-    with plt.rc_context({**FIGURE_STYLE, "axes.grid": False}):
-        fig, ax = plt.subplots(figsize=(4.8, 4.0))
+    with matplotlib.rc_context({**FIGURE_STYLE, "axes.grid": False}):
+        fig, ax = subplots(figsize=(4.8, 4.0))
         image = ax.imshow(np.clip(sym, 0, None), cmap="Blues", vmin=0)
         labels = [n.replace("_", " ") for n in names]
         ax.set_xticks(range(len(names)), labels, rotation=45, ha="right")

@@ -14,15 +14,11 @@ from collections.abc import Mapping
 from typing import Any
 
 import matplotlib
-
-matplotlib.use("Agg")
-
-import matplotlib.pyplot as plt
 import numpy as np
 import xarray as xr
 
 from trapbudget.reports.blocks import Figure, Section, Table, Text, register_section
-from trapbudget.reports.figures import BLUE, FIGURE_STYLE, GREY, ORANGE, figure_png
+from trapbudget.reports.figures import BLUE, FIGURE_STYLE, GREY, ORANGE, figure_png, subplots
 from trapbudget.reports.formatting import format_number, format_percent, format_quantity
 from trapbudget.reports.results import dim_records, plain_value
 
@@ -167,8 +163,8 @@ def tolerance_figure(allocation: xr.Dataset) -> bytes:
             for n in free
         ]
     )
-    with plt.rc_context(FIGURE_STYLE):
-        fig, ax = plt.subplots(figsize=(6.0, 0.42 * len(free) + 1.3))
+    with matplotlib.rc_context(FIGURE_STYLE):
+        fig, ax = subplots(figsize=(6.0, 0.42 * len(free) + 1.3))
         y = np.arange(len(free))
         finite = np.where(np.isfinite(ratio), ratio, 1.0)
         for k in range(len(free)):

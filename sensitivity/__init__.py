@@ -48,7 +48,7 @@ _LOCATIONS: dict[str, str] = {
     "analyze_budget": "trapbudget.sensitivity.indices.budget",
     "as_model": "trapbudget.sensitivity.protocol",
     "calibrate": "trapbudget.sensitivity.lab.calibrate",
-    "check_requirements": "trapbudget.sensitivity.scenario.requirements",
+    "check_requirements": "trapbudget.sensitivity.compliance",
     "compare": "trapbudget.sensitivity.decisions.compare",
     "compare_linear_monte_carlo": "trapbudget.sensitivity.linear",
     "compare_upgrades": "trapbudget.sensitivity.decisions.compare",
@@ -153,6 +153,7 @@ def __dir__() -> list[str]:
 
 
 if TYPE_CHECKING:  # for type checkers and IDEs: the same names, imported eagerly
+    from trapbudget.sensitivity.compliance import check_requirements
     from trapbudget.sensitivity.decisions.allocate import allocate
     from trapbudget.sensitivity.decisions.allocation import Allocation, InfeasibleError
     from trapbudget.sensitivity.decisions.compare import compare, compare_upgrades
@@ -186,7 +187,7 @@ if TYPE_CHECKING:  # for type checkers and IDEs: the same names, imported eagerl
     from trapbudget.sensitivity.scenario.distributions import Tolerance
     from trapbudget.sensitivity.scenario.reader import load_scenario
     from trapbudget.sensitivity.scenario.registry import MODELS, register_model
-    from trapbudget.sensitivity.scenario.requirements import Requirement, check_requirements
+    from trapbudget.sensitivity.scenario.requirements import Requirement
     from trapbudget.sensitivity.scenario.settings import RunOptions, Settings, Upgrade
     from trapbudget.sensitivity.scenario.writer import scenario_to_toml
     from trapbudget.sensitivity.study import Study, run_study

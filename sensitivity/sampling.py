@@ -30,8 +30,6 @@ from typing import Any, Literal
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy import special, stats
-from scipy.stats import qmc
 
 from trapbudget.models.protocol import ModelError, is_quantity, to_si
 from trapbudget.sensitivity.errors import ScenarioError
@@ -107,6 +105,8 @@ def unit_design(
     ValueError
         d < 0.
     """
+    from scipy.stats import qmc
+
     n_samples = int(n_samples)
     dimension = int(dimension)
     if method not in METHODS:
@@ -205,6 +205,8 @@ def ppf(dist: Any, unit: np.ndarray) -> np.ndarray:
     ``loc + (median - loc) exp(sigma Phi^-1(u))`` are computed directly (same
     values as ``dist.ppf``, about ten times faster); other shapes use ``dist.ppf``.
     """
+    from scipy import special
+
     name = getattr(getattr(dist, "dist", None), "name", None)
     u = np.asarray(unit, dtype=float)
     if name == "norm":
@@ -241,6 +243,8 @@ def transform(
     -------
     numpy.ndarray, shape (n, d)
     """
+    from scipy import special
+
     points = np.clip(np.asarray(unit, dtype=float), _EDGE, 1.0 - _EDGE)
     if points.ndim != 2 or points.shape[1] != len(distributions):
         raise ValueError(
@@ -285,6 +289,8 @@ def copula_to_pearson(
     means and variances from the same rule. For uniform marginals the result
     is ``(6/pi) arcsin(r/2)`` (Pearson 1907; Kruskal 1958).
     """
+    from scipy import stats
+
     matrix = check_correlation(correlation)
     d = matrix.shape[0]
     if len(distributions) != d:

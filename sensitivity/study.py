@@ -24,12 +24,12 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
+from trapbudget.sensitivity.compliance import check_requirements
 from trapbudget.sensitivity.io import atomic_write_json, save_dataset
 from trapbudget.sensitivity.linear import compare_linear_monte_carlo, linear_propagation
 from trapbudget.sensitivity.propagation import propagate
 from trapbudget.sensitivity.ranking import rank
 from trapbudget.sensitivity.scenario.core import Scenario
-from trapbudget.sensitivity.scenario.requirements import check_requirements
 from trapbudget.sensitivity.scenario.settings import RunOptions
 from trapbudget.sensitivity.scenario.units import format_quantity
 from trapbudget.sensitivity.study_record import describe_study

@@ -27,9 +27,7 @@ from __future__ import annotations
 import dataclasses
 import math
 from dataclasses import dataclass
-from typing import Literal
-
-from scipy import stats
+from typing import Any, Literal
 
 from trapbudget.sensitivity.errors import ScenarioError
 
@@ -177,7 +175,7 @@ class Tolerance:
             return float(self.distribution().std()) if self.scale > 0 else 0.0
         return self.scale
 
-    def distribution(self) -> stats.rv_continuous:
+    def distribution(self) -> Any:
         """The frozen ``scipy.stats`` distribution (SI) the tolerance stands for.
 
         Raises
@@ -185,6 +183,8 @@ class Tolerance:
         ScenarioError
             For a zero tolerance: such an input is held fixed instead.
         """
+        from scipy import stats
+
         u = self.scale
         if u <= 0:
             raise ScenarioError(
