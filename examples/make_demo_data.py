@@ -184,7 +184,7 @@ def week_log(model, nominal, rng) -> str:
 
 def main(folder: str | Path = HERE) -> list[Path]:
     """Write the demo data files into ``folder`` and return their paths."""
-    from trapbudget.models.species import species
+    from trapbudget.models.catalog import species
 
     folder = Path(folder)
     scenario = load_scenario(SCENARIO)

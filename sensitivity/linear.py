@@ -27,7 +27,6 @@ from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
-import uncertainties
 import xarray as xr
 from numpy.typing import ArrayLike
 from scipy import stats
@@ -155,22 +154,16 @@ def linear_propagation(
         if copula:
             matrix = copula_to_pearson(matrix, list(uncertain.values()))
     covariance = matrix * np.outer(u, u)
-    if names:
-        xs = uncertainties.correlated_values([x0[k] for k in names], covariance)
-    else:
-        xs = []
-    # y = y0 + sum_j c_j (x_j - x0_j): a linear function of correlated variables.
-    ys = [
-        y0[out] + sum((jac[i, j] * (x - x0[names[j]]) for j, x in enumerate(xs)), 0.0)
-        for i, out in enumerate(keep)
-    ]
-    std_linear = np.array([getattr(y, "std_dev", 0.0) for y in ys])
-    if names and all(hasattr(y, "std_dev") for y in ys):
-        with np.errstate(divide="ignore", invalid="ignore"):
-            out_corr = np.array(uncertainties.correlation_matrix(ys), dtype=float)
-    else:
-        out_corr = np.eye(len(ys))
-    out_corr = np.nan_to_num(out_corr, nan=0.0)
+    # JCGM 100:2008 eq. (13) in matrix form (JCGM 102:2011 eq. (3)): U_y = J U_x J^T.
+    # Plain matrix algebra, so the result is the same in every process (the
+    # `uncertainties` package, the tests' oracle, sums in an order that varies).
+    out_cov = jac @ covariance @ jac.T if names else np.zeros((len(keep), len(keep)))
+    std_linear = np.sqrt(np.clip(np.diag(out_cov), 0.0, None))
+    scale = np.outer(std_linear, std_linear)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out_corr = np.where(scale > 0, out_cov / scale, 0.0)
+    np.fill_diagonal(out_corr, np.where(std_linear > 0, 1.0, 0.0))
+    out_corr = np.clip(out_corr, -1.0, 1.0)
     k = float(stats.norm.ppf(0.5 * (1.0 + confidence_level)))
     y_nom = np.array([y0[o] for o in keep])
     contribution = np.abs(jac) * u[None, :]
