@@ -102,7 +102,6 @@ def propagate(
     chunk_size: int = 65536,
     progress: Callable[[int, int], None] | None = None,
     nominal: Mapping[str, float] | None = None,
-    _stacklevel: int = 2,
 ) -> xr.Dataset:
     """Propagate input distributions through a model by Monte Carlo.
 
@@ -208,7 +207,7 @@ def propagate(
     }
     ds = xr.Dataset(data_vars, coords={"sample": np.arange(int(n_samples))}, attrs=attrs)
     if "validity" in results:
-        _report_validity(ds, model, stacklevel=_stacklevel + 1)
+        _report_validity(ds, model, stacklevel=3)
     return ds
 
 

@@ -52,7 +52,7 @@ def test_angular_frequency_on_a_cyclic_detuning_takes_its_two_pi(trap):
     angular = trap.evaluate({"detuning": Q_(-2 * math.pi * 12e6, "rad/s")})
     cyclic = trap.evaluate({"detuning": -12e6})
     np.testing.assert_allclose(angular["atom_number"], cyclic["atom_number"], rtol=1e-12)
-    assert parse_quantity("-75.398 Mrad/s", unit="Hz", where="x") == pytest.approx(
+    assert parse_quantity("-75.398 Mrad/s", unit="Hz", key="x") == pytest.approx(
         -75.398e6 / (2 * math.pi), rel=1e-12
     )
 

@@ -8,10 +8,10 @@ import numpy as np
 import pytest
 from scipy import stats
 
+from trapbudget.sensitivity.compliance import check_requirements, requirement_met
 from trapbudget.sensitivity.errors import ScenarioError
 from trapbudget.sensitivity.propagation import propagate
 from trapbudget.sensitivity.scenario.requirements import Requirement, parse_requirements
-from trapbudget.sensitivity.compliance import check_requirements, requirement_met
 from trapbudget.sensitivity.testfunctions import LinearModel
 
 MODEL = LinearModel([2.0, 3.0], offset=10.0)

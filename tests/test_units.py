@@ -42,76 +42,76 @@ from trapbudget.sensitivity.scenario.units import (
     ],
 )
 def test_parse_quantity_to_si(text, unit, expected):
-    assert parse_quantity(text, unit=unit, where="inputs.x.nominal") == pytest.approx(
+    assert parse_quantity(text, unit=unit, key="inputs.x.nominal") == pytest.approx(
         expected, rel=1e-12
     )
 
 
 def test_unknown_unit_suggests_close_match():
     with pytest.raises(ScenarioError, match=r"'mQ' is not a unit; did you mean 'mW'\?"):
-        parse_quantity("12 mQ", unit="W", where="inputs.beam_power.nominal")
+        parse_quantity("12 mQ", unit="W", key="inputs.beam_power.nominal")
 
 
 def test_error_names_file_and_key():
     with pytest.raises(ScenarioError, match=r"^scenario\.toml: inputs\.beam_power\.nominal: "):
-        parse_quantity("12 mQ", unit="W", where="inputs.beam_power.nominal", path="scenario.toml")
+        parse_quantity("12 mQ", unit="W", key="inputs.beam_power.nominal", path="scenario.toml")
 
 
 def test_bare_number_for_dimensional_input_is_refused_with_fix():
     with pytest.raises(ScenarioError, match=r"'4' has no unit; write it with a unit, e.g. '4 mW'"):
-        parse_quantity("4", unit="W", where="inputs.beam_power.nominal")
+        parse_quantity("4", unit="W", key="inputs.beam_power.nominal")
     with pytest.raises(ScenarioError, match=r"has no unit"):
-        parse_quantity(4, unit="W", where="inputs.beam_power.nominal")
+        parse_quantity(4, unit="W", key="inputs.beam_power.nominal")
 
 
 def test_wrong_dimension_is_refused():
     with pytest.raises(ScenarioError, match=r"'4 mW' is not in units of 'Hz'"):
-        parse_quantity("4 mW", unit="Hz", where="inputs.detuning.nominal")
+        parse_quantity("4 mW", unit="Hz", key="inputs.detuning.nominal")
 
 
 def test_garbage_is_refused():
     with pytest.raises(ScenarioError, match=r"is not a number with a unit"):
-        parse_quantity("four mW", unit="W", where="inputs.beam_power.nominal")
+        parse_quantity("four mW", unit="W", key="inputs.beam_power.nominal")
     with pytest.raises(ScenarioError, match=r"is not a quantity"):
-        parse_quantity(True, unit="", where="inputs.x.nominal")
+        parse_quantity(True, unit="", key="inputs.x.nominal")
 
 
 def test_relative_tolerance_is_fraction_of_nominal_magnitude():
     # common practice: "2 %" of a nominal means 0.02 |nominal|
-    assert parse_tolerance("2 %", unit="Hz", nominal=-12e6, where="t") == pytest.approx(240e3)
-    value, relative = parse_tolerance_text("50 ppm", unit="W", nominal=4e-3, where="t")
+    assert parse_tolerance("2 %", unit="Hz", nominal=-12e6, key="t") == pytest.approx(240e3)
+    value, relative = parse_tolerance_text("50 ppm", unit="W", nominal=4e-3, key="t")
     assert relative and value == pytest.approx(2e-7)
 
 
 def test_absolute_tolerances():
-    assert parse_tolerance("0.1 mW", unit="W", nominal=4e-3, where="t") == pytest.approx(1e-4)
-    value, relative = parse_tolerance_text("0.1 K", unit="K", nominal=300.0, where="t")
+    assert parse_tolerance("0.1 mW", unit="W", nominal=4e-3, key="t") == pytest.approx(1e-4)
+    value, relative = parse_tolerance_text("0.1 K", unit="K", nominal=300.0, key="t")
     assert not relative and value == pytest.approx(0.1)
     # a kelvin and a degree Celsius are equal as differences (BIPM SI Brochure, 2.3.1)
-    assert parse_tolerance("0.1 delta_degC", unit="K", nominal=295.0, where="t") == pytest.approx(
+    assert parse_tolerance("0.1 delta_degC", unit="K", nominal=295.0, key="t") == pytest.approx(
         0.1
     )
-    assert parse_tolerance("0.1 degC", unit="K", nominal=295.0, where="t") == pytest.approx(0.1)
+    assert parse_tolerance("0.1 degC", unit="K", nominal=295.0, key="t") == pytest.approx(0.1)
     # dimensionless: a bare number is absolute
-    assert parse_tolerance(0.01, unit="", nominal=0.05, where="t") == pytest.approx(0.01)
+    assert parse_tolerance(0.01, unit="", nominal=0.05, key="t") == pytest.approx(0.01)
 
 
 def test_relative_tolerance_of_offset_temperature_is_refused():
     with pytest.raises(ScenarioError, match=r"ambiguous; write it absolute, e.g. '0.1 K'"):
-        parse_tolerance("2 %", unit="K", nominal=295.15, where="t", nominal_text="22 degC")
+        parse_tolerance("2 %", unit="K", nominal=295.15, key="t", nominal_text="22 degC")
     # written in kelvin the reference is clear
     assert parse_tolerance(
-        "1 %", unit="K", nominal=300.0, where="t", nominal_text="300 K"
+        "1 %", unit="K", nominal=300.0, key="t", nominal_text="300 K"
     ) == pytest.approx(3.0)
 
 
 def test_tolerance_errors():
     with pytest.raises(ScenarioError, match=r"has no unit; write it relative"):
-        parse_tolerance("0.1", unit="W", nominal=1e-3, where="t")
+        parse_tolerance("0.1", unit="W", nominal=1e-3, key="t")
     with pytest.raises(ScenarioError, match=r"finite non-negative"):
-        parse_tolerance("-1 %", unit="W", nominal=1e-3, where="t")
+        parse_tolerance("-1 %", unit="W", nominal=1e-3, key="t")
     with pytest.raises(ScenarioError, match=r"relative tolerance of a zero nominal.*'0.1 mm'"):
-        parse_tolerance("2 %", unit="m", nominal=0.0, where="inputs.beam_offset.tolerance")
+        parse_tolerance("2 %", unit="m", nominal=0.0, key="inputs.beam_offset.tolerance")
 
 
 def test_registry_gauss_is_si():

@@ -133,7 +133,7 @@ def fit_loading_curve(
     uncertainty: Any | None = None,
     two_body: bool = False,
     robust: bool = False,
-    where: str = "loading curve",
+    label: str = "loading curve",
 ) -> CurveFit:
     """Fit ``N(t) = N_s (1 - exp(-t/tau))`` (optionally with two-body loss) to a loading curve.
 
@@ -150,7 +150,7 @@ def fit_loading_curve(
         Fit the two-body fraction chi as well (see :func:`loading_curve`).
     robust : bool
         Use the soft-L1 loss (outlier-tolerant) instead of plain least squares.
-    where : str
+    label : str
         Name for error messages.
 
     Returns
@@ -172,9 +172,9 @@ def fit_loading_curve(
     y = np.asarray(signal, dtype=float)
     sigma = None if uncertainty is None else np.asarray(uncertainty, dtype=float) * np.ones_like(y)
     if t.shape != y.shape or t.ndim != 1:
-        raise DataError("time and signal must be 1-D columns of equal length", path=where)
+        raise DataError("time and signal must be 1-D columns of equal length", path=label)
     if np.any(t < 0):
-        raise DataError("loading times must be >= 0 (time since loading started)", path=where)
+        raise DataError("loading times must be >= 0 (time since loading started)", path=label)
     n_s0 = float(np.max(y)) if np.max(y) > 0 else 1.0
     # initial time constant: time to reach 1 - 1/e of the largest signal
     reached = t[y >= (1 - math.exp(-1)) * n_s0]
@@ -196,7 +196,7 @@ def fit_loading_curve(
         def func(p):
             return loading_curve(t, p[0], p[1])
 
-    fit = _weighted_fit(func, x0, bounds, y, sigma, names=names, robust=robust, where=where)
+    fit = _weighted_fit(func, x0, bounds, y, sigma, names=names, robust=robust, where=label)
     return _with_loading_derived(fit)
 
 
@@ -245,7 +245,7 @@ def fit_time_of_flight(
     mass: float,
     uncertainty: Any | None = None,
     robust: bool = False,
-    where: str = "time of flight",
+    label: str = "time of flight",
 ) -> CurveFit:
     """Fit ``sigma^2 = sigma_0^2 + k_B T t^2 / m`` to rms radii after free expansion.
 
@@ -262,7 +262,7 @@ def fit_time_of_flight(
         scaled by chi2/dof.
     robust : bool
         Soft-L1 loss instead of plain least squares.
-    where : str
+    label : str
         Name for error messages.
 
     Returns
@@ -284,9 +284,9 @@ def fit_time_of_flight(
     y = np.asarray(radius, dtype=float)
     sigma = None if uncertainty is None else np.asarray(uncertainty, dtype=float) * np.ones_like(y)
     if t.shape != y.shape or t.ndim != 1:
-        raise DataError("time and radius must be 1-D columns of equal length", path=where)
+        raise DataError("time and radius must be 1-D columns of equal length", path=label)
     if not mass > 0:
-        raise DataError(f"mass {mass!r} must be positive (kg)", path=where)
+        raise DataError(f"mass {mass!r} must be positive (kg)", path=label)
     slope, intercept = np.polyfit(t**2, y**2, 1)
     x0 = np.array(
         [math.sqrt(max(intercept, (0.5 * y.min()) ** 2)), max(slope * mass / const.k, 1e-9)]
@@ -303,5 +303,5 @@ def fit_time_of_flight(
         sigma,
         names=("initial_radius", "temperature"),
         robust=robust,
-        where=where,
+        where=label,
     )

@@ -167,7 +167,7 @@ def to_observations(
                     uncertainty=sigma,
                     two_body=two_body,
                     robust=robust,
-                    where=where,
+                    label=where,
                 )
                 rows_out.append(
                     (
@@ -187,7 +187,7 @@ def to_observations(
                     mass=float(mass),
                     uncertainty=sigma,
                     robust=robust,
-                    where=where,
+                    label=where,
                 )
                 rows_out.append(
                     (

@@ -118,7 +118,7 @@ def _tier_tolerance(text: Any, base: Tolerance, *, path, key) -> Tolerance:
         text,
         unit=base.unit,
         nominal=base.nominal,
-        where=key,
+        key=key,
         path=path,
         nominal_text=f"{base.nominal} {base.unit}" if base.unit else base.nominal,
     )

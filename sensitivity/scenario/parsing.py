@@ -42,7 +42,7 @@ def _parse_inputs(raw: Mapping[str, Any], *, model, path):
         unit = spec.unit
         units[name] = unit
         if "nominal" in table:
-            value = parse_quantity(table["nominal"], unit=unit, where=f"{key}.nominal", path=path)
+            value = parse_quantity(table["nominal"], unit=unit, key=f"{key}.nominal", path=path)
         elif math.isfinite(spec.default):
             value = float(spec.default)
         else:
@@ -87,7 +87,7 @@ def _parse_inputs(raw: Mapping[str, Any], *, model, path):
             table["tolerance"],
             unit=unit,
             nominal=value,
-            where=f"{key}.tolerance",
+            key=f"{key}.tolerance",
             path=path,
             nominal_text=table.get("nominal"),
         )
@@ -107,9 +107,7 @@ def _parse_inputs(raw: Mapping[str, Any], *, model, path):
                     path=path,
                     key=f"{key}.bounds",
                 )
-            bounds = tuple(
-                parse_quantity(v, unit=unit, where=f"{key}.bounds", path=path) for v in b
-            )
+            bounds = tuple(parse_quantity(v, unit=unit, key=f"{key}.bounds", path=path) for v in b)
         try:
             tol = Tolerance(
                 nominal=value,

@@ -170,11 +170,11 @@ def parse_requirements(
                 raise ScenarioError(
                     f"{value!r} must be [low, high], e.g. ['1e8', '3e8']", path=path, key=where
                 )
-            limit: Any = tuple(parse_quantity(v, unit=unit, where=where, path=path) for v in value)
+            limit: Any = tuple(parse_quantity(v, unit=unit, key=where, path=path) for v in value)
         elif kind == "relative_spread_at_most":
-            limit = parse_quantity(value, unit="", where=where, path=path)
+            limit = parse_quantity(value, unit="", key=where, path=path)
         else:
-            limit = parse_quantity(value, unit=unit, where=where, path=path)
+            limit = parse_quantity(value, unit=unit, key=where, path=path)
         probability = table.get("probability")
         if probability is not None and not isinstance(probability, int | float):
             raise ScenarioError(

@@ -207,7 +207,7 @@ def _example(unit: str) -> str:
 
 
 def parse_quantity(
-    text: str | float | int, *, unit: str, where: str, path: object | None = None
+    text: str | float | int, *, unit: str, key: str, path: object | None = None
 ) -> float:
     """Convert a written quantity to a float in the SI unit ``unit``.
 
@@ -218,7 +218,7 @@ def parse_quantity(
         bare number is accepted only for a dimensionless ``unit``.
     unit : str
         The SI unit of the result as pint spells it (``""`` for dimensionless).
-    where : str
+    key : str
         Key of the value, for error messages (e.g. ``"inputs.beam_power.nominal"``).
     path : path-like, optional
         File the value came from, for error messages.
@@ -234,7 +234,7 @@ def parse_quantity(
         Unknown unit (with close matches), wrong dimension, or a bare number
         for a dimensional quantity.
     """
-    magnitude, unit_text = _split(text, unit=unit, where=where, path=path)
+    magnitude, unit_text = _split(text, unit=unit, where=key, path=path)
     if not unit_text:
         if unit in ("", "1"):
             return magnitude
@@ -242,10 +242,10 @@ def parse_quantity(
             f"{text!r} has no unit; write it with a unit, e.g. '{_fmt_num(magnitude)} "
             f"{_example(unit).split(' ', 1)[1]}'",
             path=path,
-            key=where,
+            key=key,
         )
-    units = _units_of(unit_text, text=text, unit=unit, where=where, path=path)
-    return _convert(magnitude, units, text=text, unit=unit, where=where, path=path)
+    units = _units_of(unit_text, text=text, unit=unit, where=key, path=path)
+    return _convert(magnitude, units, text=text, unit=unit, where=key, path=path)
 
 
 def _fmt_num(value: float) -> str:
@@ -257,7 +257,7 @@ def parse_tolerance_text(
     *,
     unit: str,
     nominal: float,
-    where: str,
+    key: str,
     path: object | None = None,
     nominal_text: str | float | int | None = None,
 ) -> tuple[float, bool]:
@@ -266,7 +266,7 @@ def parse_tolerance_text(
     See :func:`parse_tolerance`; the second item tells whether the tolerance
     was written relative to the nominal (``%``, ``ppm``, ``ppb``, ``permille``).
     """
-    magnitude, unit_text = _split(text, unit=unit, where=where, path=path)
+    magnitude, unit_text = _split(text, unit=unit, where=key, path=path)
     if unit_text in _RELATIVE_UNITS:
         if _is_temperature(unit) and (
             nominal_text is None or _written_in_offset_unit(nominal_text)
@@ -275,7 +275,7 @@ def parse_tolerance_text(
                 f"{text!r}: a relative tolerance of a temperature on an offset scale (degC) is "
                 f"ambiguous; write it absolute, e.g. '0.1 K'",
                 path=path,
-                key=where,
+                key=key,
             )
         if nominal == 0 and magnitude != 0:
             example = "0.01" if unit in ("", "1") else f"'0.1 {_example(unit).split(' ', 1)[1]}'"
@@ -283,7 +283,7 @@ def parse_tolerance_text(
                 f"{text!r}: a relative tolerance of a zero nominal is zero; write it "
                 f"absolute, e.g. {example}",
                 path=path,
-                key=where,
+                key=key,
             )
         value = magnitude * _RELATIVE_UNITS[unit_text] * abs(nominal)
         relative = True
@@ -294,21 +294,21 @@ def parse_tolerance_text(
                 f"absolute with a unit (e.g. '{_fmt_num(magnitude)} "
                 f"{_example(unit).split(' ', 1)[1]}')",
                 path=path,
-                key=where,
+                key=key,
             )
         value, relative = magnitude, False
     else:
-        units = _units_of(unit_text, text=text, unit=unit, where=where, path=path)
+        units = _units_of(unit_text, text=text, unit=unit, where=key, path=path)
         name = str(units)
         if name in _OFFSET_TO_DELTA:
             units = ureg.parse_units(_OFFSET_TO_DELTA[name])
-        value = _convert(magnitude, units, text=text, unit=unit, where=where, path=path)
+        value = _convert(magnitude, units, text=text, unit=unit, where=key, path=path)
         relative = False
     if not math.isfinite(value) or value < 0:
         raise ScenarioError(
             f"tolerance {text!r} must be a finite non-negative amount; write e.g. '1 %'",
             path=path,
-            key=where,
+            key=key,
         )
     return value, relative
 
@@ -318,7 +318,7 @@ def parse_tolerance(
     *,
     unit: str,
     nominal: float,
-    where: str,
+    key: str,
     path: object | None = None,
     nominal_text: str | float | int | None = None,
 ) -> float:
@@ -335,7 +335,7 @@ def parse_tolerance(
         SI unit of the quantity.
     nominal : float
         Nominal value in ``unit`` (SI), the reference of a relative tolerance.
-    where : str
+    key : str
         Key for error messages.
     path : path-like, optional
         File the value came from.
@@ -356,7 +356,7 @@ def parse_tolerance(
         temperature written in degC.
     """
     return parse_tolerance_text(
-        text, unit=unit, nominal=nominal, where=where, path=path, nominal_text=nominal_text
+        text, unit=unit, nominal=nominal, key=key, path=path, nominal_text=nominal_text
     )[0]
 
 

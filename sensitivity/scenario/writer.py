@@ -34,7 +34,7 @@ def _written_tolerance(tol: Tolerance) -> str | float:
                 tol.text,
                 unit=tol.unit,
                 nominal=tol.nominal,
-                where="",
+                key="",
                 nominal_text=(_written(tol.nominal, tol.unit)),
             )
             if relative and value == tol.value:
