@@ -87,7 +87,7 @@ def _main(parser: argparse.ArgumentParser, argv: Sequence[str] | None) -> int:
     try:
         args = parser.parse_args(argv)
         if getattr(args, "run", None) is None:
-            names = ", ".join(sorted(parser._subparsers._group_actions[0].choices))  # type: ignore[union-attr]
+            names = ", ".join(sorted(parser._subparsers._group_actions[0].choices))  # type: ignore[arg-type,union-attr]
             raise UsageError(f"{PROG}: choose a subcommand: {names}; see '{PROG} --help'")
         return int(args.run(args) or 0)
     except TrapbudgetError as error:

@@ -490,7 +490,7 @@ def capture_velocity(
     for start in range(0, n, _CHUNK):
         stop = min(n, start + _CHUNK)
         chunk = [a if a.shape[0] == 1 else a[start:stop] for a in flat.values()]
-        _capture_kernel(*chunk, int(n_steps), out[start:stop])
+        _capture_kernel(*chunk, int(n_steps), out[start:stop])  # type: ignore[call-arg]
     return out.reshape(shape)
 
 
@@ -559,14 +559,14 @@ def capture_velocity_reference(
     def stopped(_t, y):
         return y[1] - stop_speed
 
-    stopped.terminal = True
-    stopped.direction = -1
+    stopped.terminal = True  # type: ignore[attr-defined]
+    stopped.direction = -1  # type: ignore[attr-defined]
 
     def escaped(_t, y):
         return y[0] - x_far
 
-    escaped.terminal = True
-    escaped.direction = 1
+    escaped.terminal = True  # type: ignore[attr-defined]
+    escaped.direction = 1  # type: ignore[attr-defined]
 
     def margin(v0: float) -> float:
         t_max = 50 * (x_far - x_near) / stop_speed

@@ -60,7 +60,7 @@ def species(name: str | Species) -> Species:
         return name
     key = _normalize(str(name))
     if key in SPECIES:
-        return SPECIES[key]
+        return SPECIES[key]  # type: ignore[index]
     valid = ", ".join(SPECIES)
     raise ModelError(f"species {name!r} is not known; use one of: {valid}")
 

@@ -391,7 +391,7 @@ class VaporCellMOT:
         counts = {"OK": int(np.count_nonzero(v == 0))}
         for flag in Validity:
             if flag.value:
-                counts[flag.name] = int(np.count_nonzero(v & flag.value))
+                counts[flag.name] = int(np.count_nonzero(v & flag.value))  # type: ignore[index]
         return counts
 
     def evaluate(self, values: Mapping[str, ArrayLike]) -> dict[str, NDArray]:
@@ -507,14 +507,14 @@ class VaporCellMOT:
         }
         # atoms enter from both ends of the path: slowed by the returning or the incoming beam
         v_in = [
-            capture.capture_velocity(peak_saturation, cooling_detuning, direction=d, **path)
+            capture.capture_velocity(peak_saturation, cooling_detuning, direction=d, **path)  # type: ignore[arg-type]
             for d in (1, -1)
         ]
         v_capture = 0.5 * (v_in[0] + v_in[1])
 
         t_cell = x["cell_temperature"]
         if self.vapor_source == "fraction":
-            density = x["vapor_fraction"] * vapor.saturated_density(sp.vapor, t_cell)
+            density = x["vapor_fraction"] * vapor.saturated_density(sp.vapor, t_cell)  # type: ignore[arg-type]
         else:
             density = x["vapor_density"]
         speed = vapor.most_probable_speed(mass, t_cell)

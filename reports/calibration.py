@@ -57,7 +57,7 @@ def residual_figure(ds: xr.Dataset) -> bytes:
     outputs = [str(o) for o in ds["output"].values]
     residual = np.asarray(ds["normalized_residual"].values, dtype=float)
     colours = [BLUE, ORANGE, GREY, "#4d8b57", "#7a4d8b"]
-    with matplotlib.rc_context(FIGURE_STYLE):
+    with matplotlib.rc_context(FIGURE_STYLE):  # type: ignore[arg-type]
         fig, ax = subplots(figsize=(6.4, 2.8))
         for k, name in enumerate(dict.fromkeys(outputs)):
             idx = np.flatnonzero(np.array(outputs) == name)
@@ -244,7 +244,7 @@ def calibration_rich_table(ds: xr.Dataset) -> Any:
         ["left", "right", "right", "right", "right", "left"],
         strict=True,
     ):
-        table.add_column(column, justify=justify)
+        table.add_column(column, justify=justify)  # type: ignore[arg-type]
     for row in constant_rows(ds):
         table.add_row(*row)
     return table

@@ -137,9 +137,10 @@ def convergence_section(datasets: Datasets, study: Mapping[str, Any]) -> Section
         return None
     converged = budget.attrs.get("converged")
     steps = [int(n) for n in np.asarray(budget["step_n_samples"].values)]
-    state = {True: "converged", False: "did NOT converge (use the indices with care)"}.get(
-        bool(converged) if converged is not None else None, "unknown"
-    )
+    if converged is None:
+        state = "unknown"
+    else:
+        state = "converged" if bool(converged) else "did NOT converge (use the indices with care)"
     blocks: list[Any] = [
         Text(
             f"The base sample size was doubled ({', '.join(map(str, steps))}) until every index's "

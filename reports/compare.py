@@ -86,7 +86,7 @@ def _output_rows(ds: xr.Dataset, option: str) -> list[list[str]]:
 
 
 def _requirement_rows(ds: xr.Dataset) -> list[list[str]]:
-    rows = []
+    rows = []  # type: ignore[var-annotated]
     if "requirement" not in ds.dims:
         return rows
     for option in _options(ds):
@@ -181,7 +181,7 @@ def distribution_figure(ds: xr.Dataset, output: str) -> bytes:
     base = np.asarray(_pick(ds, _options(ds)[0])["quantiles_before"].sel(output=output).values)
     scale, label = display_scale(unit, float(np.nanmax(np.abs(base))) or 1.0)
     colors = [BLUE, ORANGE, "#5a8a3a", "#8a3a6a", "#3a7a8a", "#7a6a3a"]
-    with matplotlib.rc_context(FIGURE_STYLE):
+    with matplotlib.rc_context(FIGURE_STYLE):  # type: ignore[arg-type]
         fig, ax = subplots(figsize=(6.0, 3.4))
         ax.plot(base * scale, levels, color=GREY, lw=1.6, label="before")
         for k, option in enumerate(_options(ds)[: len(colors)]):
@@ -204,7 +204,7 @@ def benefit_figure(ds: xr.Dataset) -> bytes:
     """Cost against benefit of each upgrade (benefit as in ``attrs['benefit_metric']``)."""
     costs = np.asarray(ds["cost"].values, dtype=float)
     benefit = np.asarray(ds["benefit"].values, dtype=float)
-    with matplotlib.rc_context(FIGURE_STYLE):
+    with matplotlib.rc_context(FIGURE_STYLE):  # type: ignore[arg-type]
         fig, ax = subplots(figsize=(6.0, 3.6))
         ax.scatter(costs, benefit, color=BLUE, zorder=3)
         for name, x, y in zip(_options(ds), costs, benefit, strict=True):

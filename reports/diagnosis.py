@@ -39,7 +39,7 @@ def _days(ds: xr.Dataset) -> list[str]:
 def time_series_figure(ds: xr.Dataset) -> bytes:
     """Measured and predicted output per log entry; flagged days shaded."""
     time = ds["time"].values
-    with matplotlib.rc_context(FIGURE_STYLE):
+    with matplotlib.rc_context(FIGURE_STYLE):  # type: ignore[arg-type]
         fig, ax = subplots(figsize=(6.8, 2.9))
         for day, flagged in zip(ds["day"].values, ds["flagged"].values, strict=True):
             if flagged:
@@ -57,7 +57,7 @@ def attribution_figure(ds: xr.Dataset) -> bytes:
     level = float(ds.attrs.get("reference_level", 1.0)) or 1.0
     phi = np.asarray(ds["attribution"].values, dtype=float) / level
     x = np.arange(ds.sizes["day"])
-    with matplotlib.rc_context(FIGURE_STYLE):
+    with matplotlib.rc_context(FIGURE_STYLE):  # type: ignore[arg-type]
         fig, ax = subplots(figsize=(6.8, 3.2))
         pos = np.zeros(x.size)
         neg = np.zeros(x.size)

@@ -38,7 +38,7 @@ LIGHT_BLUE = "#9bbbd6"
 GREY = "#6b6b6b"
 ORANGE = "#b8641c"
 
-FIGURE_STYLE = {
+FIGURE_STYLE: dict[str, Any] = {
     "figure.facecolor": "white",
     "axes.facecolor": "white",
     "axes.edgecolor": "#444444",
@@ -99,7 +99,7 @@ def histogram_figure(samples: xr.Dataset, summary: xr.Dataset, output: str) -> b
     unit = units_of(samples, output)
     row = summary.sel(output=output)
     factor, unit_label = display_scale(unit, float(np.median(values)) if values.size else 1.0)
-    with matplotlib.rc_context(FIGURE_STYLE):
+    with matplotlib.rc_context(FIGURE_STYLE):  # type: ignore[arg-type]
         fig, ax = subplots(figsize=(5.6, 3.0))
         if values.size:
             bins = int(np.clip(np.sqrt(values.size), 10, 60))
@@ -140,7 +140,7 @@ def budget_figure(budget: xr.Dataset, output: str, *, top: int = 12) -> bytes:
         if "below_noise_floor" in row
         else np.zeros(len(names), dtype=bool)
     )
-    with matplotlib.rc_context(FIGURE_STYLE):
+    with matplotlib.rc_context(FIGURE_STYLE):  # type: ignore[arg-type]
         fig, ax = subplots(figsize=(5.6, 0.9 + 0.32 * len(names)))
         key, label = main_index(budget)
         total = np.asarray(row[key].values, dtype=float)
@@ -173,10 +173,10 @@ def scatter_figure(
     y_all = np.asarray(samples[output].values, dtype=float)
     n = y_all.size
     # An evenly spaced subsample: deterministic and keeps the design's spread.
-    index = np.unique(np.linspace(0, n - 1, min(n, max_points)).astype(int)) if n else []
+    index = np.unique(np.linspace(0, n - 1, min(n, max_points)).astype(int)) if n else []  # type: ignore[var-annotated]
     y = y_all[index]
     y_factor, y_unit = display_scale(units_of(samples, output), float(np.nanmedian(y)) if n else 1)
-    with matplotlib.rc_context(FIGURE_STYLE):
+    with matplotlib.rc_context(FIGURE_STYLE):  # type: ignore[arg-type]
         fig, axes = subplots(
             1, max(1, len(names)), figsize=(2.2 + 2.0 * max(1, len(names)), 2.6), squeeze=False
         )
@@ -198,7 +198,7 @@ def convergence_figure(budget: xr.Dataset, output: str, *, top: int = 6) -> byte
     names = _ranked_inputs(budget, output, top)
     history = budget[f"history_{key}"].sel(output=output)
     steps = np.asarray(budget["step_n_samples"].values, dtype=float)
-    with matplotlib.rc_context(FIGURE_STYLE):
+    with matplotlib.rc_context(FIGURE_STYLE):  # type: ignore[arg-type]
         fig, ax = subplots(figsize=(5.6, 3.0))
         for name in names:
             ax.plot(steps, history.sel(input=name).values, marker="o", ms=3, lw=1, label=name)
@@ -218,7 +218,7 @@ def interaction_figure(budget: xr.Dataset, output: str, *, top: int = 8) -> byte
     matrix = budget["second_order"].sel(output=output, input=names, input_b=names).values
     matrix = np.asarray(matrix, dtype=float)
     sym = np.where(np.isfinite(matrix), matrix, matrix.T)
-    with matplotlib.rc_context({**FIGURE_STYLE, "axes.grid": False}):
+    with matplotlib.rc_context({**FIGURE_STYLE, "axes.grid": False}):  # type: ignore[dict-item]
         fig, ax = subplots(figsize=(4.8, 4.0))
         image = ax.imshow(np.clip(sym, 0, None), cmap="Blues", vmin=0)
         labels = [n.replace("_", " ") for n in names]

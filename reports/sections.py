@@ -233,9 +233,9 @@ def outputs_section(datasets: Datasets, study: Mapping[str, Any]) -> Section | N
 
 
 def _ci(ds: xr.Dataset, key: str) -> str:
-    value = format_index(ds[key])
+    value = format_index(ds[key])  # type: ignore[arg-type]
     if f"{key}_low" in ds and f"{key}_high" in ds:
-        return f"{value} [{format_index(ds[f'{key}_low'])}, {format_index(ds[f'{key}_high'])}]"
+        return f"{value} [{format_index(ds[f'{key}_low'])}, {format_index(ds[f'{key}_high'])}]"  # type: ignore[arg-type]
     return value
 
 

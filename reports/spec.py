@@ -163,7 +163,7 @@ def tolerance_figure(allocation: xr.Dataset) -> bytes:
             for n in free
         ]
     )
-    with matplotlib.rc_context(FIGURE_STYLE):
+    with matplotlib.rc_context(FIGURE_STYLE):  # type: ignore[arg-type]
         fig, ax = subplots(figsize=(6.0, 0.42 * len(free) + 1.3))
         y = np.arange(len(free))
         finite = np.where(np.isfinite(ratio), ratio, 1.0)

@@ -30,7 +30,7 @@ def prediction_table(linear: xr.Dataset, *, title: str = "", top: int = 3) -> Ta
         ("relative", "right"),
         ("largest contributions |c| u", "left"),
     ):
-        table.add_column(column, justify=justify)
+        table.add_column(column, justify=justify)  # type: ignore[arg-type]
     inputs = [str(i) for i in linear["input"].values]
     for name in [str(o) for o in linear["output"].values]:
         row = linear.sel(output=name)
@@ -66,7 +66,7 @@ def budget_tables(summary: xr.Dataset, budget: xr.Dataset, *, top: int = 5) -> l
             ("first order", "right"),
             ("sqrt(variance share)", "right"),
         ):
-            table.add_column(column, justify=justify)
+            table.add_column(column, justify=justify)  # type: ignore[arg-type]
         brow = budget.sel(output=name)
         order = np.argsort(np.asarray(brow["rank"].values, dtype=float), kind="stable")[:top]
         std = float(brow["output_std"]) if "output_std" in brow else float("nan")

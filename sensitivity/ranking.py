@@ -235,7 +235,7 @@ def rank(
     )
     ds.attrs.setdefault("converged", True)
     for name in ds.data_vars:
-        if name.startswith(("first_order", "total_order", "delta", "group_", "second_order")):
+        if name.startswith(("first_order", "total_order", "delta", "group_", "second_order")):  # type: ignore[attr-defined]
             ds[name].attrs.setdefault("units", "1")
     return ds
 
@@ -293,16 +293,16 @@ def _rank_sobol(
         if groups:
             parts.add({"G": y[design.n_evaluations :].reshape(len(groups), new, -1)})
         return analyze_budget(
-            parts.joined("A"),
-            parts.joined("B"),
-            parts.joined("AB", 1),
+            parts.joined("A"),  # type: ignore[arg-type]
+            parts.joined("B"),  # type: ignore[arg-type]
+            parts.joined("AB", 1),  # type: ignore[arg-type]
             parts.joined("BA", 1),
             inputs=runner.names,
-            outputs=runner.outputs,
+            outputs=runner.outputs,  # type: ignore[arg-type]
             f_AB_groups=parts.joined("G", 1),
             groups=groups,
             dummy_samples=parts.dummy(),
-            output_units=_units(runner.model, runner.outputs, "outputs"),
+            output_units=_units(runner.model, runner.outputs, "outputs"),  # type: ignore[arg-type]
             **opts.analysis(),
         )
 
@@ -342,17 +342,17 @@ def _rank_dependent(
             | _dummy_pieces(base, d, width)
         )
         ds = analyze_budget(
-            parts.joined("A"),
-            parts.joined("B"),
-            parts.joined("C", 1),
+            parts.joined("A"),  # type: ignore[arg-type]
+            parts.joined("B"),  # type: ignore[arg-type]
+            parts.joined("C", 1),  # type: ignore[arg-type]
             f_AB_total=parts.joined("D", 1),
             f_AB_groups=parts.joined("CG", 1),
             f_AB_groups_total=parts.joined("DG", 1),
             groups=groups,
             inputs=runner.names,
-            outputs=runner.outputs,
+            outputs=runner.outputs,  # type: ignore[arg-type]
             dummy_samples=parts.dummy(),
-            output_units=_units(runner.model, runner.outputs, "outputs"),
+            output_units=_units(runner.model, runner.outputs, "outputs"),  # type: ignore[arg-type]
             **opts.analysis(),
         )
         ds["interaction"].attrs["long_name"] = (
@@ -421,8 +421,8 @@ def _given_data_budget(table: xr.Dataset, y: np.ndarray, runner: _Runner, *, dum
         floor = np.maximum(table["first_order_high"].sel(input=DUMMY).values, 0.0)
         delta_floor = table["delta_high"].sel(input=DUMMY).values
     else:
-        floor = np.zeros(len(runner.outputs))
-        delta_floor = np.zeros(len(runner.outputs))
+        floor = np.zeros(len(runner.outputs))  # type: ignore[arg-type]
+        delta_floor = np.zeros(len(runner.outputs))  # type: ignore[arg-type]
     ds["noise_floor"] = ("output", floor)
     ds["delta_noise_floor"] = ("output", delta_floor)
     ds["below_noise_floor"] = (ds["first_order"] < ds["noise_floor"]) & (
@@ -440,7 +440,7 @@ def _given_data_budget(table: xr.Dataset, y: np.ndarray, runner: _Runner, *, dum
     ds["output_std"] = ("output", std)
     ds["variance_share"] = ds["first_order"] * xr.DataArray(std**2, dims="output")
     ds["variance_share"].attrs["long_name"] = "full first order x Var(Y), output units squared"
-    _unit_attrs(ds, _units(runner.model, runner.outputs, "outputs"))
+    _unit_attrs(ds, _units(runner.model, runner.outputs, "outputs"))  # type: ignore[arg-type]
     ds.attrs.update(
         method="delta",
         dummy=bool(dummy),

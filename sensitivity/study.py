@@ -90,7 +90,7 @@ class Study:
     def _headline(self) -> list[tuple[str, str, str]]:
         summary = self.datasets.get("summary")
         budget = self.datasets.get("budget")
-        rows = []
+        rows = []  # type: ignore[var-annotated]
         if summary is None:
             return rows
         for output in summary["output"].values:
@@ -189,7 +189,7 @@ def run_study(
         scenario.model,
         scenario.inputs,
         n_samples=options.n_samples,
-        method=options.method,
+        method=options.method,  # type: ignore[arg-type]
         correlation=scenario.correlation,
         rng=np.random.default_rng(mc_seed),
         outputs=outputs,

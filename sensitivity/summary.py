@@ -62,7 +62,7 @@ def _output_names(samples: xr.Dataset, outputs: Sequence[str] | None) -> list[st
                 key="outputs.names",
             )
         return list(outputs)
-    return [name for name, var in samples.data_vars.items() if var.attrs.get("role") == "output"]
+    return [name for name, var in samples.data_vars.items() if var.attrs.get("role") == "output"]  # type: ignore[misc]
 
 
 def summarize(

@@ -213,7 +213,7 @@ def allocate(
     from trapbudget.sensitivity.decisions.compare import common_random_samples
     from trapbudget.sensitivity.sampling import unit_design
 
-    requirements = tuple(scenario.requirements)  # type: ignore[attr-defined]
+    requirements = tuple(scenario.requirements)
     source = getattr(scenario, "source", None)
     if not requirements:
         raise ScenarioError(
@@ -221,7 +221,7 @@ def allocate(
             path=source,
             key="requirements",
         )
-    if not scenario.costs:  # type: ignore[attr-defined]
+    if not scenario.costs:
         raise ScenarioError(
             "no cost tables, so no input is free to change; add [costs.<input>] tiers or smooth",
             path=source,
@@ -231,7 +231,7 @@ def allocate(
     setup = _linear_setup(scenario, requirements, labels)
     options = scenario.settings.resolve(n_samples=n_samples, method=method, rng=rng)
     n, m, seed = options.n_samples, options.method, options.rng
-    unit = unit_design(n, len(scenario.inputs), method=m, rng=seed)  # type: ignore[attr-defined]
+    unit = unit_design(n, len(scenario.inputs), method=m, rng=seed)  # type: ignore[arg-type]
 
     bounds = setup.bounds.astype(float).copy()
     best = None
@@ -265,15 +265,15 @@ def allocate(
             candidate, samples, checks = seen[key]
         else:
             repeats = 0
-            candidate = scenario.with_tolerances(tolerances)  # type: ignore[attr-defined]
+            candidate = scenario.with_tolerances(tolerances)
             (samples,) = common_random_samples(
                 [candidate], n_samples=n, method=m, unit=unit, progress=progress
-            )  # type: ignore[arg-type]
+            )
             checks = _check(samples, requirements, safety_margin=safety_margin)
             seen[key] = (candidate, samples, checks)
         passed = all(c["met"] for c in checks)
         history.append((solution.cost, passed))
-        last = (problem, solution, tolerances, (candidate, samples, checks))
+        last = (problem, solution, tolerances, (candidate, samples, checks))  # type: ignore[assignment]
         if passed and (best is None or solution.cost <= best[1].cost):
             best = last
         # a failing requirement is aimed a little inside its limit, so the bound is not
@@ -306,7 +306,7 @@ def allocate(
     if not refine and last is not None and last[3] is not None:
         best = last  # the linear answer as it stands; its Monte Carlo check is reported
     chosen = best if best is not None else last
-    problem, solution, tolerances, verified = chosen  # type: ignore[misc]
+    problem, solution, tolerances, verified = chosen  # type: ignore[assignment,misc]
     feasible = best is not None
     if not solution.feasible:
         r = labels.index(failing) if failing in labels else 0
@@ -324,7 +324,7 @@ def allocate(
                 "room; add a tighter tier for it or relax the requirement"
             )
     elif not feasible:
-        bad = [labels[r] for r, c in enumerate(verified[2]) if not c["met"]]
+        bad = [labels[r] for r, c in enumerate(verified[2]) if not c["met"]]  # type: ignore[index]
         failing = bad[0] if bad else ""
         reason = (
             f"the linear allocation fails the Monte Carlo check of '{', '.join(bad)}' after "
@@ -334,7 +334,7 @@ def allocate(
     else:
         reason = f"all {len(requirements)} requirement(s) met at a cost of {solution.cost:.6g}"
         if not refine:
-            bad = [labels[r] for r, c in enumerate(verified[2]) if not c["met"]]
+            bad = [labels[r] for r, c in enumerate(verified[2]) if not c["met"]]  # type: ignore[index]
             reason = (
                 f"linear allocation at a cost of {solution.cost:.6g} (refinement off); the "
                 + (

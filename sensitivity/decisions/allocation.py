@@ -11,6 +11,7 @@ import xarray as xr
 from scipy import stats
 
 from trapbudget.sensitivity.errors import ScenarioError
+from trapbudget.sensitivity.scenario.core import Scenario
 
 __all__ = ["Allocation", "InfeasibleError"]
 
@@ -64,7 +65,7 @@ class Allocation:
     spec: xr.Dataset
     requirements: xr.Dataset
     tolerances: Mapping[str, object]
-    scenario: object | None = None
+    scenario: Scenario | None = None
     samples: xr.Dataset | None = None
     iterations: int = 0
     history: tuple[tuple[float, bool], ...] = ()

@@ -18,6 +18,8 @@ import numpy as np
 import xarray as xr
 
 from trapbudget.sensitivity.scenario.core import Scenario
+from trapbudget.sensitivity.scenario.requirements import Requirement
+from trapbudget.sensitivity.scenario.settings import Upgrade
 
 __all__ = [
     "common_random_samples",
@@ -37,29 +39,29 @@ QUANTILE_LEVELS = np.linspace(0.0, 1.0, 201)
 # ---------------------------------------------------------------------------
 
 
-def _uncertain_names(scenarios: Sequence[object]) -> list[str]:
+def _uncertain_names(scenarios: Sequence[Scenario]) -> list[str]:
     names: list[str] = []
     for scenario in scenarios:
-        for name in scenario.inputs:  # type: ignore[attr-defined]
+        for name in scenario.inputs:
             if name not in names:
                 names.append(name)
     return names
 
 
-def _required_outputs(scenario: object, outputs: Sequence[str] | None) -> list[str]:
-    wanted = list(outputs) if outputs is not None else list(scenario.outputs)  # type: ignore[attr-defined]
-    for req in scenario.requirements:  # type: ignore[attr-defined]
+def _required_outputs(scenario: Scenario, outputs: Sequence[str] | None) -> list[str]:
+    wanted = list(outputs) if outputs is not None else list(scenario.outputs)
+    for req in scenario.requirements:
         if req.output not in wanted:
             wanted.append(req.output)
     return wanted
 
 
 def common_random_samples(
-    scenarios: Sequence[object],
+    scenarios: Sequence[Scenario],
     *,
     n_samples: int,
     method: str = "sobol",
-    rng: object = None,
+    rng: int | np.random.Generator | None = None,
     outputs: Sequence[str] | None = None,
     unit: np.ndarray | None = None,
     chunk_size: int = 65536,
@@ -113,17 +115,17 @@ def common_random_samples(
 
     names = _uncertain_names(scenarios)
     if unit is None:
-        unit = unit_design(n_samples, len(names), method=method, rng=rng)
+        unit = unit_design(n_samples, len(names), method=method, rng=rng)  # type: ignore[arg-type]
     unit = np.asarray(unit, dtype=float)
     total = len(scenarios) * unit.shape[0]
     results = []
     for k, scenario in enumerate(scenarios):
-        own = list(scenario.inputs)  # type: ignore[attr-defined]
+        own = list(scenario.inputs)
         columns = unit[:, [names.index(n) for n in own]]
         values = transform(
             columns,
-            [scenario.inputs[n] for n in own],  # type: ignore[attr-defined]
-            correlation=scenario.correlation,  # type: ignore[attr-defined]
+            [scenario.inputs[n] for n in own],
+            correlation=scenario.correlation,
         )
         mapping = {n: values[:, i] for i, n in enumerate(own)}
 
@@ -131,7 +133,7 @@ def common_random_samples(
             if progress is not None:
                 progress(k * unit.shape[0] + done, total)
 
-        result = evaluate_in_chunks(scenario.model, mapping, chunk_size=chunk_size, progress=step)  # type: ignore[attr-defined]
+        result = evaluate_in_chunks(scenario.model, mapping, chunk_size=chunk_size, progress=step)
         results.append(_samples_dataset(scenario, mapping, result, outputs, method=method))
     return results
 
@@ -181,7 +183,7 @@ def _samples_dataset(scenario, inputs, result, outputs, *, method) -> xr.Dataset
 # ---------------------------------------------------------------------------
 
 
-def requirement_indicator(values: np.ndarray, requirement: object) -> np.ndarray | None:
+def requirement_indicator(values: np.ndarray, requirement: Requirement) -> np.ndarray | None:
     """Per-sample indicator that a requirement holds (None for a spread requirement).
 
     Parameters
@@ -197,9 +199,9 @@ def requirement_indicator(values: np.ndarray, requirement: object) -> np.ndarray
         ``None`` for ``"relative_spread_at_most"``, a property of the whole
         distribution rather than of one run.
     """
-    if requirement.kind == "relative_spread_at_most":  # type: ignore[attr-defined]
+    if requirement.kind == "relative_spread_at_most":
         return None
-    return np.asarray(requirement.satisfied(values), dtype=bool)  # type: ignore[attr-defined]
+    return np.asarray(requirement.satisfied(values), dtype=bool)
 
 
 def _quantiles(values: np.ndarray, confidence_level: float) -> tuple[float, float]:
@@ -208,9 +210,9 @@ def _quantiles(values: np.ndarray, confidence_level: float) -> tuple[float, floa
     return float(lo), float(hi)
 
 
-def _label(requirement: object, index: int) -> str:
+def _label(requirement: Requirement, index: int) -> str:
     label = getattr(requirement, "label", "") or ""
-    return label or f"{requirement.output} {requirement.kind} #{index + 1}"  # type: ignore[attr-defined]
+    return label or f"{requirement.output} {requirement.kind} #{index + 1}"
 
 
 def compare_samples(
@@ -218,7 +220,7 @@ def compare_samples(
     after: xr.Dataset,
     *,
     outputs: Sequence[str] | None = None,
-    requirements: Sequence[object] = (),
+    requirements: Sequence[Requirement] = (),
     confidence_level: float = 0.95,
     repetition_rate: float | None = None,
     cost: float | None = None,
@@ -269,7 +271,7 @@ def compare_samples(
     n = int(before.sizes["sample"])
     if outputs is None:
         outputs = [
-            v
+            v  # type: ignore[misc]
             for v in before.data_vars
             if before[v].attrs.get("role") == "output" and v in after.data_vars
         ]
@@ -317,8 +319,8 @@ def compare_samples(
     rate = math.nan if repetition_rate is None else float(repetition_rate)
     for i, req in enumerate(requirements):
         labels.append(_label(req, i))
-        b = np.asarray(before[req.output].values, dtype=float)  # type: ignore[attr-defined]
-        a = np.asarray(after[req.output].values, dtype=float)  # type: ignore[attr-defined]
+        b = np.asarray(before[req.output].values, dtype=float)
+        a = np.asarray(after[req.output].values, dtype=float)
         ib, ia = requirement_indicator(b, req), requirement_indicator(a, req)
         row = dict.fromkeys(
             (
@@ -333,13 +335,13 @@ def compare_samples(
             ),
             math.nan,
         )
-        row["target"] = math.nan if req.probability is None else float(req.probability)  # type: ignore[attr-defined]
+        row["target"] = math.nan if req.probability is None else float(req.probability)
         if ib is None:
             row["relative_spread_before"] = float(np.std(b, ddof=1) / abs(np.mean(b)))
             row["relative_spread_after"] = float(np.std(a, ddof=1) / abs(np.mean(a)))
         else:
-            pb, pa = float(ib.mean()), float(ia.mean())
-            flips = ia.astype(float) - ib.astype(float)
+            pb, pa = float(ib.mean()), float(ia.mean())  # type: ignore[union-attr]
+            flips = ia.astype(float) - ib.astype(float)  # type: ignore[union-attr]
             row.update(
                 probability_before=pb,
                 probability_after=pa,
@@ -348,8 +350,8 @@ def compare_samples(
                 failing_per_day_before=(1.0 - pb) * rate * SECONDS_PER_DAY,
                 failing_per_day_after=(1.0 - pa) * rate * SECONDS_PER_DAY,
             )
-        row["output_name"] = req.output  # type: ignore[attr-defined]
-        row["kind"] = req.kind  # type: ignore[attr-defined]
+        row["output_name"] = req.output  # type: ignore[assignment]
+        row["kind"] = req.kind  # type: ignore[assignment]
         rows.append(row)
     if rows:
         coords = {"requirement": labels}
@@ -382,11 +384,11 @@ def _settings(scenario: Scenario, n_samples, method, rng):
 
 
 def compare(
-    before: object,
-    after: object,
+    before: Scenario,
+    after: Scenario,
     *,
     n_samples: int | None = None,
-    rng: object = None,
+    rng: int | np.random.Generator | None = None,
     method: str | None = None,
     outputs: Sequence[str] | None = None,
     repetition_rate: float | None = None,
@@ -429,7 +431,7 @@ def compare(
         samples_before,
         samples_after,
         outputs=outs,
-        requirements=before.requirements,  # type: ignore[attr-defined]
+        requirements=before.requirements,
         confidence_level=level,
         repetition_rate=repetition_rate,
         cost=cost,
@@ -460,11 +462,11 @@ def _benefit(parts: Sequence[xr.Dataset]) -> tuple[np.ndarray, str]:
 
 
 def compare_upgrades(
-    scenario: object,
-    upgrades: Sequence[object] | None = None,
+    scenario: Scenario,
+    upgrades: Sequence[Upgrade] | None = None,
     *,
     n_samples: int | None = None,
-    rng: object = None,
+    rng: int | np.random.Generator | None = None,
     method: str | None = None,
     outputs: Sequence[str] | None = None,
     repetition_rate: float | None = None,
@@ -498,7 +500,7 @@ def compare_upgrades(
     """
     from trapbudget.sensitivity.errors import ScenarioError
 
-    upgrades = list(scenario.upgrades if upgrades is None else upgrades)  # type: ignore[attr-defined]
+    upgrades = list(scenario.upgrades if upgrades is None else upgrades)
     if not upgrades:
         raise ScenarioError(
             "no upgrades to compare; add [[upgrades]] tables (name, cost, changes)",
@@ -507,7 +509,7 @@ def compare_upgrades(
         )
     n, m, r, level = _settings(scenario, n_samples, method, rng)
     outs = list(outputs) if outputs is not None else _required_outputs(scenario, None)
-    afters = [scenario.apply_upgrade(u) for u in upgrades]  # type: ignore[attr-defined]
+    afters = [scenario.apply_upgrade(u) for u in upgrades]
     samples = common_random_samples(
         [scenario, *afters], n_samples=n, method=m, rng=r, outputs=outs, progress=progress
     )
@@ -518,13 +520,13 @@ def compare_upgrades(
                 samples[0],
                 after,
                 outputs=outs,
-                requirements=scenario.requirements,  # type: ignore[attr-defined]
+                requirements=scenario.requirements,
                 confidence_level=level,
                 repetition_rate=repetition_rate,
-                cost=float(upgrade.cost),  # type: ignore[attr-defined]
+                cost=float(upgrade.cost),
             )
         )
-    names = [str(u.name) for u in upgrades]  # type: ignore[attr-defined]
+    names = [str(u.name) for u in upgrades]
     ds = xr.concat(
         parts,
         dim=xr.DataArray(names, dims="upgrade", name="upgrade"),
@@ -536,7 +538,7 @@ def compare_upgrades(
     for key in ("requirement_output", "kind"):
         if key in ds:
             ds[key] = ds[key].isel(upgrade=0, drop=True)
-    costs = np.array([float(u.cost) for u in upgrades])  # type: ignore[attr-defined]
+    costs = np.array([float(u.cost) for u in upgrades])
     benefit, metric = _benefit(parts)
     with np.errstate(divide="ignore", invalid="ignore"):
         per_cost = np.where(

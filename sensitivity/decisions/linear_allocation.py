@@ -73,9 +73,9 @@ def uncertainty_bound(
         raise ValueError(f"probability must lie in (0, 1]; got {p}")
     p = min(p, 1.0 - 1e-9)  # certainty is out of reach of a normal output: about 6 sigma
     if kind == "relative_spread_at_most":
-        return float(limit) * abs(mean)
+        return float(limit) * abs(mean)  # type: ignore[arg-type]
     if kind in ("at_least", "at_most"):
-        margin = (mean - float(limit)) if kind == "at_least" else (float(limit) - mean)
+        margin = (mean - float(limit)) if kind == "at_least" else (float(limit) - mean)  # type: ignore[arg-type]
         z = stats.norm.ppf(p)
         if abs(z) < 1e-12:
             return math.inf if margin >= 0 else 0.0
@@ -415,7 +415,7 @@ def allocate_tiers(
     """
     budgets = np.asarray(problem.budgets, dtype=float)
     n_req = len(budgets)
-    tiers = [sorted(range(len(opts)), key=lambda k, o=opts: o[k].cost) for opts in problem.tiers]
+    tiers = [sorted(range(len(opts)), key=lambda k, o=opts: o[k].cost) for opts in problem.tiers]  # type: ignore[misc]
     variances = [
         np.array([problem.tiered_sensitivity[:, j] * o.standard_uncertainty**2 for o in opts]).T
         if len(opts)
@@ -440,13 +440,13 @@ def allocate_tiers(
     choice = [0] * n
 
     def visit(j: int, cost_so_far: float, var_so_far: np.ndarray) -> None:
-        if cost_so_far + rest_cost[j] >= best["cost"]:  # type: ignore[operator]
+        if cost_so_far + rest_cost[j] >= best["cost"]:
             return
         if np.any(var_so_far + rest_var[j] + smooth_floor >= budgets):
             return
         if j == n:
             t, c = _smooth_part(problem, budgets - var_so_far)
-            if t is not None and cost_so_far + c < best["cost"]:  # type: ignore[operator]
+            if t is not None and cost_so_far + c < best["cost"]:
                 best.update(cost=cost_so_far + c, index=tuple(choice), smooth=t)
             return
         for k in tiers[j]:
@@ -468,13 +468,13 @@ def allocate_tiers(
     index = best["index"]
     t = best["smooth"]
     variance = np.asarray(problem.fixed_variance, dtype=float).copy()
-    for j, k in enumerate(index):  # type: ignore[arg-type]
+    for j, k in enumerate(index):  # type: ignore[arg-type,var-annotated]
         variance += variances[j][:, k]
     if len(problem.smooth):
         variance += _variance(problem.smooth_weights, t)  # type: ignore[arg-type]
     return TierSolution(
         True,
-        float(best["cost"]),
+        float(best["cost"]),  # type: ignore[arg-type]
         tuple(index),  # type: ignore[arg-type]
         np.asarray(t),
         variance,
@@ -493,5 +493,5 @@ def _infeasibility_named(problem: LinearProblem, fixed_parts: Mapping[str, np.nd
         pressure = np.where(problem.budgets > 0, total / problem.budgets, np.inf)
     r = int(np.argmax(pressure))
     parts = {name: float(v[r]) for name, v in {**dict(fixed_parts), **tight}.items()}
-    blocking = max(parts, key=parts.get) if parts else ""
+    blocking = max(parts, key=parts.get) if parts else ""  # type: ignore[arg-type]
     return problem.requirements[r], blocking

@@ -335,8 +335,8 @@ def _add_second_order(ds: xr.Dataset, res: SobolResult, inputs, outputs) -> None
     ds.coords["input_b"] = list(inputs)
     for key, values in (
         ("second_order", res.second_order),
-        ("second_order_low", res.second_order_interval.low),
-        ("second_order_high", res.second_order_interval.high),
+        ("second_order_low", res.second_order_interval.low),  # type: ignore[union-attr]
+        ("second_order_high", res.second_order_interval.high),  # type: ignore[union-attr]
     ):
         v = np.asarray(values).reshape(d, d, m)
         ds[key] = (("output", "input", "input_b"), np.moveaxis(v, -1, 0))

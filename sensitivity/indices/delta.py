@@ -79,7 +79,7 @@ def _delta_estimates(
         for offset, share in ((0, 1.0 - frac), (1, frac)):
             codes = base + offset
             hist += _weighted_bincount(codes, share, w, n_bins * grid_size)
-        hist = hist.reshape(r, n_bins, grid_size)
+        hist = hist.reshape(r, n_bins, grid_size)  # type: ignore[assignment]
         cls = classes[:, j]
         counts = _weighted_bincount(cls, np.ones(n), w, n_bins)  # (r, c)
         s1 = _weighted_bincount(cls, y, w, n_bins)

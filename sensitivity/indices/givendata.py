@@ -118,7 +118,7 @@ def first_order_given_data(
         reps = []
         for start in range(0, n_bootstrap, per_block):
             reps.append(estimate(resample_weights(r[:, start : start + per_block])))
-        reps = np.concatenate(reps)
+        reps = np.concatenate(reps)  # type: ignore[assignment]
         alpha = (1 - confidence_level) / 2
         low, high = np.quantile(reps, [alpha, 1 - alpha], axis=0)
     else:

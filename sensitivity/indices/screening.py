@@ -115,7 +115,7 @@ def morris(
         lo, hi = dist.support()
         low.append(lo if np.isfinite(lo) else dist.ppf(tail))
         high.append(hi if np.isfinite(hi) else dist.ppf(1 - tail))
-    low, high = np.array(low, float), np.array(high, float)
+    low, high = np.array(low, float), np.array(high, float)  # type: ignore[assignment]
     quantile_low = np.array([d.cdf(v) for d, v in zip(uncertain.values(), low, strict=True)])
     quantile_high = np.array([d.cdf(v) for d, v in zip(uncertain.values(), high, strict=True)])
     q = quantile_low + unit * (quantile_high - quantile_low)
@@ -156,7 +156,7 @@ def morris(
     ds["mu_star_low"] = ds["mu_star"] - table["mu_star_conf"]
     ds["mu_star_high"] = ds["mu_star"] + table["mu_star_conf"]
     delta_step = levels / (2 * (levels - 1))
-    ds["step"] = ("input", delta_step * (high - low))
+    ds["step"] = ("input", delta_step * (high - low))  # type: ignore[operator]
     ds["step"].attrs.update(long_name="input change of one grid step (SI)")
     ds["step"].attrs["units"] = [_units(model, names, "inputs")[n] for n in names]
     ds["mu"].attrs["long_name"] = "mean elementary effect"

@@ -113,7 +113,7 @@ class SaltelliDesign:
         n, k = self.n_samples, self.AB.shape[0]
         blocks = values.reshape(-1, n, *values.shape[1:])
         f_ba = None if self.BA is None else blocks[2 + k :]
-        return blocks[0], blocks[1], blocks[2 : 2 + k], f_ba
+        return blocks[0], blocks[1], blocks[2 : 2 + k], f_ba  # type: ignore[return-value]
 
 
 def _sobol_engine(dimension: int, rng) -> qmc.Sobol:
@@ -207,7 +207,7 @@ def design_from_base(
     factors = tuple(tuple(f) for f in factors)
     AB = cross_matrices(A, B, factors)
     BA = cross_matrices(B, A, factors) if second_order else None
-    return SaltelliDesign(A=A, B=B, AB=AB, BA=BA, factors=factors)
+    return SaltelliDesign(A=A, B=B, AB=AB, BA=BA, factors=factors)  # type: ignore[arg-type]
 
 
 @dataclass(frozen=True)
@@ -438,8 +438,8 @@ def sobol_indices(
         fo_iv = ConfidenceInterval(fo_iv.low[..., 0], fo_iv.high[..., 0])
         to_iv = ConfidenceInterval(to_iv.low[..., 0], to_iv.high[..., 0])
         if second is not None:
-            second, so_se = second[..., 0], so_se[..., 0]
-            so_iv = ConfidenceInterval(so_iv.low[..., 0], so_iv.high[..., 0])
+            second, so_se = second[..., 0], so_se[..., 0]  # type: ignore[index]
+            so_iv = ConfidenceInterval(so_iv.low[..., 0], so_iv.high[..., 0])  # type: ignore[union-attr]
     raw = np.concatenate([np.asarray(f_A, float), np.asarray(f_B, float)])
     mean, variance = raw.mean(axis=0), raw.var(axis=0)
     return SobolResult(

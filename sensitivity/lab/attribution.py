@@ -86,4 +86,4 @@ def shapley_attribution(
         without = index[~masks[:, i]]
         with_i = without | (1 << i)
         attribution[:, i] = (out[:, with_i] - out[:, without]) @ weight[size[without]]
-    return attribution, out[:, -1] - out[:, 0], out[0, 0] if n else np.nan
+    return attribution, out[:, -1] - out[:, 0], out[0, 0] if n else np.nan  # type: ignore[return-value]

@@ -358,7 +358,7 @@ def _least_squares(
     low = np.array([model.inputs[n].low for n in fitted]) / scale
     high = np.array([model.inputs[n].high for n in fitted]) / scale
 
-    def residual(p: np.ndarray) -> np.ndarray:
+    def residual(p: np.ndarray) -> np.ndarray:  # type: ignore[no-redef]
         constants = {**fixed, **dict(zip(fitted, p * scale, strict=True))}
         return (_predict(model, base_values, obs, constants) - obs.value) / sigma
 
@@ -384,7 +384,7 @@ def _least_squares(
             )
             if best is None or res.cost < best.cost:
                 best = res
-    x = best.x
+    x = best.x  # type: ignore[union-attr]
     jac = _central_jacobian(residual, x, low, high) / scale[np.newaxis, :]
     return {
         "values": dict(zip(fitted, (x * scale).tolist(), strict=True)),

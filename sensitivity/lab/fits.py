@@ -189,7 +189,7 @@ def fit_loading_curve(
         def func(p):
             return loading_curve(t, p[0], p[1], p[2])
     else:
-        names = ("steady_state", "time_constant")
+        names = ("steady_state", "time_constant")  # type: ignore[assignment]
         x0 = np.array([n_s0, tau0])
         bounds = (np.array([0.0, 0.0]), np.array([np.inf, np.inf]))
 

@@ -184,7 +184,7 @@ def to_observations(
                 fit = fit_time_of_flight(
                     mset.columns["time"][rows],
                     mset.columns[signal][rows],
-                    mass=float(mass),
+                    mass=float(mass),  # type: ignore[arg-type]
                     uncertainty=sigma,
                     robust=robust,
                     label=where,

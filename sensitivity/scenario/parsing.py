@@ -117,7 +117,7 @@ def _parse_inputs(raw: Mapping[str, Any], *, model, path):
                 shape=shape,
                 relative=relative,
                 text=str(table["tolerance"]),
-                bounds=bounds,
+                bounds=bounds,  # type: ignore[arg-type]
                 unit=unit,
                 where=key,
             )

@@ -71,8 +71,8 @@ class Requirement:
             low, high = self.limit  # type: ignore[misc]
             if not low < high:
                 raise ScenarioError(
-                    f"within = {list(self.limit)!r} must be [low, high], low < high"
-                )  # type: ignore[arg-type]
+                    f"within = {list(self.limit)!r} must be [low, high], low < high"  # type: ignore[arg-type]
+                )
         if self.kind == "relative_spread_at_most":
             if self.probability is not None:
                 raise ScenarioError("relative_spread_at_most takes no probability; remove it")
@@ -188,7 +188,7 @@ def parse_requirements(
             )
         label = str(table.get("label", ""))
         try:
-            out.append(Requirement(output, kind, limit, probability, label))
+            out.append(Requirement(output, kind, limit, probability, label))  # type: ignore[arg-type]
         except ScenarioError as error:
             raise ScenarioError(error.message, path=path, key=key) from None
     return tuple(out)

@@ -37,7 +37,7 @@ def draw_seed() -> int:
     """A fresh seed from the operating system's entropy, to be recorded with the results."""
     import numpy as np
 
-    return int(np.random.SeedSequence().entropy % 2**32)
+    return int(np.random.SeedSequence().entropy % 2**32)  # type: ignore[operator]
 
 
 @dataclass(frozen=True)

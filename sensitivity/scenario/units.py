@@ -58,7 +58,7 @@ def _build_registry() -> pint.UnitRegistry:
         if old not in text:  # pragma: no cover - depends on the pint release
             raise ImportError(f"pint definitions changed: {old!r} not found")
         text = text.replace(old, new)
-    registry = pint.UnitRegistry(None)
+    registry = pint.UnitRegistry(None)  # type: ignore[var-annotated]
     registry.load_definitions(str(folder / "constants_en.txt"))
     registry.load_definitions(text.splitlines())
     return registry
@@ -148,7 +148,7 @@ def _split(text: str | float | int, *, unit: str, where: str, path: object | Non
     if isinstance(text, int | float):
         return float(text), ""
     if is_quantity(text):  # a pint Quantity from Python: its magnitude and unit name
-        return float(text.magnitude), str(text.units)
+        return float(text.magnitude), str(text.units)  # type: ignore[attr-defined]
     if not isinstance(text, str):
         raise ScenarioError(
             f"{text!r} is not a quantity; write a string such as '1 {unit or ''}'".rstrip(),
