@@ -8,9 +8,11 @@ its context as attributes, and pickles. The command line catches only
 from __future__ import annotations
 
 __all__ = [
+    "ConvergenceWarning",
     "DataError",
     "ScenarioError",
     "TrapbudgetError",
+    "TrapbudgetWarning",
     "UsageError",
 ]
 
@@ -62,3 +64,11 @@ class UsageError(TrapbudgetError):
 
 def _rebuild(cls, message, path, key):
     return cls(message, path=path, key=key)
+
+
+class TrapbudgetWarning(UserWarning):
+    """Base class of every warning trapbudget gives (filter them by this category)."""
+
+
+class ConvergenceWarning(TrapbudgetWarning):
+    """An iterative procedure stopped at its limit before meeting its tolerance."""

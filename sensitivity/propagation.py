@@ -27,7 +27,7 @@ import xarray as xr
 from numpy.typing import ArrayLike
 
 from trapbudget.models.protocol import ModelError
-from trapbudget.sensitivity.errors import ScenarioError
+from trapbudget.sensitivity.errors import ConvergenceWarning, ScenarioError, TrapbudgetWarning
 from trapbudget.sensitivity.protocol import (
     BoundModel,
     as_model,
@@ -42,7 +42,7 @@ from trapbudget.sensitivity.summary import _output_names, coverage_interval, num
 __all__ = ["ModelValidityWarning", "propagate", "propagate_adaptive", "select_outputs"]
 
 
-class ModelValidityWarning(UserWarning):
+class ModelValidityWarning(TrapbudgetWarning):
     """Some samples fell outside the model's region of validity."""
 
 
@@ -359,7 +359,7 @@ def propagate_adaptive(
         warnings.warn(
             f"adaptive Monte Carlo did not converge within max_samples={max_samples}; "
             "raise max_samples or lower significant_digits",
-            RuntimeWarning,
+            ConvergenceWarning,
             stacklevel=2,
         )
     return result

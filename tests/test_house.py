@@ -168,3 +168,16 @@ def test_modules_stay_small(layer):
 @pytest.mark.parametrize("layer", sorted(PACKAGES))
 def test_packages_ship_type_information(layer):
     assert (ROOT / PACKAGES[layer] / "py.typed").is_file()
+
+
+def test_the_projects_warnings_are_errors_in_the_suite_wherever_attributed():
+    # pyproject's filterwarnings is by category: a model-validity warning attributed to the
+    # caller's module (stacklevel) still fails a test that did not expect it.
+    import scipy.stats as st
+
+    from trapbudget.models import VaporCellMOT
+    from trapbudget.sensitivity import ModelValidityWarning, propagate
+
+    blue = {"detuning": st.uniform(1e6, 1e6)}  # blue of resonance: no trap, flagged
+    with pytest.raises(ModelValidityWarning, match=r"fell outside the validity"):
+        propagate(VaporCellMOT(), blue, n_samples=16, rng=0)

@@ -10,7 +10,7 @@ import pytest
 from scipy import optimize, special, stats
 
 from trapbudget.models.protocol import InputSpec, OutputSpec
-from trapbudget.sensitivity.errors import ScenarioError
+from trapbudget.sensitivity.errors import ConvergenceWarning, ScenarioError
 from trapbudget.sensitivity.io import load_dataset, save_dataset
 from trapbudget.sensitivity.propagation import ModelValidityWarning, propagate, propagate_adaptive
 from trapbudget.sensitivity.protocol import evaluate_in_chunks
@@ -128,7 +128,7 @@ def test_adaptive_procedure_converges():
 
 def test_adaptive_warns_when_not_converged():
     inputs = {"x1": stats.norm(0, 1), "x2": stats.norm(0, 1)}
-    with pytest.warns(RuntimeWarning, match=r"did not converge within max_samples=10000"):
+    with pytest.warns(ConvergenceWarning, match=r"did not converge within max_samples=10000"):
         ds = propagate_adaptive(
             LinearModel([1.0, 1.0]), inputs, rng=1, significant_digits=4, max_samples=10_000
         )

@@ -38,7 +38,7 @@ from typing import Any, Literal
 import numpy as np
 import xarray as xr
 
-from trapbudget.sensitivity.errors import ScenarioError
+from trapbudget.sensitivity.errors import ConvergenceWarning, ScenarioError
 from trapbudget.sensitivity.indices.givendata import first_order_given_data
 from trapbudget.sensitivity.indices.sobol import SobolResult, check_power_of_two, sobol_indices
 from trapbudget.sensitivity.protocol import evaluate_in_chunks, select_outputs, validity_counts
@@ -52,7 +52,7 @@ DUMMY = "dummy"
 _FULL_FIRST_ORDER = "full first-order index Var(E[Y|Xi])/Var(Y), correlations included"
 
 
-class BudgetConvergenceWarning(UserWarning):
+class BudgetConvergenceWarning(ConvergenceWarning):
     """The convergence loop stopped at ``max_samples`` before the indices settled."""
 
 
