@@ -1,4 +1,4 @@
-"""Monte Carlo propagation of distributions through a model, and its summary.
+"""Monte Carlo propagation of distributions through a model (fixed size or JCGM 101 adaptive).
 
 Notes
 -----

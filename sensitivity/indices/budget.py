@@ -1,8 +1,9 @@
-"""The error budget: global ranking of the inputs by Sobol' indices.
+"""The budget Dataset of a ranking: indices, intervals, ranks and GUM columns from a design.
 
-:func:`rank` runs the Saltelli design through a model and returns the budget
-Dataset (dims ``output``, ``input``) of DEVELOPERS.md; :func:`analyze_budget`
-does the analysis alone on precomputed evaluations.
+:func:`~trapbudget.sensitivity.ranking.rank` runs the Saltelli design through a
+model and returns the budget Dataset (dims ``output``, ``input``) of
+DEVELOPERS.md; :func:`analyze_budget` here does the analysis alone on
+precomputed evaluations.
 
 Columns of the budget
 ---------------------

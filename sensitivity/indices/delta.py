@@ -1,7 +1,6 @@
-"""Screening and given-data methods: Morris elementary effects, Borgonovo's delta.
+"""Borgonovo's delta and given-data first-order indices, on one sample of any dependence.
 
-:func:`morris` screens many inputs with few runs (SALib's trajectory design
-and statistics). :func:`delta_indices` works on data as given, so it also
+:func:`delta_indices` works on data as given, so it also
 serves correlated inputs, where Sobol' indices from a Saltelli design do not
 apply."""
 

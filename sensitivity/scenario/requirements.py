@@ -1,4 +1,6 @@
-"""Requirements on outputs, and their evaluation on Monte Carlo samples.
+"""Requirements on outputs, as a scenario states them.
+
+They are checked on samples in :mod:`trapbudget.sensitivity.compliance`.
 
 Notes
 -----
