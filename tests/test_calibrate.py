@@ -8,7 +8,11 @@ from typing import ClassVar
 
 import numpy as np
 import pytest
-import tomllib
+
+try:
+    import tomllib
+except ImportError:  # Python 3.10
+    import tomli as tomllib
 from scipy import optimize, stats
 
 from trapbudget.models import InputSpec, ModelError, OutputSpec

@@ -10,7 +10,11 @@ import textwrap
 
 import numpy as np
 import pytest
-import tomllib
+
+try:
+    import tomllib
+except ImportError:  # Python 3.10
+    import tomli as tomllib
 
 from trapbudget.sensitivity.errors import ScenarioError
 from trapbudget.sensitivity.protocol import BoundModel

@@ -74,8 +74,11 @@ class LogTable:
 
 
 def _parse_time(text: str, where: str) -> np.datetime64:
+    text = text.strip()
+    if text[-1:] in ("Z", "z"):  # UTC designator; Python 3.10's fromisoformat lacks it
+        text = text[:-1] + "+00:00"
     try:
-        stamp = _dt.datetime.fromisoformat(text.strip())
+        stamp = _dt.datetime.fromisoformat(text)
     except ValueError:
         raise DataError(
             f"timestamp {text!r} is not ISO 8601; write e.g. '2026-11-23T08:00:00'", path=where
