@@ -139,7 +139,7 @@ def test_diagnose_flags_the_injected_fault_day(capsys, demo, calibrated, tmp_pat
                 "--free",
                 "loading_prefactor",
             ],
-            "DataError: .*absent.csv: file not found",
+            "DataError: .*absent.csv: the data file does not exist",
         ),
         (
             [
@@ -173,7 +173,7 @@ def test_diagnose_flags_the_injected_fault_day(capsys, demo, calibrated, tmp_pat
                 "--mapping",
                 "{demo}/absent.toml",
             ],
-            "DataError: .*mapping file not found",
+            "DataError: .*the mapping file does not exist",
         ),
     ],
 )

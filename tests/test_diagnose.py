@@ -317,5 +317,5 @@ def test_mapping_from_a_toml_file(tmp_path):
     from_table = diagnose(scenario(), path)
     np.testing.assert_array_equal(from_file.attribution, from_table.attribution)
     assert list(np.flatnonzero(from_file.flagged)) == [2]
-    with pytest.raises(DataError, match="mapping file not found"):
+    with pytest.raises(DataError, match="the mapping file does not exist; check the path"):
         diagnose(scenario(), path, mapping=tmp_path / "absent.toml")

@@ -100,7 +100,7 @@ def test_bad_files_raise_one_line_data_errors(tmp_path, text, match):
 
 
 def test_missing_file_is_a_data_error(tmp_path):
-    with pytest.raises(DataError, match="file not found"):
+    with pytest.raises(DataError, match="the data file does not exist; check the path"):
         read_measurements(tmp_path / "absent.csv")
 
 

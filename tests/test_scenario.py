@@ -281,7 +281,7 @@ def test_correlation_not_positive_definite_names_inputs(tmp_path):
 
 
 def test_file_errors(tmp_path):
-    with pytest.raises(ScenarioError, match=r"cannot read the file"):
+    with pytest.raises(ScenarioError, match=r"the scenario file does not exist; check the path"):
         load_scenario(tmp_path / "missing.toml")
     bad = tmp_path / "syntax.toml"
     bad.write_text("[scenario\n")

@@ -21,6 +21,7 @@ except ImportError:  # pragma: no cover - Python 3.10
     import tomli as tomllib
 from trapbudget.sensitivity.io import atomic_write_text
 from trapbudget.sensitivity.lab.observations import Observations
+from trapbudget.sensitivity.textfiles import read_toml
 
 __all__ = ["Calibration", "CovarianceScaling", "FlatDirection"]
 
@@ -273,8 +274,7 @@ def _quantity_text(value: float, unit: str) -> Any:
 def _scenario_source_mapping(scenario: Any) -> dict[str, Any]:
     source = getattr(scenario, "source", None)
     if source is not None and Path(source).is_file():
-        with open(source, "rb") as handle:
-            return tomllib.load(handle)
+        return read_toml(source, what="scenario file")
     try:
         from trapbudget.sensitivity.scenario.writer import scenario_to_toml
     except ImportError:  # pragma: no cover - the scenario module is part of the package

@@ -16,6 +16,7 @@ import numpy as np
 
 from trapbudget.sensitivity.errors import DataError
 from trapbudget.sensitivity.scenario.units import suggest_unit, ureg
+from trapbudget.sensitivity.textfiles import read_text
 
 __all__ = [
     "KINDS",
@@ -198,14 +199,7 @@ def read_table_lines(path: str | os.PathLike[str]) -> tuple[Path, list[str], dic
     """
     file = Path(path)
     where = str(file)
-    try:
-        text = file.read_text(encoding="utf-8-sig")
-    except FileNotFoundError:
-        raise DataError("file not found; check the path", path=where) from None
-    except OSError as exc:
-        raise DataError(
-            f"cannot read the file ({exc.strerror}); check the path", path=where
-        ) from None
+    text = read_text(file, error=DataError, what="data file")
     lines = text.splitlines()
     metadata: dict[str, str] = {}
     for start, line in enumerate(lines):

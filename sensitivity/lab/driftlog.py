@@ -21,12 +21,7 @@ from trapbudget.sensitivity.lab.datafiles import (
     read_table_lines,
 )
 from trapbudget.sensitivity.scenario.units import ureg
-
-try:
-    import tomllib
-except ImportError:  # pragma: no cover - Python 3.10
-    import tomli as tomllib
-
+from trapbudget.sensitivity.textfiles import read_toml
 
 __all__ = [
     "MAX_CHANNELS",
@@ -154,15 +149,11 @@ class ChannelMap:
 
 def load_mapping(path: str | os.PathLike[str]) -> dict[str, Any]:
     """Read a column mapping from a TOML file: its ``[diagnosis]`` table (or the whole file)."""
-    file = Path(path)
-    try:
-        with open(file, "rb") as handle:
-            data = tomllib.load(handle)
-    except FileNotFoundError:
-        raise DataError("mapping file not found; check the path", path=str(file)) from None
-    except tomllib.TOMLDecodeError as exc:
-        raise DataError(f"not valid TOML ({exc}); fix the file", path=str(file)) from None
-    return dict(data.get("diagnosis", data))
+    data = read_toml(path, error=DataError, what="mapping file")
+    table = data.get("diagnosis", data)
+    if not isinstance(table, dict):
+        raise DataError("[diagnosis] must be a table", path=Path(path))
+    return dict(table)
 
 
 def _mapping_from(scenario: Any, mapping: Any) -> dict[str, Any]:
@@ -175,8 +166,7 @@ def _mapping_from(scenario: Any, mapping: Any) -> dict[str, Any]:
         return dict(table)
     source = getattr(scenario, "source", None)
     if source is not None and Path(source).is_file():
-        with open(source, "rb") as handle:
-            return dict(tomllib.load(handle).get("diagnosis", {}))
+        return dict(read_toml(source, what="scenario file").get("diagnosis", {}))
     return {}
 
 

@@ -36,10 +36,20 @@ from trapbudget.sensitivity.scenario.tables import (
     _check_range,
     _close,
     _table,
+    _text,
 )
 from trapbudget.sensitivity.scenario.writer import _written, _written_cost, _written_tolerance
 
 __all__ = ["Scenario"]
+
+
+_SCENARIO_EXAMPLES = {
+    "title": 'title = "Rb MOT, lab 2"',
+    "description": 'description = "..."',
+    "species": 'species = "Rb87"',
+    "model": 'model = "VaporCellMOT"',
+    "currency": 'currency = "EUR"',
+}
 
 
 @dataclass(frozen=True, eq=False)
@@ -177,6 +187,9 @@ class Scenario:
         _check_keys(data, _TOP_KEYS, path=path, key="")
         head = _table(data.get("scenario"), path=path, key="scenario")
         _check_keys(head, _SCENARIO_KEYS, path=path, key="scenario")
+        for name, example in _SCENARIO_EXAMPLES.items():
+            if name in head:
+                _text(head[name], path=path, key=f"scenario.{name}", example=example)
         species = str(head.get("species", "Rb87"))
         options = dict(_table(head.get("options"), path=path, key="scenario.options"))
         if model is None:

@@ -146,6 +146,13 @@ def _parse_correlations(raw, *, tolerances, known, model, path) -> np.ndarray | 
             raise ScenarioError("must be a table; write [[correlations]]", path=path, key=key)
         _check_keys(table, ("inputs", "coefficient", "rank_coefficient"), path=path, key=key)
         pair = table.get("inputs")
+        if isinstance(pair, list) and not all(isinstance(name, str) for name in pair):
+            raise ScenarioError(
+                "inputs must be two input names (strings); write e.g. "
+                'inputs = ["beam_power", "repump_power"]',
+                path=path,
+                key=f"{key}.inputs",
+            )
         if not isinstance(pair, list) or len(pair) != 2 or pair[0] == pair[1]:
             raise ScenarioError(
                 f"inputs = {pair!r} must name two different inputs", path=path, key=f"{key}.inputs"

@@ -13,6 +13,7 @@ except ImportError:  # pragma: no cover - Python 3.10
 
 from trapbudget.sensitivity.errors import ScenarioError
 from trapbudget.sensitivity.scenario.core import Scenario
+from trapbudget.sensitivity.textfiles import read_text
 
 __all__ = ["load_scenario"]
 
@@ -33,16 +34,17 @@ def load_scenario(path: str | Path, *, model: Any = None) -> Scenario:
         Unreadable file, TOML syntax error, or any content error.
     """
     path = Path(path)
+    text = read_text(path, what="scenario file")
     try:
-        data_bytes = path.read_bytes()
-    except OSError as error:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as error:
+        raise ScenarioError(f"not valid TOML: {error}; fix the file", path=path) from None
+    if not data:
         raise ScenarioError(
-            f"cannot read the file ({error.strerror}); check the path", path=path
-        ) from None
-    try:
-        data = tomllib.loads(data_bytes.decode("utf-8"))
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as error:
-        raise ScenarioError(f"not valid TOML: {error}", path=path) from None
-    return Scenario.from_dict(
-        data, path=path, model=model, sha256=hashlib.sha256(data_bytes).hexdigest()
-    )
+            "the scenario is empty, so there is nothing to study; start from "
+            "'trapbudget demo' (its harrier-rb87.toml) and add [scenario] and [inputs.<name>] "
+            "tables",
+            path=path,
+        )
+    digest = hashlib.sha256(path.read_bytes()).hexdigest()
+    return Scenario.from_dict(data, path=path, model=model, sha256=digest)

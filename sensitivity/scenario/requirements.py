@@ -149,6 +149,19 @@ def parse_requirements(
                 key=key,
             )
         output = table.get("output")
+        if not isinstance(output, str):
+            raise ScenarioError(
+                f"output must be a string naming an output, got {type(output).__name__}; "
+                f'write e.g. output = "{next(iter(model.outputs))}"',
+                path=path,
+                key=f"{key}.output",
+            )
+        if "label" in table and not isinstance(table["label"], str):
+            raise ScenarioError(
+                'label must be a string; write e.g. label = "enough atoms"',
+                path=path,
+                key=f"{key}.label",
+            )
         if output not in model.outputs:
             raise ScenarioError(
                 f"output {output!r} is not an output of the model"

@@ -58,6 +58,16 @@ def _table(value: Any, *, path, key) -> Mapping[str, Any]:
     return value
 
 
+def _text(value: Any, *, path, key, example: str) -> str:
+    """``value`` if it is a string; else a ScenarioError naming the key and an example."""
+    if not isinstance(value, str):
+        shown = type(value).__name__ if isinstance(value, Mapping | list) else repr(value)
+        raise ScenarioError(
+            f"must be a string, got {shown}; write e.g. {example}", path=path, key=key
+        )
+    return value
+
+
 def _canonical(value: Any) -> Any:
     """A hashable, float-rounded form for comparing scenarios."""
     if isinstance(value, float):

@@ -163,16 +163,32 @@ def _split(text: str | float | int, *, unit: str, where: str, path: object | Non
     return float(match.group(1)), match.group(2)
 
 
+#: What a written unit may contain before pint's expression parser sees it.
+_UNIT_TEXT = re.compile(r"^[A-Za-z0-9_ .*/^()%+\-]{1,64}$")
+
+
 def _units_of(unit_text: str, *, text: object, unit: str, where: str, path: object | None):
+    if not _UNIT_TEXT.match(unit_text) or unit_text.count("(") != unit_text.count(")"):
+        shown = (
+            unit_text if unit_text.isprintable() else unit_text.encode("unicode_escape").decode()
+        )
+        raise ScenarioError(
+            f"{shown!r} is not a unit (units are letters, digits, spaces and * / ^ ( ), "
+            f"e.g. {_example(unit)!r})",
+            path=path,
+            key=where,
+        )
     try:
-        return ureg.parse_units(unit_text)
+        units = ureg.parse_units(unit_text)
+        ureg.Quantity(1.0, units).to_base_units()  # catches what parses but cannot convert
+        return units
     except pint.errors.UndefinedUnitError as error:
         names = getattr(error, "unit_names", None) or (unit_text,)
         bad = names[0] if isinstance(names, list | tuple) else str(names)
         raise ScenarioError(
             f"{text!r}: {bad!r} is not a unit{suggest_unit(unit_text, unit)}", path=path, key=where
         ) from None
-    except (pint.errors.PintError, ValueError, AttributeError, TypeError, SyntaxError):
+    except Exception:  # pint's parser raises many kinds (ZeroDivision, Token, Assertion...)
         raise ScenarioError(
             f"{text!r}: {unit_text!r} is not a unit{suggest_unit(unit_text, unit)}",
             path=path,
