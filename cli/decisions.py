@@ -7,11 +7,24 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
-from trapbudget.cli.options import PROG, _positive_rate, add_common_options, add_samples_option
-from trapbudget.cli.output import emit_json, load, progress_reporter, report_dir, stdout_console
+from trapbudget.cli.options import (
+    PROG,
+    add_common_options,
+    add_samples_option,
+    non_negative_amount,
+    positive_rate,
+)
+from trapbudget.cli.output import (
+    check_samples_fit,
+    emit_json,
+    load,
+    progress_reporter,
+    report_dir,
+    stdout_console,
+)
 from trapbudget.sensitivity.errors import ScenarioError, UsageError
 
-__all__ = []
+__all__ = ["add_compare", "add_spec"]
 
 
 def add_spec(subparsers: argparse._SubParsersAction) -> None:
@@ -56,12 +69,17 @@ def add_compare(subparsers: argparse._SubParsersAction) -> None:
     )
     p.add_argument(
         "--repetition-rate",
-        type=_positive_rate,
+        type=positive_rate,
         default=None,
         metavar="HZ",
         help="experimental runs per second, for expected failing runs per day",
     )
-    p.add_argument("--cost", type=float, default=None, help="cost of the change (with AFTER)")
+    p.add_argument(
+        "--cost",
+        type=non_negative_amount,
+        default=None,
+        help="cost of the change (with AFTER)",
+    )
     add_samples_option(p)
     add_common_options(p)
     p.set_defaults(run=_run_compare)
@@ -78,6 +96,8 @@ def _run_spec(args: argparse.Namespace) -> int:
     from trapbudget.sensitivity.study_record import describe_study
 
     scenario = load(args.scenario)
+    out = report_dir(args, f"{Path(args.scenario).stem}-spec")
+    check_samples_fit(args, scenario, kind="propagate", copies=4)
     seed = scenario.settings.seed if args.seed is None else args.seed
     n = scenario.settings.n_samples if args.samples is None else args.samples
     with progress_reporter(args) as task:
@@ -88,7 +108,6 @@ def _run_spec(args: argparse.Namespace) -> int:
     datasets = {"allocation": ds}
     study = describe_study(scenario, seed=seed, n_samples=n, datasets=datasets)
     result = allocation_json(ds)
-    out = report_dir(args, f"{Path(args.scenario).stem}-spec")
     written = write_report(
         out, datasets=datasets, study=study, result=result, scenario_file=scenario.source
     )
@@ -131,14 +150,18 @@ def _run_compare(args: argparse.Namespace) -> int:
     from trapbudget.sensitivity.decisions.compare import compare, compare_upgrades
     from trapbudget.sensitivity.study_record import describe_study
 
+    if args.after is not None and args.upgrade:
+        raise UsageError(f"{PROG} compare: give AFTER or --upgrade, not both")
     before = load(args.before)
+    after = load(args.after) if args.after is not None else None
+    upgrades = None if after is not None else _select_upgrades(before, args.upgrade)
+    out = report_dir(args, f"{Path(args.before).stem}-compare")
+    copies = 2 if after is not None else 1 + len(upgrades or before.upgrades)
+    check_samples_fit(args, before, kind="propagate", copies=copies)
     seed = before.settings.seed if args.seed is None else args.seed
     n = before.settings.n_samples if args.samples is None else args.samples
     with progress_reporter(args) as task:
-        if args.after is not None:
-            if args.upgrade:
-                raise UsageError(f"{PROG} compare: give AFTER or --upgrade, not both")
-            after = load(args.after)
+        if after is not None:
             ds = compare(
                 before,
                 after,
@@ -151,7 +174,7 @@ def _run_compare(args: argparse.Namespace) -> int:
         else:
             ds = compare_upgrades(
                 before,
-                _select_upgrades(before, args.upgrade),
+                upgrades,
                 n_samples=n,
                 rng=seed,
                 repetition_rate=args.repetition_rate,
@@ -160,7 +183,6 @@ def _run_compare(args: argparse.Namespace) -> int:
     datasets = {"comparison": ds}
     study = describe_study(before, seed=seed, n_samples=n, datasets=datasets)
     result = comparison_json(ds)
-    out = report_dir(args, f"{Path(args.before).stem}-compare")
     written = write_report(
         out, datasets=datasets, study=study, result=result, scenario_file=before.source
     )

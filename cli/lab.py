@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from trapbudget.cli.options import add_common_options
+from trapbudget.cli.options import add_common_options, false_alarm_rate, reference_period
 from trapbudget.cli.output import emit_json, load, report_dir, stdout_console
 
 __all__ = []
@@ -47,13 +47,14 @@ def add_diagnose(subparsers: argparse._SubParsersAction) -> None:
     )
     p.add_argument(
         "--reference",
+        type=reference_period,
         default="first-day",
         metavar="DAY",
         help="reference period: 'first-day' (default), YYYY-MM-DD or START:END",
     )
     p.add_argument(
         "--false-alarm-rate",
-        type=float,
+        type=false_alarm_rate,
         default=0.01,
         metavar="A",
         help="probability per day of flagging a day with nothing unmonitored (default 0.01)",
@@ -70,6 +71,8 @@ def _run_calibrate(args: argparse.Namespace) -> int:
     from trapbudget.sensitivity.study_record import describe_study
 
     scenario = load(args.scenario)
+    stem = Path(args.scenario).stem
+    out = report_dir(args, f"{stem}-calibration")
     free = [n.strip() for n in args.free.split(",") if n.strip()] if args.free else None
     cal = calibrate(
         scenario, args.data, free=free, robust=args.robust, two_body=args.two_body, rng=args.seed
@@ -77,9 +80,8 @@ def _run_calibrate(args: argparse.Namespace) -> int:
     ds = cal.to_dataset()
     study = describe_study(scenario, seed=args.seed, n_samples=0, datasets={})
     result = calibration_json(ds)
-    stem = Path(args.scenario).stem
     written = write_report(
-        report_dir(args, f"{stem}-calibration"),
+        out,
         datasets={"calibration": ds},
         study=study,
         result=result,
@@ -104,6 +106,7 @@ def _run_diagnose(args: argparse.Namespace) -> int:
     from trapbudget.sensitivity.study_record import describe_study
 
     scenario = load(args.scenario)
+    out = report_dir(args, f"{Path(args.log).stem}-diagnosis")
     reference = args.reference.split(":") if ":" in args.reference else args.reference
     diag = diagnose(
         scenario,
@@ -116,7 +119,7 @@ def _run_diagnose(args: argparse.Namespace) -> int:
     study = describe_study(scenario, seed=None, n_samples=0, datasets={})
     result = diagnosis_json(ds)
     written = write_report(
-        report_dir(args, f"{Path(args.log).stem}-diagnosis"),
+        out,
         datasets={"diagnosis": ds},
         study=study,
         result=result,

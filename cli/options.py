@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import argparse
+import datetime as _dt
+import math
 from pathlib import Path
 
 from trapbudget.sensitivity.errors import UsageError
@@ -15,6 +17,10 @@ __all__ = [
     "add_common_options",
     "add_max_samples_option",
     "add_samples_option",
+    "false_alarm_rate",
+    "non_negative_amount",
+    "positive_rate",
+    "reference_period",
 ]
 
 PROG = "trapbudget"
@@ -111,7 +117,7 @@ def add_max_samples_option(parser: argparse.ArgumentParser) -> None:
     )
 
 
-def _positive_rate(text: str) -> float:
+def positive_rate(text: str) -> float:
     try:
         value = float(text)
     except ValueError:
@@ -119,3 +125,46 @@ def _positive_rate(text: str) -> float:
     if not value > 0:
         raise argparse.ArgumentTypeError(f"{text!r} must be a positive rate in Hz")
     return value
+
+
+def _finite(text: str, example: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number; use e.g. {example}") from None
+    if not math.isfinite(value):
+        raise argparse.ArgumentTypeError(f"{text!r} is not a finite number; use e.g. {example}")
+    return value
+
+
+def non_negative_amount(text: str) -> float:
+    """An amount of money: a finite number >= 0."""
+    value = _finite(text, "3000")
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"{text!r} is negative; give a cost >= 0, e.g. 3000")
+    return value
+
+
+def false_alarm_rate(text: str) -> float:
+    """A probability of a false alarm: strictly between 0 and 0.5."""
+    value = _finite(text, "0.01")
+    if not 0 < value < 0.5:
+        raise argparse.ArgumentTypeError(
+            f"{text!r} must lie between 0 and 0.5 (a probability per day), e.g. 0.01"
+        )
+    return value
+
+
+def reference_period(text: str) -> str:
+    """'first-day', a date YYYY-MM-DD, or START:END of such dates."""
+    if text == "first-day":
+        return text
+    for part in text.split(":") if text.count(":") == 1 else [text]:
+        try:
+            _dt.date.fromisoformat(part)
+        except ValueError:
+            raise argparse.ArgumentTypeError(
+                f"{part!r} is not a date; give 'first-day', YYYY-MM-DD or START:END, "
+                "e.g. 2026-11-23"
+            ) from None
+    return text

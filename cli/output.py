@@ -6,15 +6,19 @@ import argparse
 import contextlib
 import datetime as _dt
 import json
+import os
 import sys
+import tempfile
 from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import Any
 
 from trapbudget.cli.options import DEFAULT_REPORT_ROOT
-from trapbudget.sensitivity.errors import ScenarioError
+from trapbudget.sensitivity.errors import ScenarioError, UsageError
 
 __all__ = [
+    "check_out",
+    "check_samples_fit",
     "emit_json",
     "load",
     "progress_reporter",
@@ -112,10 +116,47 @@ def stage_progress(
     return progress
 
 
+def check_out(out: Path) -> Path:
+    """``out`` if a report can be written there, else a UsageError (exit 2) saying why.
+
+    Checked before any computation: an existing ``out`` must be an empty folder or a
+    previous report (it holds ``study.json``); otherwise the nearest existing folder
+    above it must be one this process can create folders in.
+    """
+    out = Path(out)
+    if out.exists() or out.is_symlink():
+        if not out.is_dir():
+            raise UsageError(f"--out {out}: is a file, not a folder; give a folder")
+        if any(out.iterdir()) and not (out / "study.json").is_file():
+            raise UsageError(
+                f"--out {out}: exists and is not a trapbudget report folder; give a new folder"
+            )
+        probe_in = out.parent
+    else:
+        probe_in = out.parent
+        while not probe_in.exists():
+            probe_in = probe_in.parent
+        if not probe_in.is_dir():
+            raise UsageError(
+                f"--out {out}: {probe_in} is a file, so no folder can be made under it; "
+                "give another folder"
+            )
+    try:  # the one reliable test of writability (root, read-only mounts, ACLs)
+        probe = tempfile.mkdtemp(prefix=".trapbudget-probe-", dir=probe_in)
+        os.rmdir(probe)
+    except OSError as error:
+        raise UsageError(
+            f"--out {out}: cannot create a folder in {probe_in} ({error.strerror}); "
+            "give a folder you can write to"
+        ) from None
+    return out
+
+
 def report_dir(args: argparse.Namespace, stem: str) -> Path:
-    """``--out`` if given, else a new folder ``./trapbudget-reports/<stem>-<timestamp>``."""
+    """``--out`` if given (checked by :func:`check_out`), else a new folder
+    ``./trapbudget-reports/<stem>-<timestamp>``."""
     if getattr(args, "out", None) is not None:
-        return Path(args.out)
+        return check_out(Path(args.out))
     stamp = _dt.datetime.now().strftime("%Y%m%d-%H%M%S")
     base = DEFAULT_REPORT_ROOT / f"{stem}-{stamp}"
     candidate, k = base, 1
@@ -123,3 +164,37 @@ def report_dir(args: argparse.Namespace, stem: str) -> Path:
         k += 1
         candidate = base.with_name(f"{base.name}-{k}")
     return candidate
+
+
+def check_samples_fit(
+    args: argparse.Namespace,
+    scenario: Any,
+    *,
+    kind: str,
+    copies: int = 1,
+    second_order: bool = False,
+) -> None:
+    """Refuse, before any work, a sample size whose run would not fit in memory.
+
+    A size from ``--samples`` is bad usage (exit 2); one from the scenario's
+    ``settings.n_samples`` is bad input naming the file (exit 1).
+    """
+    from trapbudget.sensitivity.guard import check_memory
+
+    given = getattr(args, "samples", None)
+    n = scenario.settings.n_samples if given is None else given
+    try:
+        check_memory(
+            kind,
+            int(n),
+            len(scenario.inputs),
+            len(scenario.outputs),
+            second_order=second_order,
+            copies=copies,
+            spelled="--samples {}" if given is not None else "n_samples = {}",
+        )
+    except ScenarioError as error:
+        message = str(error).split(": ", 1)[-1]
+        if given is not None:
+            raise UsageError(message) from None
+        raise ScenarioError(message, path=scenario.source, key="settings.n_samples") from None

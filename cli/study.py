@@ -18,6 +18,7 @@ from trapbudget.cli.options import (
     add_samples_option,
 )
 from trapbudget.cli.output import (
+    check_samples_fit,
     emit_json,
     load,
     progress_reporter,
@@ -157,6 +158,8 @@ def _rank_and_report(scenario: Any, args: argparse.Namespace, *, stem: str) -> i
             f"give at least {n}"
         )
     out = report_dir(args, stem)
+    second = bool(args.second_order or scenario.settings.second_order)
+    check_samples_fit(args, scenario, kind="rank", second_order=second)
     with progress_reporter(args) as task:
         study = run_study(
             scenario,

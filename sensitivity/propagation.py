@@ -28,6 +28,7 @@ from numpy.typing import ArrayLike
 
 from trapbudget.models.protocol import ModelError
 from trapbudget.sensitivity.errors import ConvergenceWarning, ScenarioError, TrapbudgetWarning
+from trapbudget.sensitivity.guard import check_memory
 from trapbudget.sensitivity.protocol import (
     BoundModel,
     as_model,
@@ -150,6 +151,10 @@ def propagate(
     """
     model = as_model(model, input_names=inputs)
     uncertain, fixed = _split_inputs(model, inputs)
+    n_outputs = len(outputs) if outputs is not None else len(getattr(model, "outputs", {}) or {})
+    check_memory(
+        "propagate", int(n_samples), len(uncertain), n_outputs, power_of_two=method == "sobol"
+    )
     columns = sample_inputs(
         uncertain, n_samples=n_samples, method=method, correlation=correlation, rng=rng
     )

@@ -39,6 +39,7 @@ import xarray as xr
 from scipy.stats import qmc
 
 from trapbudget.sensitivity.errors import ScenarioError
+from trapbudget.sensitivity.guard import check_memory
 from trapbudget.sensitivity.indices.budget import (
     _FULL_FIRST_ORDER,
     _METHODS,
@@ -185,6 +186,8 @@ def rank(
     n_samples = _power_of_two(n_samples, "n_samples")
     model = as_model(model, input_names=list(inputs))
     uncertain, fixed = _split_inputs(inputs, model)
+    n_outputs = len(outputs) if outputs is not None else len(getattr(model, "outputs", {}) or {})
+    check_memory("rank", n_samples, len(uncertain), n_outputs, second_order=second_order)
     names = list(uncertain)
     group_map = _normalise_groups(groups, names)
     generator = np.random.default_rng(rng)

@@ -55,6 +55,12 @@ KNOWN_UNITS: dict[str, str] = {
 _HEADER = re.compile(r"^\s*(?P<name>[A-Za-z_][A-Za-z0-9_]*)\s*(?:\[(?P<unit>[^\]]*)\])?\s*$")
 
 
+def _shown(text: str, limit: int = 24) -> str:
+    """A cell as quoted in an error: at most ``limit`` characters, never a whole line."""
+    text = str(text)
+    return repr(text if len(text) <= limit else text[:limit] + "...")
+
+
 def convert(values: Any, written: str, *, target: str | None, where: str) -> np.ndarray:
     """Convert ``values`` written in unit ``written`` to ``target`` (SI), as floats.
 
@@ -179,7 +185,7 @@ def parse_cell(text: str, where: str, *, column: str | None = None) -> float:
     except ValueError:
         named = "" if column is None else f" (column {column!r})"
         raise DataError(
-            f"{text!r} is not a number{named}; write a plain decimal number", path=where
+            f"{_shown(text)} is not a number{named}; write a plain decimal number", path=where
         ) from None
 
 
@@ -337,7 +343,8 @@ def parse_header(
         match = _HEADER.match(cell)
         if match is None:
             raise DataError(
-                f"header cell {cell!r} is not 'name [unit]'; write e.g. {example!r}", path=where
+                f"header cell {_shown(cell)} is not 'name [unit]'; write e.g. {example!r}",
+                path=where,
             )
         name = match["name"]
         if name in units:
@@ -350,7 +357,7 @@ def parse_header(
 def _parse_setting(text: str, unit: str | None, where: str) -> float:
     match = re.match(r"^\s*([-+0-9.eE]+)\s*(.*)$", text)
     if match is None:
-        raise DataError(f"{text!r} is not 'number unit'; write e.g. '4 mW'", path=where)
+        raise DataError(f"{_shown(text)} is not 'number unit'; write e.g. '4 mW'", path=where)
     return float(convert(parse_cell(match[1], where), match[2], target=unit, where=where))
 
 

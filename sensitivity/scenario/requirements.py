@@ -206,4 +206,15 @@ def parse_requirements(
             out.append(Requirement(output, kind, limit, probability, label))  # type: ignore[arg-type]
         except ScenarioError as error:
             raise ScenarioError(error.message, path=path, key=key) from None
+    seen: dict[str, int] = {}
+    for index, requirement in enumerate(out):
+        if requirement.title in seen:
+            first = seen[requirement.title]
+            raise ScenarioError(
+                f"label {requirement.title!r} is also that of requirements[{first}]; give each "
+                "requirement its own label",
+                path=path,
+                key=f"requirements[{index}].label",
+            )
+        seen[requirement.title] = index
     return tuple(out)

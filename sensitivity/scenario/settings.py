@@ -14,6 +14,7 @@ from trapbudget.sensitivity.sampling import (
     is_power_of_two,
 )
 from trapbudget.sensitivity.scenario.tables import _INPUT_KEYS, _check_keys, _close, _table
+from trapbudget.sensitivity.scenario.units import parse_quantity, parse_tolerance_text
 
 __all__ = [
     "DEFAULT_CHUNK_SIZE",
@@ -209,6 +210,22 @@ class Upgrade:
     changes: Mapping[str, Mapping[str, Any]]
 
 
+def _check_written_values(change: Mapping[str, Any], unit: str, *, path, key: str) -> None:
+    """Parse an upgrade's written values now, so a misspelt unit is named where it is written."""
+    if "nominal" in change:
+        parse_quantity(change["nominal"], unit=unit, key=f"{key}.nominal", path=path)
+    if "tolerance" in change:
+        nominal = 1.0  # a stand-in: only the spelling and dimension are checked here
+        parse_tolerance_text(
+            change["tolerance"],
+            unit=unit,
+            nominal=nominal,
+            key=f"{key}.tolerance",
+            path=path,
+            nominal_text=change.get("nominal", "1 K"),
+        )
+
+
 def _parse_upgrades(raw: Any, *, model, path) -> tuple[Upgrade, ...]:
     if raw is None:
         return ()
@@ -225,7 +242,11 @@ def _parse_upgrades(raw: Any, *, model, path) -> tuple[Upgrade, ...]:
         if not isinstance(table.get("name"), str) or not table["name"]:
             raise ScenarioError('needs a name = "..."', path=path, key=f"{key}.name")
         cost = table.get("cost", 0.0)
-        if isinstance(cost, bool) or not isinstance(cost, int | float) or not cost >= 0:
+        if (
+            isinstance(cost, bool)
+            or not isinstance(cost, int | float)
+            or not 0 <= cost < float("inf")
+        ):
             raise ScenarioError(
                 f"cost {cost!r} must be a number >= 0", path=path, key=f"{key}.cost"
             )
@@ -245,5 +266,8 @@ def _parse_upgrades(raw: Any, *, model, path) -> tuple[Upgrade, ...]:
                 )
             change = _table(change, path=path, key=f"{key}.changes.{name}")
             _check_keys(change, _INPUT_KEYS, path=path, key=f"{key}.changes.{name}")
+            _check_written_values(
+                change, model.inputs[name].unit, path=path, key=f"{key}.changes.{name}"
+            )
         out.append(Upgrade(table["name"], float(cost), {k: dict(v) for k, v in changes.items()}))
     return tuple(out)
