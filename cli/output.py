@@ -141,6 +141,13 @@ def check_out(out: Path) -> Path:
                 f"--out {out}: {probe_in} is a file, so no folder can be made under it; "
                 "give another folder"
             )
+    from trapbudget.sensitivity.io import FolderBusyError, try_lock
+
+    if probe_in.is_dir() and not try_lock(out):
+        raise FolderBusyError(
+            f"--out {out}: another trapbudget run is writing this folder; wait for it to "
+            "finish or choose another folder"
+        )
     try:  # the one reliable test of writability (root, read-only mounts, ACLs)
         probe = tempfile.mkdtemp(prefix=".trapbudget-probe-", dir=probe_in)
         os.rmdir(probe)

@@ -21,6 +21,7 @@ __all__ = [
     "Table",
     "Text",
     "register_section",
+    "safe_stem",
 ]
 
 
@@ -45,13 +46,26 @@ class Table:
         return "right" if self.numeric is not None and self.numeric[i] else "left"
 
 
+def safe_stem(name: str, *, limit: int = 80) -> str:
+    """``name`` as a file stem that stays inside its folder (no separators, dots or spaces)."""
+    stem = re.sub(r"[^A-Za-z0-9_-]+", "_", str(name)).strip("_-")[:limit]
+    return stem or "figure"
+
+
 @dataclass(frozen=True)
 class Figure:
-    """A PNG figure; ``name`` is its file stem in ``figures/``."""
+    """A PNG figure; ``name`` is its file stem in ``figures/``.
+
+    Names often come from data (an output's name in a saved Dataset), so they are
+    reduced to a safe file stem: letters, digits, ``-`` and ``_`` only, never a path.
+    """
 
     name: str
     png: bytes
     caption: str = ""
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "name", safe_stem(self.name))
 
 
 @dataclass

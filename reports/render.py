@@ -20,8 +20,8 @@ from __future__ import annotations
 
 import base64
 import os
+import re
 import shutil
-import tempfile
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -37,14 +37,19 @@ from trapbudget.reports.blocks import (
     Section,
     Table,
     Text,
+    safe_stem,
 )
 from trapbudget.sensitivity.errors import UsageError
 from trapbudget.sensitivity.io import (
     atomic_write_bytes,
     atomic_write_json,
     atomic_write_text,
+    clean_leftovers,
     default_mode,
+    folder_lock,
+    replace_folder,
     save_dataset,
+    scratch_name,
 )
 
 __all__ = [
@@ -57,6 +62,9 @@ __all__ = [
     "rerender_report",
     "write_report",
 ]
+
+#: Subfolder of a report that holds a copy of the scenario file it was made from.
+INPUT_FOLDER = "input"
 
 #: Datasets of a ``rank`` report folder, saved as ``<name>.nc`` (others may be added).
 DATASET_NAMES: tuple[str, ...] = (
@@ -88,18 +96,36 @@ def build_sections(
 # --------------------------------------------------------------------------- templates
 
 # Raw HTML in Markdown is live in most viewers: neutralise tags in every value.
-_MD_ESCAPES = str.maketrans({"<": "&lt;", ">": "&gt;"})
+# User text (titles, labels, notes) is carried as text: HTML tags, link and image
+# syntax, emphasis, code, headings and table pipes are escaped, and newlines folded, so
+# no value can start a heading, a link or a remote image in the Markdown report.
+_MD_ESCAPES = str.maketrans(
+    {
+        "<": "&lt;",
+        ">": "&gt;",
+        **{c: "\\" + c for c in "\\`*[]#!|~{}"},
+    }
+)
+
+
+_EDGE_UNDERSCORE = re.compile(r"(?<![A-Za-z0-9])_|_(?![A-Za-z0-9])")
 
 
 def _md_finalize(value: Any) -> Any:
     if isinstance(value, Markup) or not isinstance(value, str):
         return value
-    return value.translate(_MD_ESCAPES)
+    text = " ".join(value.split()).translate(_MD_ESCAPES)
+    # an underscore inside a word (beam_power) is text; at a word's edge it could emphasise
+    return _EDGE_UNDERSCORE.sub(r"\\_", text)
 
 
 def _md_cell(value: Any) -> str:
-    text = " ".join(str(value).split())
-    return text.replace("|", "\\|")
+    return " ".join(str(value).split())
+
+
+def _md_raw(value: Any) -> Markup:
+    """Template-made Markdown (anchors, figure paths) that must not be escaped."""
+    return Markup(str(value))
 
 
 def _environment(kind: str) -> jinja2.Environment:
@@ -122,6 +148,7 @@ def _environment(kind: str) -> jinja2.Environment:
             undefined=jinja2.StrictUndefined,
         )
         env.filters["mdcell"] = _md_cell
+        env.filters["raw"] = _md_raw
     env.globals.update(
         is_text=lambda b: isinstance(b, Text),
         is_table=lambda b: isinstance(b, Table),
@@ -213,32 +240,31 @@ def write_report(
         If ``out`` is a file, or a folder that is not empty and not a report.
     """
     out = Path(out)
-    if out.exists() and (not out.is_dir() or not _is_report_folder(out)):
-        raise UsageError(
-            f"--out {out}: exists and is not a trapbudget report folder; give a new folder"
-        )
-    out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.", suffix=".part", dir=out.parent))
-    os.chmod(tmp, default_mode(directory=True))  # mkdtemp makes it private
-    try:
-        for name, ds in datasets.items():
-            save_dataset(ds, tmp / f"{name}.nc")
-        atomic_write_json(tmp / "study.json", dict(study))
-        if result is not None:
-            atomic_write_json(tmp / "result.json", dict(result))
-        if scenario_file is not None and Path(scenario_file).is_file():
-            shutil.copyfile(scenario_file, tmp / Path(scenario_file).name)
-        _write_rendered(tmp, render_report(datasets, study, extra_sections=extra_sections))
-        if out.exists():
-            old = out.with_name(f".{out.name}.old-{os.getpid()}")
-            os.replace(out, old)
-            os.replace(tmp, out)
-            shutil.rmtree(old, ignore_errors=True)
-        else:
-            os.replace(tmp, out)
-    finally:
-        if tmp.exists():
-            shutil.rmtree(tmp, ignore_errors=True)
+    with folder_lock(out):
+        clean_leftovers(out)  # what killed runs left beside ``out``
+        if out.exists() and (not out.is_dir() or not _is_report_folder(out)):
+            raise UsageError(
+                f"--out {out}: exists and is not a trapbudget report folder; give a new folder"
+            )
+        tmp = scratch_name(out, "part")
+        tmp.mkdir()
+        try:
+            for name, ds in datasets.items():
+                save_dataset(ds, tmp / f"{safe_stem(name)}.nc")
+            atomic_write_json(tmp / "study.json", dict(study))
+            if result is not None:
+                atomic_write_json(tmp / "result.json", dict(result))
+            if scenario_file is not None and Path(scenario_file).is_file():
+                # beside the results, never among them: a scenario named study.json or
+                # budget.nc cannot overwrite a result file
+                (tmp / INPUT_FOLDER).mkdir()
+                shutil.copyfile(scenario_file, tmp / INPUT_FOLDER / Path(scenario_file).name)
+            _write_rendered(tmp, render_report(datasets, study, extra_sections=extra_sections))
+            os.chmod(tmp, default_mode(directory=True))
+            replace_folder(tmp, out)
+        finally:
+            if tmp.exists():
+                shutil.rmtree(tmp, ignore_errors=True)
     return out
 
 
@@ -283,5 +309,6 @@ def rerender_report(
     folder = Path(folder)
     datasets, study = load_report(folder)
     import_section_modules()
-    _write_rendered(folder, render_report(datasets, study, extra_sections=extra_sections))
+    with folder_lock(folder):
+        _write_rendered(folder, render_report(datasets, study, extra_sections=extra_sections))
     return datasets, study, folder

@@ -9,6 +9,7 @@ fail half-way with a traceback.
 from __future__ import annotations
 
 import os
+from pathlib import Path
 
 from trapbudget.sensitivity.errors import ScenarioError
 
@@ -30,7 +31,7 @@ def available_memory() -> int:
         total = 8 * 2**30
     for limit_file in ("/sys/fs/cgroup/memory.max", "/sys/fs/cgroup/memory/memory.limit_in_bytes"):
         try:
-            text = open(limit_file, encoding="ascii").read().strip()
+            text = Path(limit_file).read_text(encoding="ascii").strip()
         except OSError:
             continue
         if text.isdigit():

@@ -191,7 +191,7 @@ def test_report_rerenders_the_same_tables(capsys, ishigami_file, tmp_path):
         "budget.nc",
         "study.json",
         "result.json",
-        "ishigami.toml",
+        "input/ishigami.toml",
         "figures",
     ):
         assert (out_dir / name).exists(), name

@@ -160,16 +160,6 @@ def test_diagnose_flags_the_injected_fault_day(capsys, demo, calibrated, tmp_pat
                 "diagnose",
                 "{demo}/harrier-rb87.toml",
                 "{demo}/harrier-week-log.csv",
-                "--false-alarm-rate",
-                "2",
-            ],
-            "DataError: false_alarm_rate 2.0 must lie in",
-        ),
-        (
-            [
-                "diagnose",
-                "{demo}/harrier-rb87.toml",
-                "{demo}/harrier-week-log.csv",
                 "--mapping",
                 "{demo}/absent.toml",
             ],
