@@ -29,7 +29,7 @@ HEAVY = ("numba", "matplotlib", "xarray", "SALib", "scipy.stats")
 
 def commands(bad: Path) -> dict[str, list[str]]:
     py = sys.executable
-    cli = [py, "-m", "trapbudget.cli.main"]
+    cli = [py, "-m", "trapbudget.cli"]
     return {
         "python -c 'import numpy'": [py, "-c", "import numpy"],
         "trapbudget --version": [*cli, "--version"],
