@@ -4,9 +4,11 @@ from __future__ import annotations
 
 import argparse
 from pathlib import Path
+from typing import Any
 
 from trapbudget.cli.options import add_common_options, false_alarm_rate, reference_period
 from trapbudget.cli.output import emit_json, load, report_dir, stdout_console
+from trapbudget.sensitivity.errors import UsageError
 
 __all__ = []
 
@@ -22,6 +24,11 @@ def add_calibrate(subparsers: argparse._SubParsersAction) -> None:
     p.add_argument("scenario", type=Path, help="scenario TOML file")
     p.add_argument("data", type=Path, nargs="+", metavar="DATA", help="measurement CSV files")
     p.add_argument("--free", default=None, metavar="A,B", help="constants to fit, comma-separated")
+    p.add_argument(
+        "--allow-settings",
+        action="store_true",
+        help="allow --free to name settings of the apparatus too (not only model constants)",
+    )
     p.add_argument("--robust", action="store_true", help="soft-L1 loss (outlier-tolerant)")
     p.add_argument("--two-body", action="store_true", help="fit loading curves with two-body loss")
     add_common_options(p)
@@ -63,6 +70,26 @@ def add_diagnose(subparsers: argparse._SubParsersAction) -> None:
     p.set_defaults(run=_run_diagnose)
 
 
+def _check_free(scenario: Any, free: list[str] | None) -> None:
+    """--free names, checked as an option (the scenario's own list is checked as the file)."""
+    import difflib
+
+    if free is None:
+        if not (scenario.calibration or {}).get("free"):
+            raise UsageError(
+                "calibrate: no constants to fit; give --free A,B (see 'trapbudget inputs "
+                "SCENARIO' for the constants) or list them in [calibration] free = [...]"
+            )
+        return
+    if not free:
+        raise UsageError("calibrate: --free is empty; give constants such as loading_prefactor")
+    for name in free:
+        if name not in scenario.model.inputs:
+            close = difflib.get_close_matches(name, list(scenario.model.inputs), n=1)
+            hint = f"; did you mean {close[0]!r}?" if close else ""
+            raise UsageError(f"calibrate: --free {name!r} is not a model input{hint}")
+
+
 def _run_calibrate(args: argparse.Namespace) -> int:
     from trapbudget.reports.calibration import calibration_json, calibration_rich_table
     from trapbudget.reports.render import write_report
@@ -74,8 +101,15 @@ def _run_calibrate(args: argparse.Namespace) -> int:
     stem = Path(args.scenario).stem
     out = report_dir(args, f"{stem}-calibration")
     free = [n.strip() for n in args.free.split(",") if n.strip()] if args.free else None
+    _check_free(scenario, free)
     cal = calibrate(
-        scenario, args.data, free=free, robust=args.robust, two_body=args.two_body, rng=args.seed
+        scenario,
+        args.data,
+        free=free,
+        robust=args.robust,
+        two_body=args.two_body,
+        rng=args.seed,
+        allow_settings=args.allow_settings,
     )
     ds = cal.to_dataset()
     study = describe_study(scenario, seed=args.seed, n_samples=0, datasets={})

@@ -26,7 +26,7 @@ from trapbudget.cli.decisions import add_compare, add_spec
 from trapbudget.cli.lab import add_calibrate, add_diagnose
 from trapbudget.cli.options import PROG, _Parser
 from trapbudget.cli.study import add_demo, add_predict, add_rank, add_report, add_species
-from trapbudget.sensitivity.errors import TrapbudgetError, UsageError
+from trapbudget.sensitivity.errors import TrapbudgetError, TrapbudgetWarning, UsageError
 
 __all__ = ["SUBCOMMANDS", "build_parser", "main"]
 
@@ -73,6 +73,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; return the exit code (0 ok, 1 bad input, 2 bad usage)."""
     parser = build_parser()
     with warnings.catch_warnings():
+        # the command line's warnings are part of its output: one line each on stderr,
+        # whatever filters the calling environment set
+        warnings.filterwarnings("default", category=TrapbudgetWarning)
         warnings.showwarning = _show_warning
         return _main(parser, argv)
 

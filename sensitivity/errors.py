@@ -8,8 +8,10 @@ its context as attributes, and pickles. The command line catches only
 from __future__ import annotations
 
 __all__ = [
+    "CalibrationWarning",
     "ConvergenceWarning",
     "DataError",
+    "DataWarning",
     "ScenarioError",
     "TrapbudgetError",
     "TrapbudgetWarning",
@@ -72,3 +74,11 @@ class TrapbudgetWarning(UserWarning):
 
 class ConvergenceWarning(TrapbudgetWarning):
     """An iterative procedure stopped at its limit before meeting its tolerance."""
+
+
+class DataWarning(TrapbudgetWarning):
+    """Some rows of a data file were skipped (counted and said so)."""
+
+
+class CalibrationWarning(TrapbudgetWarning):
+    """A fit finished but its statistics say the model does not describe the data."""

@@ -263,3 +263,54 @@ def test_a_scenario_named_like_a_result_file_cannot_clobber_it(capsys, demo, tmp
     assert (out / "input" / "study.json").is_file()
     code, err = run(capsys, ["report", out, "--quiet"])
     assert code == 0, err
+
+
+@pytest.mark.parametrize(
+    ("old", "new", "message"),
+    [
+        (
+            "[diagnosis]\n",
+            "[diagnosis]\nbogus = 1\n",
+            r"mapping\.toml: diagnosis\.bogus: unknown key",
+        ),
+        (
+            'scale = "3 mW/V"',
+            'scale = "3 mQ/V"',
+            r"mapping\.toml: diagnosis\.columns\.cooling_photodiode"
+            r"\.scale: '3 mQ/V' is not a quantity",
+        ),
+        (
+            'input = "beam_power"',
+            'input = "beam_powr"',
+            r"mapping\.toml: diagnosis\.columns\."
+            r"cooling_photodiode\.input: input 'beam_powr' is not a model input; did you mean",
+        ),
+        (
+            "[diagnosis.columns.cooling_photodiode]\n",
+            "[diagnosis.columns.cooling_photodiode]\ngain = 2\n",
+            r"diagnosis\.columns\.cooling_photodiode\.gain: unknown key 'gain'",
+        ),
+    ],
+)
+def test_mapping_errors_name_the_mapping_file(capsys, demo, tmp_path, old, new, message):
+    text = (demo / "harrier-log-mapping.toml").read_text(encoding="utf-8")
+    assert old in text
+    mapping = tmp_path / "mapping.toml"
+    mapping.write_text(text.replace(old, new, 1), encoding="utf-8")
+    argv = ["diagnose", demo / "harrier-rb87.toml", demo / "harrier-week-log.csv"]
+    code, err = run(capsys, [*argv, "--mapping", mapping, "--out", tmp_path / "out"])
+    assert code == 1
+    assert re.search(message, one_line(err)), err
+
+
+def test_skipped_data_rows_are_counted_and_said(capsys, demo, tmp_path):
+    lines = (demo / "harrier-detuning-scan.csv").read_text(encoding="utf-8").splitlines()
+    first = next(i for i, line in enumerate(lines) if line and line[0] in "-0123456789")
+    lines[first] = lines[first].split(",")[0] + ",nan"
+    lines[first + 1] = lines[first + 1].split(",")[0] + ","
+    path = tmp_path / "gaps.csv"
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    argv = ["calibrate", demo / "harrier-rb87.toml", path, "--free", "loading_prefactor"]
+    code, err = run(capsys, [*argv, "--out", tmp_path / "out", "--json"])
+    assert code == 0
+    assert "DataWarning: gaps.csv: 2 row(s) skipped (a needed value is empty or NaN)" in err

@@ -143,20 +143,6 @@ def test_diagnose_flags_the_injected_fault_day(capsys, demo, calibrated, tmp_pat
         ),
         (
             [
-                "calibrate",
-                "{demo}/harrier-rb87.toml",
-                "{demo}/harrier-detuning-scan.csv",
-                "--free",
-                "loading_prefator",
-            ],
-            "ScenarioError: .*did you mean 'loading_prefactor'",
-        ),
-        (
-            ["calibrate", "{demo}/harrier-rb87.toml", "{demo}/harrier-detuning-scan.csv"],
-            "ScenarioError: .*calibration.free: no constants to fit",
-        ),
-        (
-            [
                 "diagnose",
                 "{demo}/harrier-rb87.toml",
                 "{demo}/harrier-week-log.csv",
@@ -175,6 +161,34 @@ def test_bad_input_is_one_line_and_exit_1(capsys, demo, argv, match, tmp_path):
     err = capsys.readouterr().err.strip()
     assert "\n" not in err and "Traceback" not in err
     assert re.search(match, err)
+
+
+@pytest.mark.parametrize(
+    ("extra", "match"),
+    [
+        (
+            ["--free", "loading_prefator"],
+            r"--free 'loading_prefator' is not a model input; did "
+            r"you mean 'loading_prefactor'\?",
+        ),
+        ([], r"no constants to fit; give --free A,B"),
+        (
+            ["--free", "beam_power"],
+            r"'beam_power' is a setting of the apparatus, not a model "
+            r"constant.*--allow-settings",
+        ),
+    ],
+)
+def test_free_is_checked_as_an_option(capsys, demo, tmp_path, extra, match):
+    import re
+
+    argv = ["calibrate", f"{demo}/harrier-rb87.toml", f"{demo}/harrier-detuning-scan.csv"]
+    code = main([*argv, *extra, "--out", str(tmp_path / "x")])
+    err = capsys.readouterr().err.strip()
+    assert "\n" not in err and "Traceback" not in err
+    assert re.search(match, err), err
+    assert code == (1 if "setting" in match else 2)
+    assert not (tmp_path / "x").exists()
 
 
 def test_demo_data_regenerate_identically(tmp_path):

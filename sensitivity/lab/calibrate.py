@@ -12,13 +12,14 @@ from __future__ import annotations
 
 import math
 import os
+import warnings
 from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
 from scipy import optimize, stats
 
-from trapbudget.sensitivity.errors import DataError, ScenarioError
+from trapbudget.sensitivity.errors import CalibrationWarning, DataError, DataWarning, ScenarioError
 from trapbudget.sensitivity.lab.calibration import (
     _SCALINGS,
     Calibration,
@@ -29,7 +30,10 @@ from trapbudget.sensitivity.lab.datafiles import MeasurementSet, read_measuremen
 from trapbudget.sensitivity.lab.observations import Observations, to_observations
 from trapbudget.sensitivity.scenario.core import Scenario
 
-__all__ = ["calibrate"]
+#: Below this chi2 p-value a calibration warns that the model does not describe the data.
+MISFIT_P_VALUE = 1e-3
+
+__all__ = ["MISFIT_P_VALUE", "calibrate"]
 
 
 # ----------------------------------------------------------------------- the fit
@@ -37,21 +41,27 @@ __all__ = ["calibrate"]
 
 def _as_observations(
     datasets: Any, *, model: Any, mass: float | None, two_body: bool, robust: bool
-) -> Observations:
+) -> tuple[Observations, list[str]]:
     if isinstance(datasets, Observations | MeasurementSet | str | os.PathLike):
         datasets = [datasets]
     parts: list[Observations] = []
+    skipped: list[str] = []
     for item in datasets:
         if isinstance(item, Observations):
             parts.append(item)
             continue
         mset = item if isinstance(item, MeasurementSet) else read_measurements(item, model=model)
+        if mset.skipped_rows:
+            skipped.append(
+                f"{mset.path.name if mset.path is not None else mset.label}: "
+                f"{mset.skipped_rows} row(s) skipped (a needed value is empty or NaN)"
+            )
         parts.append(
             to_observations(mset, model=model, mass=mass, two_body=two_body, robust=robust)
         )
     if not parts:
         raise DataError("no measurement files given; pass at least one")
-    return Observations.concatenate(parts)
+    return Observations.concatenate(parts), skipped
 
 
 def _species_mass(scenario: Scenario) -> float | None:
@@ -68,7 +78,9 @@ def _species_mass(scenario: Scenario) -> float | None:
         return None
 
 
-def _free_constants(scenario: Scenario, model: Any, free: Sequence[str] | None) -> tuple[str, ...]:
+def _free_constants(
+    scenario: Scenario, model: Any, free: Sequence[str] | None, *, allow_settings: bool = False
+) -> tuple[str, ...]:
     if free is None:
         free = (getattr(scenario, "calibration", None) or {}).get("free")
     if not free:
@@ -89,6 +101,14 @@ def _free_constants(scenario: Scenario, model: Any, free: Sequence[str] | None) 
                 path=getattr(scenario, "source", None),
                 key="calibration.free",
             )
+        if not allow_settings and not getattr(model.inputs[name], "constant", False):
+            raise ScenarioError(
+                f"{name!r} is a setting of the apparatus, not a model constant: fitting it "
+                "makes the data overrule what was set; fit constants (see 'trapbudget inputs') "
+                "or allow it explicitly (--allow-settings, allow_settings=True)",
+                path=getattr(scenario, "source", None),
+                key="calibration.free",
+            )
     if len(set(names)) != len(names):
         raise ScenarioError("a constant is listed twice; list each once", key="calibration.free")
     return names
@@ -105,6 +125,7 @@ def calibrate(
     covariance_scaling: CovarianceScaling = "auto",
     flat_threshold: float = 1e-3,
     n_starts: int = 1,
+    allow_settings: bool = False,
 ) -> Calibration:
     """Fit model constants to measurements by weighted, bounded least squares.
 
@@ -168,8 +189,8 @@ def calibrate(
             f"covariance_scaling {covariance_scaling!r} is unknown; use one of {_SCALINGS}"
         )
     model = scenario.model
-    names = _free_constants(scenario, model, free)
-    obs = _as_observations(
+    names = _free_constants(scenario, model, free, allow_settings=allow_settings)
+    obs, skipped = _as_observations(
         datasets, model=model, mass=_species_mass(scenario), two_body=two_body, robust=robust
     )
     nominal = dict(getattr(scenario, "nominal", {}) or {})
@@ -178,7 +199,9 @@ def calibrate(
     for output in np.unique(obs.output):
         if output not in model.outputs:
             raise DataError(f"the model has no output {output!r}; check the measurement columns")
-    notes: list[str] = []
+    notes: list[str] = list(skipped)
+    for note in skipped:
+        warnings.warn(note, DataWarning, stacklevel=2)
 
     base_values = _observation_inputs(model, nominal, obs)
     unknown = ~np.isfinite(obs.uncertainty)
@@ -269,6 +292,14 @@ def calibrate(
             )
     else:
         sigma_used = sigma
+    if dof > 0 and p_value < MISFIT_P_VALUE and not np.any(unknown):
+        misfit = (
+            f"chi2/dof = {chi2 / dof:.3g} (p = {p_value:.2g}): the model does not describe "
+            "these data within their uncertainties; the fitted constants absorb the misfit, "
+            "so check the data and the model's assumptions before using them"
+        )
+        notes.append(misfit)
+        warnings.warn(misfit, CalibrationWarning, stacklevel=2)
     if dof <= 0:
         notes.append("no degrees of freedom left: chi2/dof undefined, uncertainties unchecked")
     if robust:

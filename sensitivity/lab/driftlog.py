@@ -20,14 +20,18 @@ from trapbudget.sensitivity.lab.datafiles import (
     parse_header,
     read_table_lines,
 )
-from trapbudget.sensitivity.scenario.units import ureg
+from trapbudget.sensitivity.scenario.units import did_you_mean, suggest_unit, ureg
 from trapbudget.sensitivity.textfiles import read_toml
 
 __all__ = [
+    "COLUMN_KEYS",
+    "MAPPING_KEYS",
     "MAX_CHANNELS",
     "UNMONITORED_HINT",
     "ChannelMap",
     "LogTable",
+    "MappingTable",
+    "check_mapping",
     "load_mapping",
     "read_log",
 ]
@@ -147,27 +151,73 @@ class ChannelMap:
     offset: str | None = None
 
 
+#: Keys of a ``[diagnosis]`` table and of each of its ``columns.<name>`` tables.
+MAPPING_KEYS = ("output", "measured", "columns")
+COLUMN_KEYS = ("input", "scale", "offset")
+
+
+class MappingTable(dict):
+    """A ``[diagnosis]`` mapping, remembering the file it came from (for error messages)."""
+
+    source: str = "mapping"
+
+
+def check_mapping(table: Mapping[str, Any], *, source: str) -> MappingTable:
+    """The mapping with every key and type checked; errors name ``source`` and the key."""
+
+    def fail(message: str, key: str) -> DataError:
+        return DataError(message, path=source, key=key)
+
+    for key in table:
+        if key not in MAPPING_KEYS:
+            raise fail(f"unknown key {key!r}{did_you_mean(key, MAPPING_KEYS)}", f"diagnosis.{key}")
+    for key in ("output", "measured"):
+        if key in table and not isinstance(table[key], str):
+            raise fail(f'must be a string, e.g. {key} = "atom_number"', f"diagnosis.{key}")
+    columns = table.get("columns", {}) or {}
+    if not isinstance(columns, Mapping):
+        raise fail("must be a table of [diagnosis.columns.<column>]", "diagnosis.columns")
+    for column, spec in columns.items():
+        key = f"diagnosis.columns.{column}"
+        if isinstance(spec, str):
+            continue
+        if not isinstance(spec, Mapping):
+            raise fail('must be a table such as { input = "beam_power" }', key)
+        for name, value in spec.items():
+            if name not in COLUMN_KEYS:
+                raise fail(
+                    f"unknown key {name!r}{did_you_mean(name, COLUMN_KEYS)}", f"{key}.{name}"
+                )
+            if not isinstance(value, str):
+                raise fail('must be a string, e.g. scale = "3 mW/V"', f"{key}.{name}")
+        for name in ("scale", "offset"):
+            text = spec.get(name)
+            if text is not None and not (name == "offset" and text == "nominal"):
+                _quantity(text, source, key=f"{key}.{name}")
+    out = MappingTable(table)
+    out.source = source
+    return out
+
+
 def load_mapping(path: str | os.PathLike[str]) -> dict[str, Any]:
     """Read a column mapping from a TOML file: its ``[diagnosis]`` table (or the whole file)."""
     data = read_toml(path, error=DataError, what="mapping file")
     table = data.get("diagnosis", data)
     if not isinstance(table, dict):
         raise DataError("[diagnosis] must be a table", path=Path(path))
-    return dict(table)
+    return check_mapping(table, source=str(path))
 
 
 def _mapping_from(scenario: Any, mapping: Any) -> dict[str, Any]:
     if isinstance(mapping, str | os.PathLike):
         return load_mapping(mapping)
+    scenario_file = str(getattr(scenario, "source", None) or "scenario")
     if mapping is not None:
-        return dict(mapping)
+        return check_mapping(dict(mapping), source="mapping")
     table = getattr(scenario, "diagnosis", None)
     if table:
-        return dict(table)
-    source = getattr(scenario, "source", None)
-    if source is not None and Path(source).is_file():
-        return dict(read_toml(source, what="scenario file").get("diagnosis", {}))
-    return {}
+        return check_mapping(dict(table), source=scenario_file)
+    return check_mapping({}, source=scenario_file)
 
 
 def _channel_maps(
@@ -180,8 +230,9 @@ def _channel_maps(
             close = difflib.get_close_matches(column, list(log.columns), n=1)
             hint = f"; did you mean {close[0]!r}?" if close else ""
             raise DataError(
-                f"diagnosis.columns.{column}: the log has no column {column!r}{hint}",
-                path=log.where,
+                f"the log {log.where} has no column {column!r}{hint}",
+                path=getattr(table, "source", log.where),
+                key=f"diagnosis.columns.{column}",
             )
         if isinstance(spec, str):
             spec = {"input": spec}
@@ -191,7 +242,7 @@ def _channel_maps(
             hint = f"; did you mean {close[0]!r}?" if close else ""
             raise ScenarioError(
                 f"input {name!r} is not a model input{hint}",
-                path=where,
+                path=getattr(table, "source", where),
                 key=f"diagnosis.columns.{column}.input",
             )
         maps.append(ChannelMap(column, name, spec.get("scale"), spec.get("offset")))
@@ -212,12 +263,19 @@ def _channel_maps(
     return maps, ignored
 
 
-def _quantity(text: str, where: str) -> Any:
+def _quantity(text: str, where: str, *, key: str | None = None) -> Any:
     reg = ureg
     try:
-        return reg.Quantity(text)
+        number, unit = text.strip().split(" ", 1) if " " in text.strip() else (text, "")
+        return reg.Quantity(float(number), reg.parse_units(unit) if unit else "dimensionless")
     except Exception:
-        raise DataError(f"{text!r} is not a quantity; write e.g. '2.5 mW/V'", path=where) from None
+        hint = suggest_unit(text.split(" ", 1)[-1], None) if " " in text else ""
+        hint = hint or "; write e.g. '2.5 mW/V'"
+        raise DataError(
+            f"{text!r} is not a quantity{hint}",
+            path=where,
+            key=key,
+        ) from None
 
 
 def _input_values(
