@@ -41,8 +41,10 @@ from scipy.stats import qmc
 from trapbudget.sensitivity.errors import ScenarioError
 from trapbudget.sensitivity.indices.budget import (
     _FULL_FIRST_ORDER,
+    _INDEPENDENT_TOTAL,
     _METHODS,
     DUMMY,
+    METHOD_NAMES,
     IndexMethod,
     _normalise_groups,
     _power_of_two,
@@ -56,6 +58,7 @@ from trapbudget.sensitivity.indices.budget import (
 )
 from trapbudget.sensitivity.indices.convergence import _converge, _Options
 from trapbudget.sensitivity.indices.dependent import dependent_design
+from trapbudget.sensitivity.indices.replicates import DEFAULT_REPLICATES, check_replicates
 from trapbudget.sensitivity.indices.sobol import cross_matrices, design_from_base
 from trapbudget.sensitivity.linear import linear_propagation
 from trapbudget.sensitivity.protocol import as_model
@@ -86,6 +89,7 @@ def rank(
     progress: Callable[[int, int], None] | None = None,
     method: IndexMethod = "sobol",
     estimator: Literal["jansen", "sobol2007"] = "jansen",
+    n_replicates: int = DEFAULT_REPLICATES,
 ) -> xr.Dataset:
     """Rank the inputs of a model by global sensitivity indices: the error budget.
 
@@ -183,6 +187,10 @@ def rank(
             f"convergence_tolerance must be positive; got {convergence_tolerance!r}"
         )
     n_samples = _power_of_two(n_samples, "n_samples")
+    try:
+        n_replicates = check_replicates(n_replicates)
+    except ValueError as error:
+        raise ScenarioError(str(error)) from None
     model = as_model(model, input_names=list(inputs))
     uncertain, fixed = _split_inputs(inputs, model)
     names = list(uncertain)
@@ -210,6 +218,7 @@ def rank(
         n_bootstrap=n_bootstrap,
         rng=generator,
         estimator=estimator,
+        n_replicates=n_replicates,
     )
     if method == "kucherenko" or (method == "sobol" and correlation is not None):
         dependence = np.eye(len(names)) if correlation is None else correlation
@@ -241,7 +250,13 @@ def rank(
 
 
 class _Parts(dict):
-    """Evaluations collected over the steps of the convergence loop, by block name."""
+    """Evaluations collected over the steps of the convergence loop, by block name.
+
+    Each piece carries the replicate axis first and its sample axis at
+    ``axis + 1``; :meth:`joined` concatenates the steps and lays the
+    replicates out replicate-major along the sample axis, as
+    :func:`analyze_budget` takes them with ``n_replicates``.
+    """
 
     def add(self, pieces: Mapping[str, np.ndarray | None]) -> None:
         for key, value in pieces.items():
@@ -249,15 +264,30 @@ class _Parts(dict):
                 self.setdefault(key, []).append(value)
 
     def joined(self, key: str, axis: int = 0) -> np.ndarray | None:
-        return np.concatenate(self[key], axis=axis) if key in self else None
+        if key not in self:
+            return None
+        full = np.moveaxis(np.concatenate(self[key], axis=axis + 1), 0, axis)
+        shape = full.shape
+        return full.reshape(*shape[:axis], shape[axis] * shape[axis + 1], *shape[axis + 2 :])
 
     def dummy(self) -> np.ndarray | None:
         """The dummy's values on the A rows, then the B rows."""
         return np.concatenate([self.joined("dA"), self.joined("dB")]) if "dA" in self else None
 
 
-def _dummy_pieces(base: np.ndarray, d: int, width: int) -> dict[str, np.ndarray]:
-    return {"dA": base[:, d], "dB": base[:, width + d]} if width > d else {}
+def _dummy_pieces(bases: Sequence[np.ndarray], d: int, width: int) -> dict[str, np.ndarray]:
+    if width <= d:
+        return {}
+    return {
+        "dA": np.stack([b[:, d] for b in bases]),
+        "dB": np.stack([b[:, width + d] for b in bases]),
+    }
+
+
+def _engines(dimension: int, opts: _Options) -> list[qmc.Sobol]:
+    """One independently scrambled Sobol' sequence per replicate."""
+    streams = opts.rng.spawn(opts.n_replicates)
+    return [qmc.Sobol(d=dimension, scramble=True, rng=g) for g in streams]
 
 
 def _rank_sobol(
@@ -270,28 +300,43 @@ def _rank_sobol(
 ) -> xr.Dataset:
     d = len(runner.names)
     width = d + (1 if opts.dummy else 0)
-    # One sequence for all steps: the first 2^m points, then the next 2^m, and so on,
-    # so that each step reuses every earlier model run.
-    engine = qmc.Sobol(d=2 * width, scramble=True, rng=opts.rng)
+    # One sequence per replicate for all steps: its first 2^m points, then the next
+    # 2^m, and so on, so that each step reuses every earlier model run.
+    engines = _engines(2 * width, opts)
     factors = [(j,) for j in range(d)]
     group_factors = [tuple(runner.names.index(m) for m in members) for members in groups.values()]
     parts = _Parts()
 
     def step(new: int) -> xr.Dataset:
-        base = engine.random(new)
-        design = design_from_base(
-            np.column_stack([base[:, :d], base[:, width : width + d]]),
-            factors=factors,
-            second_order=second_order,
-        )
-        rows = [design.stacked()]
-        if groups:
-            rows.append(cross_matrices(design.A, design.B, group_factors).reshape(-1, d))
+        bases = [engine.random(new) for engine in engines]
+        designs = [
+            design_from_base(
+                np.column_stack([base[:, :d], base[:, width : width + d]]),
+                factors=factors,
+                second_order=second_order,
+            )
+            for base in bases
+        ]
+        rows = []
+        for design in designs:
+            rows.append(design.stacked())
+            if groups:
+                rows.append(cross_matrices(design.A, design.B, group_factors).reshape(-1, d))
         y = runner(np.concatenate(rows))
-        f_a, f_b, f_ab, f_ba = design.split(y[: design.n_evaluations])
-        parts.add({"A": f_a, "B": f_b, "AB": f_ab, "BA": f_ba, **_dummy_pieces(base, d, width)})
+        y = y.reshape(opts.n_replicates, -1, y.shape[-1])
+        n_eval = designs[0].n_evaluations
+        split = [design.split(y_r[:n_eval]) for design, y_r in zip(designs, y, strict=True)]
+        parts.add(
+            {
+                "A": np.stack([s[0] for s in split]),
+                "B": np.stack([s[1] for s in split]),
+                "AB": np.stack([s[2] for s in split]),
+                "BA": None if second_order is False else np.stack([s[3] for s in split]),
+                **_dummy_pieces(bases, d, width),
+            }
+        )
         if groups:
-            parts.add({"G": y[design.n_evaluations :].reshape(len(groups), new, -1)})
+            parts.add({"G": y[:, n_eval:].reshape(opts.n_replicates, len(groups), new, -1)})
         return analyze_budget(
             parts.joined("A"),  # type: ignore[arg-type]
             parts.joined("B"),  # type: ignore[arg-type]
@@ -303,6 +348,7 @@ def _rank_sobol(
             groups=groups,
             dummy_samples=parts.dummy(),
             output_units=_units(runner.model, runner.outputs, "outputs"),  # type: ignore[arg-type]
+            n_replicates=opts.n_replicates,
             **opts.analysis(),
         )
 
@@ -319,7 +365,7 @@ def _rank_dependent(
 ) -> xr.Dataset:
     d = len(runner.names)
     width = d + (1 if opts.dummy else 0)
-    engine = qmc.Sobol(d=2 * width, scramble=True, rng=opts.rng)
+    engines = _engines(2 * width, opts)
     parts = _Parts()
 
     factors = [(j,) for j in range(d)]
@@ -327,19 +373,22 @@ def _rank_dependent(
     k = len(factors)
 
     def step(new: int) -> xr.Dataset:
-        base = engine.random(new)
-        a, b, c, dd = dependent_design(
-            np.column_stack([base[:, :d], base[:, width : width + d]]),
-            correlation,
-            factors=factors,
-        )
-        y = runner(np.concatenate([a, b, c.reshape(-1, d), dd.reshape(-1, d)]))
-        blocks = y.reshape(2 + 2 * k, new, -1)
-        c_rows, d_rows = blocks[2 : 2 + k], blocks[2 + k :]
+        bases = [engine.random(new) for engine in engines]
+        rows = []
+        for base in bases:
+            a, b, c, dd = dependent_design(
+                np.column_stack([base[:, :d], base[:, width : width + d]]),
+                correlation,
+                factors=factors,
+            )
+            rows.append(np.concatenate([a, b, c.reshape(-1, d), dd.reshape(-1, d)]))
+        y = runner(np.concatenate(rows))
+        blocks = y.reshape(opts.n_replicates, 2 + 2 * k, new, -1)
+        c_rows, d_rows = blocks[:, 2 : 2 + k], blocks[:, 2 + k :]
         parts.add(
-            {"A": blocks[0], "B": blocks[1], "C": c_rows[:d], "D": d_rows[:d]}
-            | ({"CG": c_rows[d:], "DG": d_rows[d:]} if groups else {})
-            | _dummy_pieces(base, d, width)
+            {"A": blocks[:, 0], "B": blocks[:, 1], "C": c_rows[:, :d], "D": d_rows[:, :d]}
+            | ({"CG": c_rows[:, d:], "DG": d_rows[:, d:]} if groups else {})
+            | _dummy_pieces(bases, d, width)
         )
         ds = analyze_budget(
             parts.joined("A"),  # type: ignore[arg-type]
@@ -353,19 +402,30 @@ def _rank_dependent(
             outputs=runner.outputs,  # type: ignore[arg-type]
             dummy_samples=parts.dummy(),
             output_units=_units(runner.model, runner.outputs, "outputs"),  # type: ignore[arg-type]
+            n_replicates=opts.n_replicates,
             **opts.analysis(),
         )
-        ds["interaction"].attrs["long_name"] = (
-            "total minus first order; negative where correlation dominates"
-        )
-        ds.attrs.update(
-            method="kucherenko",
-            first_order_meaning=_FULL_FIRST_ORDER,
-            total_order_meaning="E[Var(Y|X~i)]/Var(Y): what X_i adds beyond the other inputs",
-        )
+        _dependent_meanings(ds)
         return ds
 
     return _converge(step, n_samples, opts)
+
+
+def _dependent_meanings(ds: xr.Dataset) -> None:
+    """Names and meanings of the conditional-sampling columns (correlated inputs)."""
+    # total - first mixes two different decompositions under correlation: not shown.
+    ds["interaction"] = xr.full_like(ds["first_order"], np.nan)
+    ds["interaction"].attrs.update(
+        units="1", long_name="not defined for correlated inputs (see shapley_effect)"
+    )
+    ds["first_order"].attrs["long_name"] = "full first-order index (correlations included)"
+    ds["total_order"].attrs["long_name"] = "independent total-order index (added when last)"
+    ds.attrs.update(
+        method="kucherenko",
+        method_name=METHOD_NAMES["kucherenko"],
+        first_order_meaning=_FULL_FIRST_ORDER,
+        total_order_meaning=_INDEPENDENT_TOTAL,
+    )
 
 
 def _rank_given_data(
@@ -377,12 +437,12 @@ def _rank_given_data(
     width = d + (1 if opts.dummy else 0)
     # Points per base sample: the Saltelli design's d + 2, up to a power of two.
     per_sample = 1 << int(np.ceil(np.log2(d + 2)))
-    engine = qmc.Sobol(d=width, scramble=True, rng=opts.rng)
     names = [*runner.names, *([DUMMY] if opts.dummy else [])]
     parts: dict[str, list[np.ndarray]] = {"x": [], "y": []}
 
     def step(new: int) -> xr.Dataset:
-        unit = engine.random(new * per_sample)
+        # Independent random rows: the bootstrap of the given-data indices needs them.
+        unit = opts.rng.random((new * per_sample, width))
         phys = transform(unit[:, :d], runner.distributions, correlation=correlation)
         parts["y"].append(runner.evaluate_physical(phys))
         parts["x"].append(np.column_stack([phys, unit[:, d:]]))
@@ -443,6 +503,7 @@ def _given_data_budget(table: xr.Dataset, y: np.ndarray, runner: _Runner, *, dum
     _unit_attrs(ds, _units(runner.model, runner.outputs, "outputs"))  # type: ignore[arg-type]
     ds.attrs.update(
         method="delta",
+        method_name=METHOD_NAMES["delta"],
         dummy=bool(dummy),
         first_order_meaning=_FULL_FIRST_ORDER,
     )

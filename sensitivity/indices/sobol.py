@@ -16,6 +16,7 @@ import numpy as np
 from scipy import stats
 from scipy.stats import qmc
 
+from trapbudget.sensitivity.indices.replicates import replicate_interval, split_replicates
 from trapbudget.sensitivity.sampling import is_power_of_two
 
 __all__ = [
@@ -232,6 +233,9 @@ class SobolResult:
         Output variance and mean over the A and B rows.
     confidence_level : float
     n_bootstrap : int
+        Bootstrap resamples (0 when the intervals come from replicates).
+    n_replicates : int
+        Independent randomizations behind the intervals (1: bootstrap).
     """
 
     first_order: np.ndarray
@@ -247,6 +251,7 @@ class SobolResult:
     mean: np.ndarray
     confidence_level: float
     n_bootstrap: int
+    n_replicates: int = 1
 
 
 def _integrands(
@@ -332,6 +337,7 @@ def sobol_indices(
     interval: IntervalMethod = "percentile",
     rng: int | np.random.Generator | None = None,
     estimator: Estimator = "jansen",
+    n_replicates: int = 1,
 ) -> SobolResult:
     """First-, total- and second-order Sobol' indices from Saltelli-design evaluations.
 
@@ -354,6 +360,15 @@ def sobol_indices(
         ``SALib.analyze.sobol.analyze(..., seed=seed)``.
     estimator : {"jansen", "sobol2007"}, default "jansen"
         Total-order estimator.
+    n_replicates : int, default 1
+        R >= 2: the rows of every block are R independent randomizations of
+        the design, replicate-major (rows ``r n .. (r + 1) n - 1`` of f_A, f_B
+        and of each f_AB_i belong to replicate r). Each index is then the mean
+        of the R replicate estimates and its interval the Student-t interval
+        on R - 1 degrees of freedom (:func:`~trapbudget.sensitivity.indices.
+        replicates.replicate_interval`), valid on scrambled Sobol' points;
+        ``n_bootstrap`` and ``interval`` are not used. R = 1: one design, and
+        the bootstrap of its rows, valid only for independent random rows.
 
     Returns
     -------
@@ -389,6 +404,8 @@ def sobol_indices(
         raise ValueError(f"interval must be one of {_INTERVALS}; got {interval!r}")
     if not 0 < confidence_level < 1:
         raise ValueError(f"confidence_level must be in (0, 1); got {confidence_level!r}")
+    if not isinstance(n_replicates, int | np.integer) or n_replicates < 1:
+        raise ValueError(f"n_replicates must be a positive integer; got {n_replicates!r}")
     if not isinstance(n_bootstrap, int | np.integer) or n_bootstrap < 0 or n_bootstrap == 1:
         raise ValueError(f"n_bootstrap must be 0 or an integer >= 2; got {n_bootstrap!r}")
     a = np.asarray(f_A, dtype=float)
@@ -403,35 +420,32 @@ def sobol_indices(
     ab = ab_in.reshape(k, n, m)
     ba = None if f_BA is None else np.asarray(f_BA, dtype=float).reshape(k, n, m)
 
-    everything = [a, b, ab.reshape(-1, m)] + ([] if ba is None else [ba.reshape(-1, m)])
-    stacked = np.concatenate(everything, axis=0)
-    centre = stacked.mean(axis=0)
-    scale = stacked.std(axis=0)
-    scale = np.where(scale > 0, scale, 1.0)
-    a, b, ab = (a - centre) / scale, (b - centre) / scale, (ab - centre) / scale
-    if ba is not None:
-        ba = (ba - centre) / scale
-
-    integrands = _integrands(a, b, ab, ba, estimator)
     shape = (n, k, m, ba is not None)
-    first, total, second = _weighted_estimates(np.ones((1, n)), integrands, *shape)
-    first, total = first[0], total[0]
-    second = None if second is None else second[0]
-
-    nan = np.full_like(first, np.nan)
+    nan = np.full((k, m), np.nan)
     fo_iv = to_iv = ConfidenceInterval(nan, nan)
     fo_se = to_se = nan
     so_iv, so_se = None, None
-    if second is not None:
-        nan2 = np.full_like(second, np.nan)
+    if ba is not None:
+        nan2 = np.full((k, k, m), np.nan)
         so_iv, so_se = ConfidenceInterval(nan2, nan2), nan2
-    if n_bootstrap:
-        samples = _bootstrap_estimates(integrands, shape, n_bootstrap, rng)
-        z = stats.norm.ppf(0.5 + confidence_level / 2)
-        fo_iv, fo_se = _interval(samples[0], first, z, confidence_level, interval)
-        to_iv, to_se = _interval(samples[1], total, z, confidence_level, interval)
+    if n_replicates > 1:
+        first, total, second, reps = _replicated(a, b, ab, ba, n_replicates, estimator)
+        fo_se, fo_iv = _t_interval(reps[0], confidence_level)
+        to_se, to_iv = _t_interval(reps[1], confidence_level)
         if second is not None:
-            so_iv, so_se = _interval(samples[2], second, z, confidence_level, interval)
+            so_se, so_iv = _t_interval(reps[2], confidence_level)
+    else:
+        integrands = _integrands(*_standardised(a, b, ab, ba), estimator)
+        first, total, second = _weighted_estimates(np.ones((1, n)), integrands, *shape)
+        first, total = first[0], total[0]
+        second = None if second is None else second[0]
+        if n_bootstrap:
+            samples = _bootstrap_estimates(integrands, shape, n_bootstrap, rng)
+            z = stats.norm.ppf(0.5 + confidence_level / 2)
+            fo_iv, fo_se = _interval(samples[0], first, z, confidence_level, interval)
+            to_iv, to_se = _interval(samples[1], total, z, confidence_level, interval)
+            if second is not None:
+                so_iv, so_se = _interval(samples[2], second, z, confidence_level, interval)
 
     if single:
         first, total, fo_se, to_se = first[..., 0], total[..., 0], fo_se[..., 0], to_se[..., 0]
@@ -455,8 +469,50 @@ def sobol_indices(
         variance=np.asarray(variance),
         mean=np.asarray(mean),
         confidence_level=float(confidence_level),
-        n_bootstrap=int(n_bootstrap),
+        n_bootstrap=0 if n_replicates > 1 else int(n_bootstrap),
+        n_replicates=int(n_replicates),
     )
+
+
+def _standardised(a, b, ab, ba):
+    """Centre on the mean of all evaluations and scale by their standard deviation."""
+    m = a.shape[1]
+    everything = [a, b, ab.reshape(-1, m)] + ([] if ba is None else [ba.reshape(-1, m)])
+    stacked = np.concatenate(everything, axis=0)
+    centre = stacked.mean(axis=0)
+    scale = stacked.std(axis=0)
+    scale = np.where(scale > 0, scale, 1.0)
+    a, b, ab = (a - centre) / scale, (b - centre) / scale, (ab - centre) / scale
+    if ba is not None:
+        ba = (ba - centre) / scale
+    return a, b, ab, ba
+
+
+def _replicated(a, b, ab, ba, n_replicates, estimator):
+    """Estimates of each replicate (rows replicate-major); their means and the replicates."""
+    a_r = split_replicates(a, n_replicates)
+    b_r = split_replicates(b, n_replicates)
+    ab_r = np.moveaxis(split_replicates(ab, n_replicates, axis=1), 2, 1)  # (R, k, n, m)
+    ba_r = None if ba is None else np.moveaxis(split_replicates(ba, n_replicates, axis=1), 2, 1)
+    n, m = a_r.shape[1], a_r.shape[2]
+    k = ab_r.shape[1]
+    shape = (n, k, m, ba is not None)
+    firsts, totals, seconds = [], [], []
+    for r in range(n_replicates):
+        parts = _standardised(a_r[r], b_r[r], ab_r[r], None if ba_r is None else ba_r[r])
+        f, t, s2 = _weighted_estimates(np.ones((1, n)), _integrands(*parts, estimator), *shape)
+        firsts.append(f[0])
+        totals.append(t[0])
+        if s2 is not None:
+            seconds.append(s2[0])
+    reps = [np.stack(firsts), np.stack(totals)] + ([np.stack(seconds)] if seconds else [])
+    means = [x.mean(axis=0) for x in reps]
+    return means[0], means[1], (means[2] if seconds else None), reps
+
+
+def _t_interval(replicates, confidence_level):
+    res = replicate_interval(replicates, confidence_level=confidence_level)
+    return res.standard_error, ConfidenceInterval(res.low, res.high)
 
 
 def resample_weights(indices: np.ndarray) -> np.ndarray:
