@@ -179,8 +179,11 @@ def allocate(
     max_iterations : int
         Monte Carlo rounds of refinement at most.
     safety_margin : float
-        A probability requirement counts as met when the estimate minus this
-        many binomial standard errors reaches the required probability.
+        A probability requirement counts as met when the one-sided
+        Clopper-Pearson lower bound at this many standard normal quantiles
+        (1: 84 %) reaches the required probability; 0 compares the estimate
+        itself. Unlike "estimate minus k standard errors" it keeps a margin
+        when every sample passes (Clopper & Pearson 1934).
     max_loosen : float
         A smooth-cost tolerance may be loosened to at most this multiple of
         its present value (the linear model is not trusted far outside).

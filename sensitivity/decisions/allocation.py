@@ -89,6 +89,16 @@ def _z(probability: float, kind: str) -> float:
     return float(stats.norm.ppf(probability))
 
 
+def _lower_bound(hits: int, n: int, margin: float) -> float:
+    """One-sided Clopper-Pearson lower bound on a probability at ``margin`` normal quantiles."""
+    if margin <= 0:
+        return hits / n
+    from trapbudget.sensitivity.compliance import probability_interval
+
+    level = 2.0 * float(stats.norm.cdf(margin)) - 1.0
+    return probability_interval(hits, n, confidence_level=level)[0]
+
+
 def _check(samples, requirements, *, safety_margin: float):
     """Probability met (with binomial standard error) and pass/fail of each requirement."""
     from trapbudget.sensitivity.decisions.compare import requirement_indicator
@@ -110,10 +120,13 @@ def _check(samples, requirements, *, safety_margin: float):
                 }
             )
             continue
-        p_hat = float(indicator.mean())
+        hits = int(np.count_nonzero(indicator))
+        p_hat = hits / n
         se = math.sqrt(p_hat * (1.0 - p_hat) / n)
         target = 0.5 if req.probability is None else float(req.probability)
-        met = p_hat - safety_margin * se >= target
+        # The margin is a one-sided Clopper-Pearson bound at normal quantile safety_margin:
+        # unlike p - k se it stays below 1 when every sample passes.
+        met = _lower_bound(hits, n, safety_margin) >= target
         wanted = min(target + safety_margin * math.sqrt(target * (1 - target) / n), 1 - 1.0 / n)
         z_target = _z(wanted, req.kind)
         z_hat = _z(min(max(p_hat, 0.5 / n), 1.0 - 0.5 / n), req.kind)
