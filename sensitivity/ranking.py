@@ -36,12 +36,10 @@ from typing import Any, Literal
 
 import numpy as np
 import xarray as xr
-from scipy.stats import qmc
 
 from trapbudget.sensitivity.errors import ScenarioError
 from trapbudget.sensitivity.indices.budget import (
     _FULL_FIRST_ORDER,
-    _INDEPENDENT_TOTAL,
     _METHODS,
     DUMMY,
     METHOD_NAMES,
@@ -54,12 +52,10 @@ from trapbudget.sensitivity.indices.budget import (
     _unit_attrs,
     _units,
     _validity_counts,
-    analyze_budget,
 )
 from trapbudget.sensitivity.indices.convergence import _converge, _Options
-from trapbudget.sensitivity.indices.dependent import dependent_design
+from trapbudget.sensitivity.indices.designs import _rank_dependent, _rank_sobol
 from trapbudget.sensitivity.indices.replicates import DEFAULT_REPLICATES, check_replicates
-from trapbudget.sensitivity.indices.sobol import cross_matrices, design_from_base
 from trapbudget.sensitivity.linear import linear_propagation
 from trapbudget.sensitivity.protocol import as_model
 from trapbudget.sensitivity.sampling import transform
@@ -90,6 +86,7 @@ def rank(
     method: IndexMethod = "sobol",
     estimator: Literal["jansen", "sobol2007"] = "jansen",
     n_replicates: int = DEFAULT_REPLICATES,
+    shapley: bool = True,
 ) -> xr.Dataset:
     """Rank the inputs of a model by global sensitivity indices: the error budget.
 
@@ -219,6 +216,7 @@ def rank(
         rng=generator,
         estimator=estimator,
         n_replicates=n_replicates,
+        shapley=shapley,
     )
     if method == "kucherenko" or (method == "sobol" and correlation is not None):
         dependence = np.eye(len(names)) if correlation is None else correlation
@@ -247,185 +245,6 @@ def rank(
         if name.startswith(("first_order", "total_order", "delta", "group_", "second_order")):  # type: ignore[attr-defined]
             ds[name].attrs.setdefault("units", "1")
     return ds
-
-
-class _Parts(dict):
-    """Evaluations collected over the steps of the convergence loop, by block name.
-
-    Each piece carries the replicate axis first and its sample axis at
-    ``axis + 1``; :meth:`joined` concatenates the steps and lays the
-    replicates out replicate-major along the sample axis, as
-    :func:`analyze_budget` takes them with ``n_replicates``.
-    """
-
-    def add(self, pieces: Mapping[str, np.ndarray | None]) -> None:
-        for key, value in pieces.items():
-            if value is not None:
-                self.setdefault(key, []).append(value)
-
-    def joined(self, key: str, axis: int = 0) -> np.ndarray | None:
-        if key not in self:
-            return None
-        full = np.moveaxis(np.concatenate(self[key], axis=axis + 1), 0, axis)
-        shape = full.shape
-        return full.reshape(*shape[:axis], shape[axis] * shape[axis + 1], *shape[axis + 2 :])
-
-    def dummy(self) -> np.ndarray | None:
-        """The dummy's values on the A rows, then the B rows."""
-        return np.concatenate([self.joined("dA"), self.joined("dB")]) if "dA" in self else None
-
-
-def _dummy_pieces(bases: Sequence[np.ndarray], d: int, width: int) -> dict[str, np.ndarray]:
-    if width <= d:
-        return {}
-    return {
-        "dA": np.stack([b[:, d] for b in bases]),
-        "dB": np.stack([b[:, width + d] for b in bases]),
-    }
-
-
-def _engines(dimension: int, opts: _Options) -> list[qmc.Sobol]:
-    """One independently scrambled Sobol' sequence per replicate."""
-    streams = opts.rng.spawn(opts.n_replicates)
-    return [qmc.Sobol(d=dimension, scramble=True, rng=g) for g in streams]
-
-
-def _rank_sobol(
-    runner: _Runner,
-    n_samples: int,
-    opts: _Options,
-    *,
-    second_order: bool,
-    groups: Mapping[str, tuple[str, ...]],
-) -> xr.Dataset:
-    d = len(runner.names)
-    width = d + (1 if opts.dummy else 0)
-    # One sequence per replicate for all steps: its first 2^m points, then the next
-    # 2^m, and so on, so that each step reuses every earlier model run.
-    engines = _engines(2 * width, opts)
-    factors = [(j,) for j in range(d)]
-    group_factors = [tuple(runner.names.index(m) for m in members) for members in groups.values()]
-    parts = _Parts()
-
-    def step(new: int) -> xr.Dataset:
-        bases = [engine.random(new) for engine in engines]
-        designs = [
-            design_from_base(
-                np.column_stack([base[:, :d], base[:, width : width + d]]),
-                factors=factors,
-                second_order=second_order,
-            )
-            for base in bases
-        ]
-        rows = []
-        for design in designs:
-            rows.append(design.stacked())
-            if groups:
-                rows.append(cross_matrices(design.A, design.B, group_factors).reshape(-1, d))
-        y = runner(np.concatenate(rows))
-        y = y.reshape(opts.n_replicates, -1, y.shape[-1])
-        n_eval = designs[0].n_evaluations
-        split = [design.split(y_r[:n_eval]) for design, y_r in zip(designs, y, strict=True)]
-        parts.add(
-            {
-                "A": np.stack([s[0] for s in split]),
-                "B": np.stack([s[1] for s in split]),
-                "AB": np.stack([s[2] for s in split]),
-                "BA": None if second_order is False else np.stack([s[3] for s in split]),
-                **_dummy_pieces(bases, d, width),
-            }
-        )
-        if groups:
-            parts.add({"G": y[:, n_eval:].reshape(opts.n_replicates, len(groups), new, -1)})
-        return analyze_budget(
-            parts.joined("A"),  # type: ignore[arg-type]
-            parts.joined("B"),  # type: ignore[arg-type]
-            parts.joined("AB", 1),  # type: ignore[arg-type]
-            parts.joined("BA", 1),
-            inputs=runner.names,
-            outputs=runner.outputs,  # type: ignore[arg-type]
-            f_AB_groups=parts.joined("G", 1),
-            groups=groups,
-            dummy_samples=parts.dummy(),
-            output_units=_units(runner.model, runner.outputs, "outputs"),  # type: ignore[arg-type]
-            n_replicates=opts.n_replicates,
-            **opts.analysis(),
-        )
-
-    return _converge(step, n_samples, opts)
-
-
-def _rank_dependent(
-    runner: _Runner,
-    n_samples: int,
-    opts: _Options,
-    *,
-    correlation: np.ndarray,
-    groups: Mapping[str, tuple[str, ...]],
-) -> xr.Dataset:
-    d = len(runner.names)
-    width = d + (1 if opts.dummy else 0)
-    engines = _engines(2 * width, opts)
-    parts = _Parts()
-
-    factors = [(j,) for j in range(d)]
-    factors += [tuple(runner.names.index(m) for m in members) for members in groups.values()]
-    k = len(factors)
-
-    def step(new: int) -> xr.Dataset:
-        bases = [engine.random(new) for engine in engines]
-        rows = []
-        for base in bases:
-            a, b, c, dd = dependent_design(
-                np.column_stack([base[:, :d], base[:, width : width + d]]),
-                correlation,
-                factors=factors,
-            )
-            rows.append(np.concatenate([a, b, c.reshape(-1, d), dd.reshape(-1, d)]))
-        y = runner(np.concatenate(rows))
-        blocks = y.reshape(opts.n_replicates, 2 + 2 * k, new, -1)
-        c_rows, d_rows = blocks[:, 2 : 2 + k], blocks[:, 2 + k :]
-        parts.add(
-            {"A": blocks[:, 0], "B": blocks[:, 1], "C": c_rows[:, :d], "D": d_rows[:, :d]}
-            | ({"CG": c_rows[:, d:], "DG": d_rows[:, d:]} if groups else {})
-            | _dummy_pieces(bases, d, width)
-        )
-        ds = analyze_budget(
-            parts.joined("A"),  # type: ignore[arg-type]
-            parts.joined("B"),  # type: ignore[arg-type]
-            parts.joined("C", 1),  # type: ignore[arg-type]
-            f_AB_total=parts.joined("D", 1),
-            f_AB_groups=parts.joined("CG", 1),
-            f_AB_groups_total=parts.joined("DG", 1),
-            groups=groups,
-            inputs=runner.names,
-            outputs=runner.outputs,  # type: ignore[arg-type]
-            dummy_samples=parts.dummy(),
-            output_units=_units(runner.model, runner.outputs, "outputs"),  # type: ignore[arg-type]
-            n_replicates=opts.n_replicates,
-            **opts.analysis(),
-        )
-        _dependent_meanings(ds)
-        return ds
-
-    return _converge(step, n_samples, opts)
-
-
-def _dependent_meanings(ds: xr.Dataset) -> None:
-    """Names and meanings of the conditional-sampling columns (correlated inputs)."""
-    # total - first mixes two different decompositions under correlation: not shown.
-    ds["interaction"] = xr.full_like(ds["first_order"], np.nan)
-    ds["interaction"].attrs.update(
-        units="1", long_name="not defined for correlated inputs (see shapley_effect)"
-    )
-    ds["first_order"].attrs["long_name"] = "full first-order index (correlations included)"
-    ds["total_order"].attrs["long_name"] = "independent total-order index (added when last)"
-    ds.attrs.update(
-        method="kucherenko",
-        method_name=METHOD_NAMES["kucherenko"],
-        first_order_meaning=_FULL_FIRST_ORDER,
-        total_order_meaning=_INDEPENDENT_TOTAL,
-    )
 
 
 def _rank_given_data(

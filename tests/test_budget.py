@@ -69,8 +69,10 @@ def test_ishigami_budget_matches_closed_form():
         ds["variance_share"], ds["total_order"] * ds["output_std"] ** 2, rtol=1e-12
     )
     assert abs(float(sub["output_std"]) ** 2 - v) < 0.05 * v
-    # R replicates of N base rows: R N (2d + 2) runs with second order.
-    assert ds.attrs["n_evaluations"] == ds.attrs["n_replicates"] * 4096 * (2 * 3 + 2)
+    # R replicates of N base rows: R N (2d + 2 + S) runs with second order, S = 2^d - 1
+    # Shapley sets for d <= 7.
+    assert ds.attrs["shapley_sets"] == 2**3 - 1
+    assert ds.attrs["n_evaluations"] == ds.attrs["n_replicates"] * 4096 * (2 * 3 + 2 + 7)
     assert ds.attrs["method"] == "sobol" and ds.attrs["converged"] is True
     assert ds.attrs["seed"] == 2
 
@@ -107,7 +109,8 @@ def test_groups_of_an_additive_model_add_up():
     members = ds["total_order"].sel(output="y", input=["x1", "x3"]).sum()
     assert abs(float(group["group_total_order"]) - float(members)) <= tol
     assert str(group["group_members"].values) == "x1,x3"
-    assert ds.attrs["n_evaluations"] == ds.attrs["n_replicates"] * 1024 * (3 + 2 + 1)
+    # R N (d + 2 + groups + Shapley sets) runs.
+    assert ds.attrs["n_evaluations"] == ds.attrs["n_replicates"] * 1024 * (3 + 2 + 1 + 7)
     # input -> group mapping (the scenario's per-input "group" key) gives the same grouping.
     again = rank(LinearModel(b), inputs, n_samples=1024, rng=4, groups={"x1": "g", "x3": "g"})
     xr.testing.assert_allclose(again["group_total_order"], ds["group_total_order"])
@@ -306,8 +309,8 @@ def test_kucherenko_indices_for_correlated_inputs():
     )  # fmt: skip
     sub = ds.sel(output="y")
     assert ds.attrs["method"] == "kucherenko"
-    # R replicates of N base rows: R N (2d + 2) runs (A, B, C_i, D_i).
-    assert ds.attrs["n_evaluations"] == ds.attrs["n_replicates"] * 4096 * (2 * 3 + 2)
+    # R replicates of N base rows: R N (2d + 2 + S) runs (A, B, C_i, D_i, Shapley sets).
+    assert ds.attrs["n_evaluations"] == ds.attrs["n_replicates"] * 4096 * (2 * 3 + 2 + 7)
     assert np.all(np.abs(sub["first_order"].values - first) <= 4 * se(sub, "first_order"))
     assert np.all(np.abs(sub["total_order"].values - total) <= 4 * se(sub, "total_order"))
     # total - first mixes two decompositions under correlation: not reported.

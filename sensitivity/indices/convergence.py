@@ -28,6 +28,7 @@ class _Options:
     rng: np.random.Generator
     estimator: str
     n_replicates: int = 1
+    shapley: bool = False
 
     def analysis(self) -> dict[str, Any]:
         return {

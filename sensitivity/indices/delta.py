@@ -14,13 +14,13 @@ import xarray as xr
 from scipy import stats
 
 from trapbudget.sensitivity.errors import ScenarioError
+from trapbudget.sensitivity.indices.bootstrap import bootstrap_indices, resample_weights
 from trapbudget.sensitivity.indices.givendata import (
     default_bins,
     first_order_given_data,
     rank_classes,
 )
 from trapbudget.sensitivity.indices.screening import _quiet_salib
-from trapbudget.sensitivity.indices.sobol import bootstrap_indices, resample_weights
 
 __all__ = ["delta_indices"]
 

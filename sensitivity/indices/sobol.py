@@ -10,12 +10,17 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Literal, NamedTuple
+from typing import Literal
 
 import numpy as np
 from scipy import stats
 from scipy.stats import qmc
 
+from trapbudget.sensitivity.indices.bootstrap import (
+    ConfidenceInterval,
+    bootstrap_estimates,
+    bootstrap_interval,
+)
 from trapbudget.sensitivity.indices.replicates import replicate_interval, split_replicates
 from trapbudget.sensitivity.sampling import is_power_of_two
 
@@ -25,11 +30,9 @@ __all__ = [
     "IntervalMethod",
     "SaltelliDesign",
     "SobolResult",
-    "bootstrap_indices",
     "check_power_of_two",
     "cross_matrices",
     "design_from_base",
-    "resample_weights",
     "saltelli_design",
     "sobol_indices",
 ]
@@ -38,15 +41,6 @@ Estimator = Literal["jansen", "sobol2007"]
 IntervalMethod = Literal["normal", "percentile"]
 _ESTIMATORS = ("jansen", "sobol2007")
 _INTERVALS = ("normal", "percentile")
-# Elements of one bootstrap weight block (resamples x base rows); bounds memory.
-_BOOTSTRAP_BLOCK = 1 << 22
-
-
-class ConfidenceInterval(NamedTuple):
-    """Lower and upper bounds of a bootstrap confidence interval."""
-
-    low: np.ndarray
-    high: np.ndarray
 
 
 def check_power_of_two(n_samples: int, *, name: str = "n_samples") -> int:
@@ -320,12 +314,6 @@ def _weighted_estimates(
     return first, total, second
 
 
-def bootstrap_indices(n: int, n_bootstrap: int, rng) -> np.ndarray:
-    """Resample row indices, shape (n, n_bootstrap), drawn as SALib draws them."""
-    generator = np.random.default_rng(rng)
-    return generator.integers(n, size=(n, n_bootstrap))
-
-
 def sobol_indices(
     f_A: np.ndarray,
     f_B: np.ndarray,
@@ -440,12 +428,14 @@ def sobol_indices(
         first, total = first[0], total[0]
         second = None if second is None else second[0]
         if n_bootstrap:
-            samples = _bootstrap_estimates(integrands, shape, n_bootstrap, rng)
+            samples = bootstrap_estimates(integrands, shape, n_bootstrap, rng, _weighted_estimates)
             z = stats.norm.ppf(0.5 + confidence_level / 2)
-            fo_iv, fo_se = _interval(samples[0], first, z, confidence_level, interval)
-            to_iv, to_se = _interval(samples[1], total, z, confidence_level, interval)
+            fo_iv, fo_se = bootstrap_interval(samples[0], first, z, confidence_level, interval)
+            to_iv, to_se = bootstrap_interval(samples[1], total, z, confidence_level, interval)
             if second is not None:
-                so_iv, so_se = _interval(samples[2], second, z, confidence_level, interval)
+                so_iv, so_se = bootstrap_interval(
+                    samples[2], second, z, confidence_level, interval
+                )
 
     if single:
         first, total, fo_se, to_se = first[..., 0], total[..., 0], fo_se[..., 0], to_se[..., 0]
@@ -513,38 +503,3 @@ def _replicated(a, b, ab, ba, n_replicates, estimator):
 def _t_interval(replicates, confidence_level):
     res = replicate_interval(replicates, confidence_level=confidence_level)
     return res.standard_error, ConfidenceInterval(res.low, res.high)
-
-
-def resample_weights(indices: np.ndarray) -> np.ndarray:
-    """Multiplicity of each of n rows in each resample: (n, r) indices -> (r, n) floats."""
-    n, width = indices.shape
-    flat = (indices + n * np.arange(width)[None, :]).ravel()
-    return np.bincount(flat, minlength=n * width).reshape(width, n).astype(float)
-
-
-def _bootstrap_estimates(integrands, shape, n_bootstrap, rng):
-    """Bootstrap replicates of every estimator, in blocks of resamples."""
-    n = shape[0]
-    r = bootstrap_indices(n, n_bootstrap, rng)  # (n, n_bootstrap)
-    per_block = max(1, _BOOTSTRAP_BLOCK // max(n, integrands.shape[1]))
-    firsts, totals, seconds = [], [], []
-    for start in range(0, n_bootstrap, per_block):
-        w = resample_weights(r[:, start : start + per_block])
-        f, t, s = _weighted_estimates(w, integrands, *shape)
-        firsts.append(f)
-        totals.append(t)
-        if s is not None:
-            seconds.append(s)
-    first = np.concatenate(firsts)
-    total = np.concatenate(totals)
-    second = np.concatenate(seconds) if seconds else None
-    return first, total, second
-
-
-def _interval(replicates, estimate, z, confidence_level, method):
-    se = np.std(replicates, axis=0, ddof=1)
-    if method == "normal":
-        return ConfidenceInterval(estimate - z * se, estimate + z * se), se
-    alpha = (1 - confidence_level) / 2
-    low, high = np.quantile(replicates, [alpha, 1 - alpha], axis=0)
-    return ConfidenceInterval(low, high), se
