@@ -1,33 +1,50 @@
-"""The error budget: global ranking of the inputs by Sobol' indices.
+"""The error budget: global ranking of the inputs by variance-based indices.
 
-:func:`rank` runs the Saltelli design through a model and returns the budget
+:func:`rank` runs a replicated design through a model and returns the budget
 Dataset (dims ``output``, ``input``) of DEVELOPERS.md; :func:`analyze_budget`
 does the analysis alone on precomputed evaluations.
+
+What ``n_samples`` means
+------------------------
+The Sobol' and conditional-sampling designs are run as R independent
+scramblings (replicates, ``n_replicates``, default 10) of N = ``n_samples``
+base points each. Every index is the mean of its R replicate estimates and
+its interval the Student-t interval on R - 1 degrees of freedom (L'Ecuyer &
+Lemieux 2002): the rows of one scrambled sequence are not independent, so
+they are never bootstrapped. Model runs: ``R N (d + 2 + S)`` for independent
+inputs (``R N (2d + 2 + S)`` with second order), ``R N (2d + 2 + S)`` with a
+correlation, plus ``R N`` per group (two with a correlation); S is the number
+of sets the Shapley effects need (``2^d - 1`` up to 7 inputs, about
+``8 (d - 1) + 1`` above; 0 with ``shapley=False``), in ``attrs["shapley_sets"]``.
+``method="delta"`` draws ``N`` times ``d + 2`` (up to a power of two)
+independent random points and bootstraps them.
 
 Columns of the budget
 ---------------------
 Independent inputs (``method="sobol"``): ``first_order`` and ``total_order``
-are Sobol' indices (Saltelli 2010 and Jansen 1999 estimators), with bootstrap
-bounds; ``interaction = total_order - first_order``; ``variance_share`` is
-``total_order * Var(Y)``.
+are Sobol' indices (Saltelli 2010 and Jansen 1999 estimators) and the
+headline; ``interaction = total_order - first_order``; ``variance_share`` is
+``total_order * Var(Y)``; ``shapley_effect`` beside them.
 
-Correlated inputs (a ``correlation`` given, or ``method="delta"``): Sobol'
-indices assume independent inputs, so the budget is computed from one
-correlated sample instead. ``first_order`` is then the *full* first-order
-index ``Var(E[Y|X_i]) / Var(Y)``, which includes the part of Y an input
-explains through the inputs it is correlated with (these can add to more than
-one); ``delta`` is Borgonovo's moment-independent index; ``total_order`` is NaN;
-``rank`` follows ``delta``; ``variance_share`` is ``first_order * Var(Y)``.
-The noise floor is the dummy's upper bounds on both, and an input is below
-it when both its indices are.
+Correlated inputs (a ``correlation`` given; ``method="kucherenko"``, named
+"conditional sampling (Kucherenko)"): the inputs are joined by the Gaussian
+copula and every conditional law is exact. ``shapley_effect`` is the headline
+share (Owen 2014; Song, Nelson & Staum 2016): non-negative, summing to one,
+a drift shared through a correlation split fairly; ``rank``,
+``variance_share`` (Shapley x Var(Y)) and the noise-floor verdict follow it.
+Beside it ``first_order`` is the *full* first-order index
+``Var(E[Y|X_i]) / Var(Y)`` (what the input explains on its own, correlations
+included) and ``total_order`` the *independent* total-order index
+``E[Var(Y|X_~i)] / Var(Y)`` (what it adds when it joins last; Kucherenko,
+Tarantola & Annoni 2012). These two do not bracket the Shapley effect, and
+``interaction`` is NaN: their difference mixes two decompositions.
 
-Correlated inputs, conditional sampling (``method="kucherenko"``): for inputs
-joined by the Gaussian copula, ``first_order`` is again the full first-order
-index and ``total_order`` is ``E[Var(Y|X_~i)] / Var(Y)``, the share of the
-variance X_i still carries when every other input is known (Kucherenko,
-Tarantola & Annoni 2012); ``interaction = total - first`` may be negative
-when correlation dominates. Model runs N(2d+2). ``rank`` follows
-``total_order``. ``attrs["method"]`` says which of the three applies."""
+Given data (``method="delta"``, named "given data (Borgonovo delta)"):
+``first_order`` is the full first-order index from class means and
+``delta`` Borgonovo's moment-independent index on one sample of independent
+random draws, bootstrap bounds; ``total_order`` is NaN; ``rank`` follows
+``delta``. ``attrs["method"]`` and ``attrs["method_name"]`` say which applies,
+``attrs["headline"]`` which column is the headline share."""
 
 from __future__ import annotations
 
@@ -97,23 +114,29 @@ def rank(
     inputs : mapping of str to frozen scipy.stats distribution or float
         Uncertain inputs (distributions, SI) and fixed ones (floats, SI).
     n_samples : int
-        Base size N of the Saltelli design, a power of two: the model runs
-        N(d+2) times, N(2d+2) with second order, plus N per group. With
-        ``method="delta"`` (or a correlation) the model runs on one
-        correlated Sobol' sample of N times d+2 rounded up to a power of two.
+        Base size N *per replicate*, a power of two. The model runs
+        ``R N (d + 2 + S)`` times for independent inputs, ``R N (2d + 2 + S)``
+        with second order or with a correlation, plus ``R N`` per group
+        (twice with a correlation); R = ``n_replicates``, S =
+        ``attrs["shapley_sets"]`` (see the module notes). With
+        ``method="delta"`` the model runs on N times d + 2 (rounded up to a
+        power of two) independent random draws.
     outputs : sequence of str, optional
         Outputs to analyse (default: every float output of the model).
     second_order : bool, default False
         Also estimate the closed second-order indices (``second_order``).
     correlation : numpy.ndarray, optional
         Gaussian-copula correlation of the uncertain inputs (their order in
-        ``inputs``); switches to the given-data method (see module notes).
+        ``inputs``); switches the default method to conditional sampling
+        ("kucherenko") with Shapley effects as the headline (module notes).
     nominal : mapping, optional
         Nominal point for the linear (GUM) columns (default: the means).
     rng : int or numpy.random.Generator, optional
-        Seed for the design and the bootstrap.
+        Seed for the designs (one child stream per replicate) and, for
+        ``method="delta"``, the bootstrap.
     confidence_level : float, default 0.95
     n_bootstrap : int, default 200
+        Bootstrap resamples, used by ``method="delta"`` only.
     groups : mapping, optional
         Group name -> member inputs (or input -> group name): adds grouped
         indices on a ``group`` dim (``group_first_order`` etc.).
@@ -126,9 +149,11 @@ def rank(
         last two steps (Sarrazin et al. 2016): no two inputs above the noise
         floor swap places unless their intervals overlap (a statistical tie).
     convergence_tolerance : float, default 0.05
-        Largest accepted width of a bootstrap interval.
+        Largest accepted width of any index's confidence interval (replicate
+        t-intervals; bootstrap for ``method="delta"``). When the loop stops
+        unconverged, ``attrs["waiting_for"]`` and the warning name the index.
     max_samples : int, optional
-        Largest base size the loop may reach (default 16 N).
+        Largest base size per replicate the loop may reach (default 16 N).
     chunk_size : int, default 65536
         Rows per model call.
     progress : callable, optional
@@ -141,6 +166,10 @@ def rank(
         inputs joined by the Gaussian copula (see the module notes).
     estimator : {"jansen", "sobol2007"}, default "jansen"
         Total-order estimator.
+    n_replicates : int, default 10
+        R, independent scramblings of the design (at least 2).
+    shapley : bool, default True
+        Estimate ``shapley_effect`` (always the headline with a correlation).
 
     Returns
     -------
@@ -149,11 +178,14 @@ def rank(
         their ``_low``/``_high`` bounds, ``interaction``, ``rank``,
         ``variance_share``, ``sensitivity_coefficient``,
         ``input_uncertainty``, ``uncertainty_contribution``, ``noise_floor``,
-        ``below_noise_floor``, ``output_mean``, ``output_std``; optional
+        ``below_noise_floor``, ``output_mean``, ``output_std``,
+        ``shapley_effect`` with ``_low``/``_high``; optional
         ``second_order``, ``group_*``, ``history_*`` (dim ``step``), and for
         the given-data method ``delta`` with bounds. ``attrs``: ``method``,
-        ``n_samples``, ``n_evaluations``, ``seed``, ``confidence_level``,
-        ``converged``, ``validity_counts``.
+        ``method_name``, ``headline``, ``n_samples`` (N per replicate),
+        ``n_replicates``, ``interval_method``, ``n_evaluations``, ``seed``,
+        ``confidence_level``, ``converged``, ``waiting_for`` (unconverged),
+        ``validity_counts``.
 
     Raises
     ------
@@ -174,6 +206,9 @@ def rank(
     References
     ----------
     A. Saltelli et al., Comput. Phys. Commun. 181, 259 (2010);
+    P. L'Ecuyer, C. Lemieux, in Modeling Uncertainty, Kluwer (2002), pp. 419-474;
+    A. B. Owen, SIAM/ASA J. Uncertain. Quantif. 2, 245 (2014);
+    S. Kucherenko, S. Tarantola, P. Annoni, Comput. Phys. Commun. 183, 937 (2012);
     F. Sarrazin, F. Pianosi, T. Wagener, Environ. Model. Softw. 79, 135 (2016);
     F. Khorashadi Zadeh et al., Environ. Model. Softw. 91, 210 (2017).
     """

@@ -1,34 +1,11 @@
 """The budget Dataset of a ranking: indices, intervals, ranks and GUM columns from a design.
 
-:func:`~trapbudget.sensitivity.ranking.rank` runs the Saltelli design through a
-model and returns the budget Dataset (dims ``output``, ``input``) of
+:func:`~trapbudget.sensitivity.ranking.rank` runs the replicated design
+through a model and returns the budget Dataset (dims ``output``, ``input``) of
 DEVELOPERS.md; :func:`analyze_budget` here does the analysis alone on
-precomputed evaluations.
-
-Columns of the budget
----------------------
-Independent inputs (``method="sobol"``): ``first_order`` and ``total_order``
-are Sobol' indices (Saltelli 2010 and Jansen 1999 estimators), with bootstrap
-bounds; ``interaction = total_order - first_order``; ``variance_share`` is
-``total_order * Var(Y)``.
-
-Correlated inputs (a ``correlation`` given, or ``method="delta"``): Sobol'
-indices assume independent inputs, so the budget is computed from one
-correlated sample instead. ``first_order`` is then the *full* first-order
-index ``Var(E[Y|X_i]) / Var(Y)``, which includes the part of Y an input
-explains through the inputs it is correlated with (these can add to more than
-one); ``delta`` is Borgonovo's moment-independent index; ``total_order`` is NaN;
-``rank`` follows ``delta``; ``variance_share`` is ``first_order * Var(Y)``.
-The noise floor is the dummy's upper bounds on both, and an input is below
-it when both its indices are.
-
-Correlated inputs, conditional sampling (``method="kucherenko"``): for inputs
-joined by the Gaussian copula, ``first_order`` is again the full first-order
-index and ``total_order`` is ``E[Var(Y|X_~i)] / Var(Y)``, the share of the
-variance X_i still carries when every other input is known (Kucherenko,
-Tarantola & Annoni 2012); ``interaction = total - first`` may be negative
-when correlation dominates. Model runs N(2d+2). ``rank`` follows
-``total_order``. ``attrs["method"]`` says which of the three applies."""
+precomputed evaluations. What each column means for independent and for
+correlated inputs, and how the intervals are computed, is in the notes of
+:mod:`trapbudget.sensitivity.ranking`."""
 
 from __future__ import annotations
 
