@@ -238,7 +238,10 @@ def allocate(
     unit = unit_design(n, len(scenario.inputs), method=m, rng=seed)  # type: ignore[arg-type]
 
     if refine and setup.free_tiered and not setup.free_smooth:
-        tier_costs = [[float(t.cost) for t in scenario.costs[k].tiers] for k in setup.free_tiered]
+        tier_costs = [
+            [float(t.cost) for t in scenario.costs[k].tiers]  # type: ignore[union-attr]
+            for k in setup.free_tiered
+        ]
         if combinations(tier_costs) <= MAX_ENUMERATION:
             searched = _allocate_by_search(
                 scenario, setup, tier_costs, unit, n, m, seed, safety_margin, max_loosen, progress
@@ -422,8 +425,8 @@ def _allocate_by_search(
         variance=np.asarray(variance, dtype=float),
         failing=found.failing,
     )
-    candidate, samples = found.samples  # type: ignore[misc]
-    verified = (candidate, samples, found.checks)
+    candidate: Scenario = found.samples[0]  # type: ignore[index]
+    verified = (candidate, found.samples[1], found.checks)  # type: ignore[index]
     fresh = None
     if found.feasible:
         # Fresh independent draws: the choice was made on the common sample.

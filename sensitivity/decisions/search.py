@@ -68,7 +68,7 @@ def by_cost(costs: Sequence[Sequence[float]]) -> Iterator[tuple[float, tuple[int
     parent that has its last raised position one step lower (the standard
     successor rule for sums of sorted lists).
     """
-    order = [sorted(range(len(c)), key=lambda k, c=c: (c[k], k)) for c in costs]
+    order = [sorted(range(len(c)), key=lambda k, c=c: (c[k], k)) for c in costs]  # type: ignore[misc]
     sorted_costs = [[c[k] for k in o] for c, o in zip(costs, order, strict=True)]
     k = len(costs)
     start = (0,) * k

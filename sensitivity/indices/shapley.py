@@ -107,16 +107,16 @@ def shapley_plan(
     full = tuple(range(d))
     if n_permutations is None and d <= EXACT_LIMIT:
         subsets = [s for size in range(1, d + 1) for s in itertools.combinations(range(d), size)]
-        index = {s: j for j, s in enumerate(subsets)}
+        position = {s: j for j, s in enumerate(subsets)}
         weights = np.zeros((d, len(subsets)))
         for i in range(d):
             others = [j for j in range(d) if j != i]
             for size in range(d):
                 w = math.factorial(size) * math.factorial(d - size - 1) / math.factorial(d)
                 for u in itertools.combinations(others, size):
-                    weights[i, index[tuple(sorted((*u, i)))]] += w
+                    weights[i, position[tuple(sorted((*u, i)))]] += w
                     if u:
-                        weights[i, index[u]] -= w
+                        weights[i, position[u]] -= w
         return ShapleyPlan(tuple(subsets), weights, True)
     generator = np.random.default_rng(rng)
     first = generator.permutation(d)

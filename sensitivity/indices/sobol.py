@@ -423,7 +423,8 @@ def sobol_indices(
         if second is not None:
             so_se, so_iv = _t_interval(reps[2], confidence_level)
     else:
-        integrands = _integrands(*_standardised(a, b, ab, ba), estimator)
+        a, b, ab, ba = _standardised(a, b, ab, ba)
+        integrands = _integrands(a, b, ab, ba, estimator)
         first, total, second = _weighted_estimates(np.ones((1, n)), integrands, *shape)
         first, total = first[0], total[0]
         second = None if second is None else second[0]
