@@ -241,3 +241,31 @@ def test_compare_differences_are_covered():
         se = float(ds["shift_standard_error"].item())
         hits.append(abs(shift - exact_shift) <= t * se)
     assert_covers(np.array(hits), "probability shift")
+
+
+def test_coverage_interval_ends_are_covered_by_their_batch_uncertainty():
+    # JCGM 101:2008 example 9.2 (Y = X1 + X2 + X3 + X4, X_i ~ N(0, 1)): the 95 % interval
+    # is +-1.96 * 2 exactly (scipy.stats.norm). The adaptive run's batches (independent
+    # scrambles of 2^14 Sobol' points) give each end's standard uncertainty; t on h - 1
+    # degrees of freedom. 100 seeds, 2 checks (both ends).
+    from trapbudget.sensitivity.propagation import propagate_adaptive
+    from trapbudget.sensitivity.summary import summarize
+
+    end = float(stats.norm.ppf(0.975) * 2.0)
+    inputs = {f"x{i}": stats.norm(0, 1) for i in range(1, 5)}
+    hits = []
+    for seed in range(100):
+        samples = propagate_adaptive(
+            LinearModel([1.0, 1.0, 1.0, 1.0]), inputs, method="sobol", rng=seed,
+            significant_digits=1, max_samples=2**17,
+        )  # fmt: skip
+        ds = summarize(samples).sel(output="y")
+        t = stats.t.ppf(0.975, ds.attrs["batch_degrees_of_freedom"])
+        hits.append(
+            [
+                abs(float(ds["interval_low"]) + end) <= t * float(ds["interval_low_uncertainty"]),
+                abs(float(ds["interval_high"]) - end)
+                <= t * float(ds["interval_high_uncertainty"]),
+            ]
+        )
+    assert_covers(np.array(hits), "coverage interval ends")
