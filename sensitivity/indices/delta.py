@@ -206,6 +206,13 @@ def delta_indices(
     with correlated inputs it is the *full* first-order index, which counts
     what an input explains through the inputs correlated with it.
 
+    Known bias (measured against the exact delta of a linear Gaussian model,
+    by quadrature, n = 8000, 20 classes): the kernel smoothing pulls delta of
+    strong inputs 3-9 % low and the sampling noise of the class densities
+    pushes weak ones up to 8 % high, bias reduction included; the bootstrap
+    interval does not include this bias, so read delta as a ranking measure,
+    not to better than about 10 %.
+
     References
     ----------
     E. Borgonovo, Reliab. Eng. Syst. Saf. 92, 771 (2007);
