@@ -181,7 +181,7 @@ def _batch_uncertainty(ds, samples, names, confidence_level: float) -> None:
     if batch < 2 or n < 2 * batch or n % batch:
         return
     h = n // batch
-    table = {"mean": [], "interval_low": [], "interval_high": []}
+    table: dict[str, list[float]] = {"mean": [], "interval_low": [], "interval_high": []}
     for name in names:
         y = np.asarray(samples[name].values, dtype=float).reshape(h, batch)
         per = [(float(np.mean(r[np.isfinite(r)])), *coverage_interval(r[np.isfinite(r)],

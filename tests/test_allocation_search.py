@@ -186,3 +186,27 @@ def test_by_cost_visits_every_combination_in_cost_order():
         )
         assert [g[0] for g in got] == every
         assert len({g[1] for g in got}) == len(every)
+
+
+def test_smooth_costs_see_a_zero_slope_input():
+    # y = a^2 + b + 0.3 c at a = 0 with smooth costs: the nominal slope of a is 0, so a
+    # linear pass alone would loosen a freely; the effective slope from a's own spread
+    # (Var(a^2) = 2 u^4 for a normal a, so c_eff^2 = 2 u^2) keeps it in the budget.
+    costs = {n: {"smooth": {"tolerance": 0.3, "cost": 100.0, "exponent": 1.0}} for n in "abc"}
+    scenario = toy_scenario(
+        "square",
+        nominal={"a": 0.0, "b": 0.0, "c": 0.0},
+        tolerances={"a": 0.6, "b": 0.3, "c": 0.3},
+        costs=costs,
+        requirement={"output": "y", "at_most": 0.8, "probability": 0.95, "label": "low"},
+    )
+    allocation = allocate(scenario, max_iterations=12)
+    assert allocation.feasible, allocation.reason
+    assert allocation.tolerances["a"].value < 0.6
+    # Independent check: 2^16 fresh pseudo-random draws, 4 binomial SE below the target.
+    check = propagate(
+        allocation.scenario.model, allocation.scenario.inputs, n_samples=2**16,
+        method="random", rng=5, outputs=["y"],
+    )  # fmt: skip
+    p = float(np.mean(check["y"].values <= 0.8))
+    assert p >= 0.95 - 4 * math.sqrt(0.95 * 0.05 / 2**16), p

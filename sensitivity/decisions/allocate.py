@@ -36,7 +36,12 @@ from trapbudget.sensitivity.decisions.linear_allocation import (
     allocate_tiers,
     uncertainty_bound,
 )
-from trapbudget.sensitivity.decisions.search import MAX_ENUMERATION, combinations, search_tiers
+from trapbudget.sensitivity.decisions.search import (
+    MAX_ENUMERATION,
+    combinations,
+    effective_slopes,
+    search_tiers,
+)
 from trapbudget.sensitivity.errors import ScenarioError
 from trapbudget.sensitivity.scenario.core import Scenario
 
@@ -64,11 +69,17 @@ def _linear_setup(scenario, requirements, labels) -> _Setup:
         outputs=outputs,
     )
     coefficient = linear["sensitivity_coefficient"]
+    effective = effective_slopes(scenario, outputs)
     sensitivity = {}
     for r, req in enumerate(requirements):
         for name in scenario.inputs:
             c = float(coefficient.sel(output=req.output, input=name))
-            sensitivity[(r, name)] = c * c if math.isfinite(c) else 0.0
+            c2 = c * c if math.isfinite(c) else 0.0
+            # Where the nominal slope misses most of what an input does (zero slope at a
+            # symmetric point, strong curvature), use the slope its own Monte Carlo spread
+            # implies: Var(Y | only X_i varies) / u_i^2.
+            e2 = effective[(req.output, name)]
+            sensitivity[(r, name)] = e2 if c2 < 0.5 * e2 else c2
     means = np.array(
         [float(linear["output_nominal"].sel(output=req.output)) for req in requirements]
     )
