@@ -76,6 +76,9 @@ _LOCATIONS: dict[str, str] = {
     "summarize": "trapbudget.sensitivity.summary",
     "transform": "trapbudget.sensitivity.sampling",
     "unit_design": "trapbudget.sensitivity.sampling",
+    "probability_interval": "trapbudget.sensitivity.compliance",
+    "replicate_interval": "trapbudget.sensitivity.indices.replicates",
+    "shapley_plan": "trapbudget.sensitivity.indices.shapley",
 }
 
 __all__ = [
@@ -119,16 +122,19 @@ __all__ = [
     "load_dataset",
     "load_scenario",
     "morris",
+    "probability_interval",
     "propagate",
     "propagate_adaptive",
     "rank",
     "read_measurements",
     "register_model",
+    "replicate_interval",
     "run_study",
     "saltelli_design",
     "save_dataset",
     "scenario_to_toml",
     "select_outputs",
+    "shapley_plan",
     "sobol_indices",
     "summarize",
     "transform",
@@ -153,14 +159,16 @@ def __dir__() -> list[str]:
 
 
 if TYPE_CHECKING:  # for type checkers and IDEs: the same names, imported eagerly
-    from trapbudget.sensitivity.compliance import check_requirements
+    from trapbudget.sensitivity.compliance import check_requirements, probability_interval
     from trapbudget.sensitivity.decisions.allocate import allocate
     from trapbudget.sensitivity.decisions.allocation import Allocation, InfeasibleError
     from trapbudget.sensitivity.decisions.compare import compare, compare_upgrades
     from trapbudget.sensitivity.errors import DataError, ScenarioError, TrapbudgetError, UsageError
     from trapbudget.sensitivity.indices.budget import BudgetConvergenceWarning, analyze_budget
     from trapbudget.sensitivity.indices.delta import delta_indices
+    from trapbudget.sensitivity.indices.replicates import replicate_interval
     from trapbudget.sensitivity.indices.screening import morris
+    from trapbudget.sensitivity.indices.shapley import shapley_plan
     from trapbudget.sensitivity.indices.sobol import saltelli_design, sobol_indices
     from trapbudget.sensitivity.io import load_dataset, save_dataset
     from trapbudget.sensitivity.lab.calibrate import calibrate

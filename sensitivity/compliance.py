@@ -13,7 +13,46 @@ from scipy import stats
 from trapbudget.sensitivity.errors import ScenarioError
 from trapbudget.sensitivity.scenario.requirements import Requirement
 
-__all__ = ["RequirementCheck", "check_requirements", "requirement_met"]
+__all__ = ["RequirementCheck", "check_requirements", "probability_interval", "requirement_met"]
+
+
+def probability_interval(
+    hits: int, n: int, *, confidence_level: float = 0.95, method: str = "exact"
+) -> tuple[float, float]:
+    """Binomial confidence interval of a probability from ``hits`` of ``n`` independent draws.
+
+    Parameters
+    ----------
+    hits, n : int
+        Draws meeting the condition, and all draws (independent).
+    confidence_level : float, default 0.95
+        Two-sided level, in (0, 1).
+    method : {"exact", "wilson"}, default "exact"
+        Clopper-Pearson ("exact": coverage at least the level for every n and
+        p, hence the default) or the Wilson score interval (shorter; its
+        coverage dips a few points below the level where n p (1 - p) is of
+        order one, Brown, Cai & DasGupta 2001).
+
+    Returns
+    -------
+    (low, high) : tuple of float
+        NaN for n = 0. Unlike the Wald interval it has a width when every
+        draw (or none) passes: with n draws all passing, the Clopper-Pearson
+        lower bound is (alpha / 2)^(1/n).
+
+    References
+    ----------
+    C. J. Clopper, E. S. Pearson, Biometrika 26, 404 (1934);
+    E. B. Wilson, J. Am. Stat. Assoc. 22, 209 (1927);
+    L. D. Brown, T. T. Cai, A. DasGupta, Stat. Sci. 16, 101 (2001);
+    ``scipy.stats.binomtest(...).proportion_ci``.
+    """
+    if n <= 0:
+        return math.nan, math.nan
+    ci = stats.binomtest(int(hits), int(n)).proportion_ci(
+        confidence_level=confidence_level, method=method
+    )
+    return float(ci.low), float(ci.high)
 
 
 @dataclass(frozen=True)
@@ -22,7 +61,9 @@ class RequirementCheck:
 
     ``probability`` is the fraction of samples meeting a threshold
     requirement (NaN for the spread), ``standard_error`` its binomial standard
-    error; for the spread, ``estimate`` is std / |mean| and ``estimate_low`` /
+    error, ``probability_low`` / ``probability_high`` its 95 % Clopper-Pearson interval
+    (valid for independent samples; see :func:`probability_interval`); for the
+    spread, ``estimate`` is std / |mean| and ``estimate_low`` /
     ``estimate_high`` its 95 % normal-theory interval. ``met`` is the verdict
     on the point estimate; ``margin`` is (probability - required) or
     (limit - estimate), positive when met.
@@ -37,6 +78,8 @@ class RequirementCheck:
     estimate_low: float = math.nan
     estimate_high: float = math.nan
     n_samples: int = 0
+    probability_low: float = math.nan
+    probability_high: float = math.nan
 
 
 def _spread_interval(y: np.ndarray, level: float = 0.95) -> tuple[float, float, float]:
@@ -62,7 +105,8 @@ def requirement_met(samples: xr.Dataset, requirement: Requirement) -> Requiremen
     Parameters
     ----------
     samples : xarray.Dataset
-        From ``propagate`` (dim ``sample``).
+        From ``propagate`` (dim ``sample``); independent draws
+        (``method="random"``) for the binomial interval to hold.
     requirement : Requirement
 
     Returns
@@ -84,12 +128,20 @@ def requirement_met(samples: xr.Dataset, requirement: Requirement) -> Requiremen
         return RequirementCheck(
             requirement, math.nan, math.nan, bool(c <= limit), limit - c, c, low, high, m
         )
-    hits = requirement.satisfied(y)
-    p_hat = float(np.count_nonzero(hits)) / m
+    hits = int(np.count_nonzero(requirement.satisfied(y)))
+    p_hat = hits / m
     se = math.sqrt(p_hat * (1 - p_hat) / m)
+    low, high = probability_interval(hits, m)
     required = float(requirement.probability)  # type: ignore[arg-type]
     return RequirementCheck(
-        requirement, p_hat, se, bool(p_hat >= required), p_hat - required, n_samples=m
+        requirement,
+        p_hat,
+        se,
+        bool(p_hat >= required),
+        p_hat - required,
+        n_samples=m,
+        probability_low=low,
+        probability_high=high,
     )
 
 
@@ -102,6 +154,7 @@ def check_requirements(samples: xr.Dataset, requirements: Sequence[Requirement])
         Dim ``requirement`` (coordinate: unique titles): ``output``, ``kind``,
         ``limit_low``, ``limit_high`` (SI; one of them NaN for one-sided
         kinds), ``probability_required``, ``probability``, ``standard_error``,
+        ``probability_low``, ``probability_high`` (95 % Clopper-Pearson interval),
         ``estimate``, ``estimate_low``, ``estimate_high``, ``margin``, ``met``,
         ``label``; attrs ``n_samples``, ``all_met``.
     """
@@ -141,6 +194,8 @@ def check_requirements(samples: xr.Dataset, requirements: Sequence[Requirement])
             ),
             "probability": ("requirement", [c.probability for c in checks]),
             "standard_error": ("requirement", [c.standard_error for c in checks]),
+            "probability_low": ("requirement", [c.probability_low for c in checks]),
+            "probability_high": ("requirement", [c.probability_high for c in checks]),
             "estimate": ("requirement", [c.estimate for c in checks]),
             "estimate_low": ("requirement", [c.estimate_low for c in checks]),
             "estimate_high": ("requirement", [c.estimate_high for c in checks]),
@@ -152,6 +207,8 @@ def check_requirements(samples: xr.Dataset, requirements: Sequence[Requirement])
         attrs={
             "n_samples": int(samples.sizes.get("sample", 0)),
             "all_met": bool(all(c.met for c in checks)),
+            "probability_interval": "Clopper-Pearson, 95 %, from independent draws",
+            "sampling": str(samples.attrs.get("method", "")),
         },
     )
     return ds

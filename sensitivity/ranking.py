@@ -1,33 +1,50 @@
-"""The error budget: global ranking of the inputs by Sobol' indices.
+"""The error budget: global ranking of the inputs by variance-based indices.
 
-:func:`rank` runs the Saltelli design through a model and returns the budget
+:func:`rank` runs a replicated design through a model and returns the budget
 Dataset (dims ``output``, ``input``) of DEVELOPERS.md; :func:`analyze_budget`
 does the analysis alone on precomputed evaluations.
+
+What ``n_samples`` means
+------------------------
+The Sobol' and conditional-sampling designs are run as R independent
+scramblings (replicates, ``n_replicates``, default 10) of N = ``n_samples``
+base points each. Every index is the mean of its R replicate estimates and
+its interval the Student-t interval on R - 1 degrees of freedom (L'Ecuyer &
+Lemieux 2002): the rows of one scrambled sequence are not independent, so
+they are never bootstrapped. Model runs: ``R N (d + 2 + S)`` for independent
+inputs (``R N (2d + 2 + S)`` with second order), ``R N (2d + 2 + S)`` with a
+correlation, plus ``R N`` per group (two with a correlation); S is the number
+of sets the Shapley effects need (``2^d - 1`` up to 7 inputs, about
+``8 (d - 1) + 1`` above; 0 with ``shapley=False``), in ``attrs["shapley_sets"]``.
+``method="delta"`` draws ``N`` times ``d + 2`` (up to a power of two)
+independent random points and bootstraps them.
 
 Columns of the budget
 ---------------------
 Independent inputs (``method="sobol"``): ``first_order`` and ``total_order``
-are Sobol' indices (Saltelli 2010 and Jansen 1999 estimators), with bootstrap
-bounds; ``interaction = total_order - first_order``; ``variance_share`` is
-``total_order * Var(Y)``.
+are Sobol' indices (Saltelli 2010 and Jansen 1999 estimators) and the
+headline; ``interaction = total_order - first_order``; ``variance_share`` is
+``total_order * Var(Y)``; ``shapley_effect`` beside them.
 
-Correlated inputs (a ``correlation`` given, or ``method="delta"``): Sobol'
-indices assume independent inputs, so the budget is computed from one
-correlated sample instead. ``first_order`` is then the *full* first-order
-index ``Var(E[Y|X_i]) / Var(Y)``, which includes the part of Y an input
-explains through the inputs it is correlated with (these can add to more than
-one); ``delta`` is Borgonovo's moment-independent index; ``total_order`` is NaN;
-``rank`` follows ``delta``; ``variance_share`` is ``first_order * Var(Y)``.
-The noise floor is the dummy's upper bounds on both, and an input is below
-it when both its indices are.
+Correlated inputs (a ``correlation`` given; ``method="kucherenko"``, named
+"conditional sampling (Kucherenko)"): the inputs are joined by the Gaussian
+copula and every conditional law is exact. ``shapley_effect`` is the headline
+share (Owen 2014; Song, Nelson & Staum 2016): non-negative, summing to one,
+a drift shared through a correlation split fairly; ``rank``,
+``variance_share`` (Shapley x Var(Y)) and the noise-floor verdict follow it.
+Beside it ``first_order`` is the *full* first-order index
+``Var(E[Y|X_i]) / Var(Y)`` (what the input explains on its own, correlations
+included) and ``total_order`` the *independent* total-order index
+``E[Var(Y|X_~i)] / Var(Y)`` (what it adds when it joins last; Kucherenko,
+Tarantola & Annoni 2012). These two do not bracket the Shapley effect, and
+``interaction`` is NaN: their difference mixes two decompositions.
 
-Correlated inputs, conditional sampling (``method="kucherenko"``): for inputs
-joined by the Gaussian copula, ``first_order`` is again the full first-order
-index and ``total_order`` is ``E[Var(Y|X_~i)] / Var(Y)``, the share of the
-variance X_i still carries when every other input is known (Kucherenko,
-Tarantola & Annoni 2012); ``interaction = total - first`` may be negative
-when correlation dominates. Model runs N(2d+2). ``rank`` follows
-``total_order``. ``attrs["method"]`` says which of the three applies."""
+Given data (``method="delta"``, named "given data (Borgonovo delta)"):
+``first_order`` is the full first-order index from class means and
+``delta`` Borgonovo's moment-independent index on one sample of independent
+random draws, bootstrap bounds; ``total_order`` is NaN; ``rank`` follows
+``delta``. ``attrs["method"]`` and ``attrs["method_name"]`` say which applies,
+``attrs["headline"]`` which column is the headline share."""
 
 from __future__ import annotations
 
@@ -36,7 +53,6 @@ from typing import Any, Literal
 
 import numpy as np
 import xarray as xr
-from scipy.stats import qmc
 
 from trapbudget.sensitivity.errors import ScenarioError
 from trapbudget.sensitivity.guard import check_memory
@@ -44,6 +60,7 @@ from trapbudget.sensitivity.indices.budget import (
     _FULL_FIRST_ORDER,
     _METHODS,
     DUMMY,
+    METHOD_NAMES,
     IndexMethod,
     _normalise_groups,
     _power_of_two,
@@ -53,11 +70,10 @@ from trapbudget.sensitivity.indices.budget import (
     _unit_attrs,
     _units,
     _validity_counts,
-    analyze_budget,
 )
 from trapbudget.sensitivity.indices.convergence import _converge, _Options
-from trapbudget.sensitivity.indices.dependent import dependent_design
-from trapbudget.sensitivity.indices.sobol import cross_matrices, design_from_base
+from trapbudget.sensitivity.indices.designs import _rank_dependent, _rank_sobol
+from trapbudget.sensitivity.indices.replicates import DEFAULT_REPLICATES, check_replicates
 from trapbudget.sensitivity.linear import linear_propagation
 from trapbudget.sensitivity.protocol import as_model
 from trapbudget.sensitivity.sampling import transform
@@ -87,6 +103,8 @@ def rank(
     progress: Callable[[int, int], None] | None = None,
     method: IndexMethod = "sobol",
     estimator: Literal["jansen", "sobol2007"] = "jansen",
+    n_replicates: int = DEFAULT_REPLICATES,
+    shapley: bool = True,
 ) -> xr.Dataset:
     """Rank the inputs of a model by global sensitivity indices: the error budget.
 
@@ -97,23 +115,29 @@ def rank(
     inputs : mapping of str to frozen scipy.stats distribution or float
         Uncertain inputs (distributions, SI) and fixed ones (floats, SI).
     n_samples : int
-        Base size N of the Saltelli design, a power of two: the model runs
-        N(d+2) times, N(2d+2) with second order, plus N per group. With
-        ``method="delta"`` (or a correlation) the model runs on one
-        correlated Sobol' sample of N times d+2 rounded up to a power of two.
+        Base size N *per replicate*, a power of two. The model runs
+        ``R N (d + 2 + S)`` times for independent inputs, ``R N (2d + 2 + S)``
+        with second order or with a correlation, plus ``R N`` per group
+        (twice with a correlation); R = ``n_replicates``, S =
+        ``attrs["shapley_sets"]`` (see the module notes). With
+        ``method="delta"`` the model runs on N times d + 2 (rounded up to a
+        power of two) independent random draws.
     outputs : sequence of str, optional
         Outputs to analyse (default: every float output of the model).
     second_order : bool, default False
         Also estimate the closed second-order indices (``second_order``).
     correlation : numpy.ndarray, optional
         Gaussian-copula correlation of the uncertain inputs (their order in
-        ``inputs``); switches to the given-data method (see module notes).
+        ``inputs``); switches the default method to conditional sampling
+        ("kucherenko") with Shapley effects as the headline (module notes).
     nominal : mapping, optional
         Nominal point for the linear (GUM) columns (default: the means).
     rng : int or numpy.random.Generator, optional
-        Seed for the design and the bootstrap.
+        Seed for the designs (one child stream per replicate) and, for
+        ``method="delta"``, the bootstrap.
     confidence_level : float, default 0.95
     n_bootstrap : int, default 200
+        Bootstrap resamples, used by ``method="delta"`` only.
     groups : mapping, optional
         Group name -> member inputs (or input -> group name): adds grouped
         indices on a ``group`` dim (``group_first_order`` etc.).
@@ -126,9 +150,11 @@ def rank(
         last two steps (Sarrazin et al. 2016): no two inputs above the noise
         floor swap places unless their intervals overlap (a statistical tie).
     convergence_tolerance : float, default 0.05
-        Largest accepted width of a bootstrap interval.
+        Largest accepted width of any index's confidence interval (replicate
+        t-intervals; bootstrap for ``method="delta"``). When the loop stops
+        unconverged, ``attrs["waiting_for"]`` and the warning name the index.
     max_samples : int, optional
-        Largest base size the loop may reach (default 16 N).
+        Largest base size per replicate the loop may reach (default 16 N).
     chunk_size : int, default 65536
         Rows per model call.
     progress : callable, optional
@@ -141,6 +167,10 @@ def rank(
         inputs joined by the Gaussian copula (see the module notes).
     estimator : {"jansen", "sobol2007"}, default "jansen"
         Total-order estimator.
+    n_replicates : int, default 10
+        R, independent scramblings of the design (at least 2).
+    shapley : bool, default True
+        Estimate ``shapley_effect`` (always the headline with a correlation).
 
     Returns
     -------
@@ -149,11 +179,14 @@ def rank(
         their ``_low``/``_high`` bounds, ``interaction``, ``rank``,
         ``variance_share``, ``sensitivity_coefficient``,
         ``input_uncertainty``, ``uncertainty_contribution``, ``noise_floor``,
-        ``below_noise_floor``, ``output_mean``, ``output_std``; optional
+        ``below_noise_floor``, ``output_mean``, ``output_std``,
+        ``shapley_effect`` with ``_low``/``_high``; optional
         ``second_order``, ``group_*``, ``history_*`` (dim ``step``), and for
         the given-data method ``delta`` with bounds. ``attrs``: ``method``,
-        ``n_samples``, ``n_evaluations``, ``seed``, ``confidence_level``,
-        ``converged``, ``validity_counts``.
+        ``method_name``, ``headline``, ``n_samples`` (N per replicate),
+        ``n_replicates``, ``interval_method``, ``n_evaluations``, ``seed``,
+        ``confidence_level``, ``converged``, ``waiting_for`` (unconverged),
+        ``validity_counts``.
 
     Raises
     ------
@@ -174,6 +207,9 @@ def rank(
     References
     ----------
     A. Saltelli et al., Comput. Phys. Commun. 181, 259 (2010);
+    P. L'Ecuyer, C. Lemieux, in Modeling Uncertainty, Kluwer (2002), pp. 419-474;
+    A. B. Owen, SIAM/ASA J. Uncertain. Quantif. 2, 245 (2014);
+    S. Kucherenko, S. Tarantola, P. Annoni, Comput. Phys. Commun. 183, 937 (2012);
     F. Sarrazin, F. Pianosi, T. Wagener, Environ. Model. Softw. 79, 135 (2016);
     F. Khorashadi Zadeh et al., Environ. Model. Softw. 91, 210 (2017).
     """
@@ -184,6 +220,10 @@ def rank(
             f"convergence_tolerance must be positive; got {convergence_tolerance!r}"
         )
     n_samples = _power_of_two(n_samples, "n_samples")
+    try:
+        n_replicates = check_replicates(n_replicates)
+    except ValueError as error:
+        raise ScenarioError(str(error)) from None
     model = as_model(model, input_names=list(inputs))
     uncertain, fixed = _split_inputs(inputs, model)
     n_outputs = len(outputs) if outputs is not None else len(getattr(model, "outputs", {}) or {})
@@ -213,6 +253,8 @@ def rank(
         n_bootstrap=n_bootstrap,
         rng=generator,
         estimator=estimator,
+        n_replicates=n_replicates,
+        shapley=shapley,
     )
     if method == "kucherenko" or (method == "sobol" and correlation is not None):
         dependence = np.eye(len(names)) if correlation is None else correlation
@@ -243,134 +285,6 @@ def rank(
     return ds
 
 
-class _Parts(dict):
-    """Evaluations collected over the steps of the convergence loop, by block name."""
-
-    def add(self, pieces: Mapping[str, np.ndarray | None]) -> None:
-        for key, value in pieces.items():
-            if value is not None:
-                self.setdefault(key, []).append(value)
-
-    def joined(self, key: str, axis: int = 0) -> np.ndarray | None:
-        return np.concatenate(self[key], axis=axis) if key in self else None
-
-    def dummy(self) -> np.ndarray | None:
-        """The dummy's values on the A rows, then the B rows."""
-        return np.concatenate([self.joined("dA"), self.joined("dB")]) if "dA" in self else None
-
-
-def _dummy_pieces(base: np.ndarray, d: int, width: int) -> dict[str, np.ndarray]:
-    return {"dA": base[:, d], "dB": base[:, width + d]} if width > d else {}
-
-
-def _rank_sobol(
-    runner: _Runner,
-    n_samples: int,
-    opts: _Options,
-    *,
-    second_order: bool,
-    groups: Mapping[str, tuple[str, ...]],
-) -> xr.Dataset:
-    d = len(runner.names)
-    width = d + (1 if opts.dummy else 0)
-    # One sequence for all steps: the first 2^m points, then the next 2^m, and so on,
-    # so that each step reuses every earlier model run.
-    engine = qmc.Sobol(d=2 * width, scramble=True, rng=opts.rng)
-    factors = [(j,) for j in range(d)]
-    group_factors = [tuple(runner.names.index(m) for m in members) for members in groups.values()]
-    parts = _Parts()
-
-    def step(new: int) -> xr.Dataset:
-        base = engine.random(new)
-        design = design_from_base(
-            np.column_stack([base[:, :d], base[:, width : width + d]]),
-            factors=factors,
-            second_order=second_order,
-        )
-        rows = [design.stacked()]
-        if groups:
-            rows.append(cross_matrices(design.A, design.B, group_factors).reshape(-1, d))
-        y = runner(np.concatenate(rows))
-        f_a, f_b, f_ab, f_ba = design.split(y[: design.n_evaluations])
-        parts.add({"A": f_a, "B": f_b, "AB": f_ab, "BA": f_ba, **_dummy_pieces(base, d, width)})
-        if groups:
-            parts.add({"G": y[design.n_evaluations :].reshape(len(groups), new, -1)})
-        return analyze_budget(
-            parts.joined("A"),  # type: ignore[arg-type]
-            parts.joined("B"),  # type: ignore[arg-type]
-            parts.joined("AB", 1),  # type: ignore[arg-type]
-            parts.joined("BA", 1),
-            inputs=runner.names,
-            outputs=runner.outputs,  # type: ignore[arg-type]
-            f_AB_groups=parts.joined("G", 1),
-            groups=groups,
-            dummy_samples=parts.dummy(),
-            output_units=_units(runner.model, runner.outputs, "outputs"),  # type: ignore[arg-type]
-            **opts.analysis(),
-        )
-
-    return _converge(step, n_samples, opts)
-
-
-def _rank_dependent(
-    runner: _Runner,
-    n_samples: int,
-    opts: _Options,
-    *,
-    correlation: np.ndarray,
-    groups: Mapping[str, tuple[str, ...]],
-) -> xr.Dataset:
-    d = len(runner.names)
-    width = d + (1 if opts.dummy else 0)
-    engine = qmc.Sobol(d=2 * width, scramble=True, rng=opts.rng)
-    parts = _Parts()
-
-    factors = [(j,) for j in range(d)]
-    factors += [tuple(runner.names.index(m) for m in members) for members in groups.values()]
-    k = len(factors)
-
-    def step(new: int) -> xr.Dataset:
-        base = engine.random(new)
-        a, b, c, dd = dependent_design(
-            np.column_stack([base[:, :d], base[:, width : width + d]]),
-            correlation,
-            factors=factors,
-        )
-        y = runner(np.concatenate([a, b, c.reshape(-1, d), dd.reshape(-1, d)]))
-        blocks = y.reshape(2 + 2 * k, new, -1)
-        c_rows, d_rows = blocks[2 : 2 + k], blocks[2 + k :]
-        parts.add(
-            {"A": blocks[0], "B": blocks[1], "C": c_rows[:d], "D": d_rows[:d]}
-            | ({"CG": c_rows[d:], "DG": d_rows[d:]} if groups else {})
-            | _dummy_pieces(base, d, width)
-        )
-        ds = analyze_budget(
-            parts.joined("A"),  # type: ignore[arg-type]
-            parts.joined("B"),  # type: ignore[arg-type]
-            parts.joined("C", 1),  # type: ignore[arg-type]
-            f_AB_total=parts.joined("D", 1),
-            f_AB_groups=parts.joined("CG", 1),
-            f_AB_groups_total=parts.joined("DG", 1),
-            groups=groups,
-            inputs=runner.names,
-            outputs=runner.outputs,  # type: ignore[arg-type]
-            dummy_samples=parts.dummy(),
-            output_units=_units(runner.model, runner.outputs, "outputs"),  # type: ignore[arg-type]
-            **opts.analysis(),
-        )
-        ds["interaction"].attrs["long_name"] = (
-            "total minus first order; negative where correlation dominates"
-        )
-        ds.attrs.update(
-            method="kucherenko",
-            first_order_meaning=_FULL_FIRST_ORDER,
-            total_order_meaning="E[Var(Y|X~i)]/Var(Y): what X_i adds beyond the other inputs",
-        )
-        return ds
-
-    return _converge(step, n_samples, opts)
-
-
 def _rank_given_data(
     runner: _Runner, n_samples: int, opts: _Options, *, correlation: np.ndarray | None
 ) -> xr.Dataset:
@@ -380,12 +294,12 @@ def _rank_given_data(
     width = d + (1 if opts.dummy else 0)
     # Points per base sample: the Saltelli design's d + 2, up to a power of two.
     per_sample = 1 << int(np.ceil(np.log2(d + 2)))
-    engine = qmc.Sobol(d=width, scramble=True, rng=opts.rng)
     names = [*runner.names, *([DUMMY] if opts.dummy else [])]
     parts: dict[str, list[np.ndarray]] = {"x": [], "y": []}
 
     def step(new: int) -> xr.Dataset:
-        unit = engine.random(new * per_sample)
+        # Independent random rows: the bootstrap of the given-data indices needs them.
+        unit = opts.rng.random((new * per_sample, width))
         phys = transform(unit[:, :d], runner.distributions, correlation=correlation)
         parts["y"].append(runner.evaluate_physical(phys))
         parts["x"].append(np.column_stack([phys, unit[:, d:]]))
@@ -446,6 +360,7 @@ def _given_data_budget(table: xr.Dataset, y: np.ndarray, runner: _Runner, *, dum
     _unit_attrs(ds, _units(runner.model, runner.outputs, "outputs"))  # type: ignore[arg-type]
     ds.attrs.update(
         method="delta",
+        method_name=METHOD_NAMES["delta"],
         dummy=bool(dummy),
         first_order_meaning=_FULL_FIRST_ORDER,
     )

@@ -146,6 +146,10 @@ def rank_correlation_to_copula(spearman: ArrayLike) -> np.ndarray:
     return 2.0 * np.sin(np.pi * rho / 6.0)
 
 
+#: Relative rounding tolerated in a correlation coefficient's magnitude above 1.
+_ROUNDING = 64 * np.finfo(float).eps
+
+
 def check_correlation(
     correlation: ArrayLike,
     names: Sequence[str] | None = None,
@@ -176,7 +180,10 @@ def check_correlation(
         raise ScenarioError("correlation matrix must be finite and symmetric", path=path, key=key)
     if not np.allclose(np.diag(matrix), 1.0, atol=1e-12):
         raise ScenarioError("correlation matrix must have 1 on the diagonal", path=path, key=key)
-    if np.any(np.abs(matrix) > 1.0):
+    # Rounding: a matrix built as cov / outer(sd, sd) has entries a few ulp above 1 in
+    # magnitude; such entries are accepted and the returned matrix is cleaned (symmetric,
+    # unit diagonal, coefficients in [-1, 1]).
+    if np.any(np.abs(matrix) > 1.0 + _ROUNDING):
         i, j = np.unravel_index(np.argmax(np.abs(matrix)), matrix.shape)
         raise ScenarioError(
             f"coefficient {matrix[i, j]:g} between {labels[i]!r} and {labels[j]!r} lies outside "
@@ -195,7 +202,9 @@ def check_correlation(
             path=path,
             key=key,
         )
-    return matrix
+    cleaned = np.clip((matrix + matrix.T) / 2, -1.0, 1.0)
+    np.fill_diagonal(cleaned, 1.0)
+    return cleaned
 
 
 def ppf(dist: Any, unit: np.ndarray) -> np.ndarray:

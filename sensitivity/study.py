@@ -27,7 +27,7 @@ import xarray as xr
 from trapbudget.sensitivity.compliance import check_requirements
 from trapbudget.sensitivity.io import atomic_write_json, save_dataset
 from trapbudget.sensitivity.linear import compare_linear_monte_carlo, linear_propagation
-from trapbudget.sensitivity.propagation import propagate
+from trapbudget.sensitivity.propagation import propagate, propagate_adaptive
 from trapbudget.sensitivity.ranking import rank
 from trapbudget.sensitivity.scenario.core import Scenario
 from trapbudget.sensitivity.scenario.settings import RunOptions
@@ -155,8 +155,16 @@ def run_study(
         From :func:`~trapbudget.sensitivity.load_scenario` or
         :meth:`Scenario.from_dict`.
     n_samples : int, optional
-        Monte Carlo size and Saltelli base size N (default: the scenario's
-        ``settings.n_samples``).
+        Base size N per replicate of the index design (default: the
+        scenario's ``settings.n_samples``); see :func:`rank` for the run count.
+        The Monte Carlo of the distributions, coverage intervals and
+        requirement probabilities does not depend on it: it runs the JCGM 101
+        adaptive procedure (:func:`propagate_adaptive`, batches of 10^4, 2^14
+        on Sobol', up to ``settings.max_samples``) to
+        ``settings.significant_digits``; ``samples.attrs`` record the
+        ``numerical_tolerance`` and the ``achieved_tolerance``. Requirement
+        probabilities come from independent random draws (as many as the
+        Monte Carlo used), with Clopper-Pearson intervals.
     rng : int, optional
         Seed (default: the scenario's ``settings.seed``; without one a seed is
         drawn and recorded, so the study can be repeated). One seed gives two
@@ -177,7 +185,8 @@ def run_study(
     """
     options: RunOptions = scenario.settings.resolve(n_samples=n_samples, rng=rng)
     outputs = list(scenario.outputs)
-    mc_seed, rank_seed = np.random.SeedSequence(options.seed).spawn(2)
+    # Child streams by index: the first two are those of earlier versions.
+    mc_seed, rank_seed, draw_seed = np.random.SeedSequence(options.seed).spawn(3)
     linear = linear_propagation(
         scenario.model,
         scenario.inputs,
@@ -185,10 +194,15 @@ def run_study(
         correlation=scenario.correlation,
         outputs=outputs,
     )
-    samples = propagate(
+    # The Monte Carlo is sized by its own rule (JCGM 101 clause 7.9), not by the index
+    # design's base size: batches of 10^4 (2^14 on Sobol', each batch an independent
+    # scramble) until 2 s/sqrt(h) of y, u(y) and both interval ends is below the tolerance.
+    samples = propagate_adaptive(
         scenario.model,
         scenario.inputs,
-        n_samples=options.n_samples,
+        confidence_level=options.confidence_level,
+        significant_digits=scenario.settings.significant_digits,
+        max_samples=scenario.settings.max_samples,
         method=options.method,  # type: ignore[arg-type]
         correlation=scenario.correlation,
         rng=np.random.default_rng(mc_seed),
@@ -223,7 +237,22 @@ def run_study(
         "budget": budget,
     }
     if scenario.requirements:
-        datasets["requirements"] = check_requirements(samples, scenario.requirements)
+        # Binomial intervals need independent draws: on a QMC design the requirements are
+        # checked on as many fresh random draws as the Monte Carlo used.
+        draws = samples
+        if options.method != "random":
+            draws = propagate(
+                scenario.model,
+                scenario.inputs,
+                n_samples=int(samples.sizes["sample"]),
+                method="random",
+                correlation=scenario.correlation,
+                rng=np.random.default_rng(draw_seed),
+                outputs=outputs,
+                nominal=scenario.nominal,
+                chunk_size=options.chunk_size,
+            )
+        datasets["requirements"] = check_requirements(draws, scenario.requirements)
     record = describe_study(
         scenario, seed=options.seed, n_samples=options.n_samples, datasets=datasets
     )

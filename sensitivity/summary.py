@@ -163,7 +163,40 @@ def summarize(
     for key in ("method", "seed", "model"):
         if key in samples.attrs:
             ds.attrs[key] = samples.attrs[key]
+    _batch_uncertainty(ds, samples, names, confidence_level)
     return ds
+
+
+def _batch_uncertainty(ds, samples, names, confidence_level: float) -> None:
+    """Standard uncertainties of the mean and interval ends from independent batches.
+
+    Samples from :func:`~trapbudget.sensitivity.propagation.propagate_adaptive` come in
+    h >= 2 batches, each an independent draw (an independent scramble on Sobol'): the
+    standard deviation of the h batch values over sqrt(h) is the standard uncertainty of
+    their average (JCGM 101:2008, 7.9.4), the honest error of each reported end, with
+    ``h - 1`` degrees of freedom (``attrs["batch_degrees_of_freedom"]``).
+    """
+    batch = int(samples.attrs.get("batch_size", 0) or 0)
+    n = int(samples.sizes.get("sample", 0))
+    if batch < 2 or n < 2 * batch or n % batch:
+        return
+    h = n // batch
+    table: dict[str, list[float]] = {"mean": [], "interval_low": [], "interval_high": []}
+    for name in names:
+        y = np.asarray(samples[name].values, dtype=float).reshape(h, batch)
+        per = [(float(np.mean(r[np.isfinite(r)])), *coverage_interval(r[np.isfinite(r)],
+               confidence_level=confidence_level)) for r in y]  # fmt: skip
+        per_arr = np.asarray(per)
+        spread = per_arr.std(axis=0, ddof=1) / math.sqrt(h)
+        for key, value in zip(table, spread, strict=True):
+            table[key].append(float(value))
+    for key, values in table.items():
+        ds[f"{key}_uncertainty"] = xr.DataArray(
+            np.asarray(values),
+            dims="output",
+            attrs={"long_name": f"standard uncertainty of {key} from {h} independent batches"},
+        )
+    ds.attrs["batch_degrees_of_freedom"] = h - 1
 
 
 def numerical_tolerance(value: float, *, significant_digits: int = 2) -> float:

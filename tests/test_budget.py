@@ -40,8 +40,10 @@ CONTRACT = (
 
 
 def se(ds: xr.Dataset, key: str) -> np.ndarray:
-    # Bootstrap standard error from the 95 % percentile interval (normal approximation).
-    return ((ds[f"{key}_high"] - ds[f"{key}_low"]) / (2 * 1.96)).values
+    # Standard error from the 95 % Student-t interval of R replicates (half-width / t_{R-1});
+    # those intervals' coverage is checked in tests/test_coverage.py.
+    t = stats.t.ppf(0.975, ds.attrs["n_replicates"] - 1)
+    return ((ds[f"{key}_high"] - ds[f"{key}_low"]) / (2 * t)).values
 
 
 def test_ishigami_budget_matches_closed_form():
@@ -67,7 +69,10 @@ def test_ishigami_budget_matches_closed_form():
         ds["variance_share"], ds["total_order"] * ds["output_std"] ** 2, rtol=1e-12
     )
     assert abs(float(sub["output_std"]) ** 2 - v) < 0.05 * v
-    assert ds.attrs["n_evaluations"] == 4096 * (2 * 3 + 2)
+    # R replicates of N base rows: R N (2d + 2 + S) runs with second order, S = 2^d - 1
+    # Shapley sets for d <= 7.
+    assert ds.attrs["shapley_sets"] == 2**3 - 1
+    assert ds.attrs["n_evaluations"] == ds.attrs["n_replicates"] * 4096 * (2 * 3 + 2 + 7)
     assert ds.attrs["method"] == "sobol" and ds.attrs["converged"] is True
     assert ds.attrs["seed"] == 2
 
@@ -104,7 +109,8 @@ def test_groups_of_an_additive_model_add_up():
     members = ds["total_order"].sel(output="y", input=["x1", "x3"]).sum()
     assert abs(float(group["group_total_order"]) - float(members)) <= tol
     assert str(group["group_members"].values) == "x1,x3"
-    assert ds.attrs["n_evaluations"] == 1024 * (3 + 2 + 1)
+    # R N (d + 2 + groups + Shapley sets) runs.
+    assert ds.attrs["n_evaluations"] == ds.attrs["n_replicates"] * 1024 * (3 + 2 + 1 + 7)
     # input -> group mapping (the scenario's per-input "group" key) gives the same grouping.
     again = rank(LinearModel(b), inputs, n_samples=1024, rng=4, groups={"x1": "g", "x3": "g"})
     xr.testing.assert_allclose(again["group_total_order"], ds["group_total_order"])
@@ -154,7 +160,8 @@ def test_convergence_loop_terminates_and_is_stable():
 def test_convergence_warns_when_max_samples_is_reached():
     inputs = {"x1": UNIFORM, "x2": UNIFORM, "x3": UNIFORM}
     with pytest.warns(
-        BudgetConvergenceWarning, match=r"did not settle .* by n_samples = 512"
+        BudgetConvergenceWarning,
+        match=r"did not settle by n_samples = 512 .*waiting for first_order of 'x3'",
     ) as record:
         ds = rank(
             Ishigami(),
@@ -172,14 +179,19 @@ def test_convergence_warns_when_max_samples_is_reached():
 
 
 def test_analyze_budget_on_precomputed_evaluations():
-    # Running and analysing stay separate: the same design gives the same budget.
+    # Running and analysing stay separate: 10 independent scramblings of the design,
+    # stacked replicate-major, give the budget with replicate intervals.
     b = np.array([1.0, -2.0])
-    n = 512
-    design = saltelli_design(n, 2, rng=3)
-    rows = stats.norm.ppf(design.stacked())
-    y = (rows @ b)[:, None]
-    f_a, f_b, f_ab, _ = design.split(y)
-    ds = analyze_budget(f_a, f_b, f_ab, inputs=["p", "q"], outputs=["y"], n_bootstrap=50, rng=0)
+    n, r = 512, 10
+    blocks = []
+    for seed in range(r):
+        design = saltelli_design(n, 2, rng=seed)
+        blocks.append(design.split((stats.norm.ppf(design.stacked()) @ b)[:, None]))
+    f_a = np.concatenate([x[0] for x in blocks])
+    f_b = np.concatenate([x[1] for x in blocks])
+    f_ab = np.concatenate([x[2] for x in blocks], axis=1)
+    ds = analyze_budget(f_a, f_b, f_ab, inputs=["p", "q"], outputs=["y"], n_replicates=r)
+    assert ds.attrs["n_samples"] == n and ds.attrs["interval_method"] == "replicates"
     exact = b**2 / np.sum(b**2)
     sub = ds.sel(output="y")
     assert np.all(np.abs(sub["first_order"].values - exact) <= 4 * se(sub, "first_order"))
@@ -297,10 +309,12 @@ def test_kucherenko_indices_for_correlated_inputs():
     )  # fmt: skip
     sub = ds.sel(output="y")
     assert ds.attrs["method"] == "kucherenko"
-    assert ds.attrs["n_evaluations"] == 4096 * (2 * 3 + 2)
+    # R replicates of N base rows: R N (2d + 2 + S) runs (A, B, C_i, D_i, Shapley sets).
+    assert ds.attrs["n_evaluations"] == ds.attrs["n_replicates"] * 4096 * (2 * 3 + 2 + 7)
     assert np.all(np.abs(sub["first_order"].values - first) <= 4 * se(sub, "first_order"))
     assert np.all(np.abs(sub["total_order"].values - total) <= 4 * se(sub, "total_order"))
-    assert bool((sub["interaction"] < 0).all())
+    # total - first mixes two decompositions under correlation: not reported.
+    assert bool(sub["interaction"].isnull().all())
     # A group of correlated inputs, by the same conditioning: S_G = b' R_.G R_GG^-1 R_G. b / V,
     # ST_G = 1' (R_GG - R_G~ R_~~^-1 R_~G) 1 / V for G = {x2, x3}, ~G = {x1}.
     grouped = rank(
@@ -403,3 +417,18 @@ def test_trap_model_budget_obeys_sobol_inequalities():
     assert set(ds.attrs["validity_counts"]) >= {"any"}
     assert ds.attrs["units_temperature"] == "K"
     assert ds.attrs["units_beam_power"] == "W"
+
+
+def test_convergence_loop_ends_on_a_product_model():
+    # y = x1 x2 + x3, uniform inputs: with valid (replicate) intervals the loop stops at the
+    # stated tolerance 0.0144 well before the limit, for every seed tried.
+    def model(v):
+        return {"y": v["x1"] * v["x2"] + v["x3"]}
+
+    inputs = {k: stats.uniform(0, 1) for k in ("x1", "x2", "x3")}
+    for seed in range(3):
+        ds = rank(model, inputs, n_samples=256, rng=seed, convergence=True,
+                  convergence_tolerance=0.0144)  # fmt: skip
+        assert ds.attrs["converged"] is True and "waiting_for" not in ds.attrs
+        assert ds["history_max_width"].values[-1] < 0.0144
+        assert ds.attrs["n_samples"] < 16 * 256

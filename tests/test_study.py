@@ -58,3 +58,44 @@ def test_a_study_without_a_seed_draws_and_records_one(demo_scenario):
     assert options.seed is not None and again.seed == options.seed
     # rng=0 is a seed, not "no seed" (a lesson from the SALib peer, style.md).
     assert scenario.settings.resolve(rng=0).seed == 0
+
+
+@pytest.mark.filterwarnings("ignore::trapbudget.sensitivity.ModelValidityWarning")
+def test_the_monte_carlo_is_sized_by_the_adaptive_rule(demo_scenario):
+    # JCGM 101:2008 clause 7.9: batches of max(100 / (1 - p), 10^4) trials (2^14 on Sobol',
+    # one independent scramble each) until 2 s / sqrt(h) of y, u(y) and both interval ends
+    # is below the numerical tolerance; the size does not follow the index base size.
+    scenario = load_scenario(demo_scenario)
+    small = run_study(scenario, n_samples=64, rng=3, convergence=False)
+    large = run_study(scenario, n_samples=128, rng=3, convergence=False)
+    samples = small["samples"]
+    assert samples.attrs["batch_size"] == 2**14 and samples.attrs["n_batches"] >= 2
+    assert samples.sizes["sample"] == samples.attrs["n_batches"] * 2**14
+    assert samples.attrs["converged"] is True
+    for name, spread in samples.attrs["achieved_tolerance"].items():
+        assert max(spread) <= samples.attrs["numerical_tolerance"][name], name
+    xr.testing.assert_identical(samples, large["samples"])
+    assert small["budget"].attrs["n_samples"] == 64 and large["budget"].attrs["n_samples"] == 128
+    # Requirement probabilities on as many independent random draws, with their interval.
+    req = small["requirements"]
+    assert req.attrs["sampling"] == "random"
+    assert req.attrs["n_samples"] == samples.sizes["sample"]
+    finite = req["probability"].notnull()
+    assert bool((req["probability_low"] <= req["probability"]).where(finite, True).all())
+
+
+@pytest.mark.filterwarnings("ignore::trapbudget.sensitivity.ModelValidityWarning")
+def test_the_demo_study_converges(demo_scenario):
+    # The demo's convergence loop reaches its stated tolerance (widest interval of every
+    # index, Shapley effects included, below 0.05, and a stable ranking) before the limit.
+    import warnings
+
+    from trapbudget.sensitivity import BudgetConvergenceWarning
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", BudgetConvergenceWarning)
+        study = run_study(load_scenario(demo_scenario))
+    budget = study["budget"]
+    assert budget.attrs["converged"] is True
+    assert budget["history_max_width"].values[-1] < budget.attrs["convergence_tolerance"]
+    assert budget.attrs["headline"] == "shapley_effect"  # the demo declares correlations

@@ -36,6 +36,12 @@ from trapbudget.sensitivity.decisions.linear_allocation import (
     allocate_tiers,
     uncertainty_bound,
 )
+from trapbudget.sensitivity.decisions.search import (
+    MAX_ENUMERATION,
+    combinations,
+    effective_slopes,
+    search_tiers,
+)
 from trapbudget.sensitivity.errors import ScenarioError
 from trapbudget.sensitivity.scenario.core import Scenario
 
@@ -63,11 +69,17 @@ def _linear_setup(scenario, requirements, labels) -> _Setup:
         outputs=outputs,
     )
     coefficient = linear["sensitivity_coefficient"]
+    effective = effective_slopes(scenario, outputs)
     sensitivity = {}
     for r, req in enumerate(requirements):
         for name in scenario.inputs:
             c = float(coefficient.sel(output=req.output, input=name))
-            sensitivity[(r, name)] = c * c if math.isfinite(c) else 0.0
+            c2 = c * c if math.isfinite(c) else 0.0
+            # Where the nominal slope misses most of what an input does (zero slope at a
+            # symmetric point, strong curvature), use the slope its own Monte Carlo spread
+            # implies: Var(Y | only X_i varies) / u_i^2.
+            e2 = effective[(req.output, name)]
+            sensitivity[(r, name)] = e2 if c2 < 0.5 * e2 else c2
     means = np.array(
         [float(linear["output_nominal"].sel(output=req.output)) for req in requirements]
     )
@@ -179,8 +191,11 @@ def allocate(
     max_iterations : int
         Monte Carlo rounds of refinement at most.
     safety_margin : float
-        A probability requirement counts as met when the estimate minus this
-        many binomial standard errors reaches the required probability.
+        A probability requirement counts as met when the one-sided
+        Clopper-Pearson lower bound at this many standard normal quantiles
+        (1: 84 %) reaches the required probability; 0 compares the estimate
+        itself. Unlike "estimate minus k standard errors" it keeps a margin
+        when every sample passes (Clopper & Pearson 1934).
     max_loosen : float
         A smooth-cost tolerance may be loosened to at most this multiple of
         its present value (the linear model is not trusted far outside).
@@ -232,6 +247,20 @@ def allocate(
     options = scenario.settings.resolve(n_samples=n_samples, method=method, rng=rng)
     n, m, seed = options.n_samples, options.method, options.rng
     unit = unit_design(n, len(scenario.inputs), method=m, rng=seed)  # type: ignore[arg-type]
+
+    if refine and setup.free_tiered and not setup.free_smooth:
+        tier_costs = [
+            [float(t.cost) for t in scenario.costs[k].tiers]  # type: ignore[union-attr]
+            for k in setup.free_tiered
+        ]
+        if combinations(tier_costs) <= MAX_ENUMERATION:
+            searched = _allocate_by_search(
+                scenario, setup, tier_costs, unit, n, m, seed, safety_margin, max_loosen, progress
+            )
+            if searched is not None:
+                return searched
+            # Infeasible on the Monte Carlo and on the linear model: the linear pass
+            # below names the requirement and the input that blocks it.
 
     bounds = setup.bounds.astype(float).copy()
     best = None
@@ -292,13 +321,12 @@ def allocate(
                 for c in checks
             ]
         )
-        used = solution.variance / np.where(np.isfinite(problem.budgets), problem.budgets, np.inf)
-        active = used > 0.9
-        if passed and np.all(np.abs(np.log(factors[active])) < math.log1p(convergence_tolerance)):
+        # Keep refining while the Monte Carlo shows slack or a shortfall in any requirement
+        # (not only in those the linear pass found active: with none active, np.all([])
+        # would end the loop at once). Repeated candidates end it (seen, above).
+        if passed and np.all(np.abs(np.log(factors)) < math.log1p(convergence_tolerance)):
             break
-        for r, check in enumerate(checks):
-            if check["met"] and not active[r]:
-                continue
+        for r in range(len(checks)):
             if not math.isfinite(bounds[r]):
                 bounds[r] = math.sqrt(max(solution.variance[r], 1e-300))
             bounds[r] *= factors[r]
@@ -359,6 +387,104 @@ def allocate(
         seed=seed,
         history=tuple(history),
         max_loosen=max_loosen,
+    )
+
+
+def _allocate_by_search(
+    scenario, setup, tier_costs, unit, n, m, seed, safety_margin, max_loosen, progress
+) -> Allocation | None:
+    """Tiered problems: the Monte Carlo search by cost, verified on fresh draws.
+
+    None when no combination passes and the linear pass finds none either (its
+    diagnosis names the blocking input).
+    """
+    from trapbudget.sensitivity.decisions.compare import common_random_samples
+    from trapbudget.sensitivity.propagation import propagate
+
+    requirements = setup.requirements
+    names = setup.free_tiered
+    tiers = [scenario.costs[k].tiers for k in names]
+
+    def tolerances_of(combo):
+        return {k: t[i].tolerance for k, t, i in zip(names, tiers, combo, strict=True)}
+
+    def evaluate(combo):
+        candidate = scenario.with_tolerances(tolerances_of(combo))
+        (samples,) = common_random_samples(
+            [candidate], n_samples=n, method=m, unit=unit, progress=progress
+        )
+        return _check(samples, requirements, safety_margin=safety_margin), (candidate, samples)
+
+    tightest = tuple(
+        int(np.argmin([float(x.tolerance.standard_uncertainty) for x in t])) for t in tiers
+    )
+    found = search_tiers(tier_costs, evaluate, tightest=tightest, labels=setup.labels)
+    problem = _problem(scenario, setup, setup.bounds, max_loosen)
+    if not found.feasible:
+        linear = allocate_tiers(problem, fixed_parts=_fixed_parts(scenario, setup))
+        if not linear.feasible:
+            return None
+    variance = problem.fixed_variance + sum(
+        problem.tiered_sensitivity[:, j] * float(t[k].tolerance.standard_uncertainty) ** 2
+        for j, (t, k) in enumerate(zip(tiers, found.tier_index, strict=True))
+    )
+    solution = TierSolution(
+        feasible=True,
+        cost=found.cost,
+        tier_index=found.tier_index,
+        smooth_tolerance=np.zeros(0),
+        variance=np.asarray(variance, dtype=float),
+        failing=found.failing,
+    )
+    candidate: Scenario = found.samples[0]  # type: ignore[index]
+    verified = (candidate, found.samples[1], found.checks)  # type: ignore[index]
+    fresh = None
+    if found.feasible:
+        # Fresh independent draws: the choice was made on the common sample.
+        stream = (
+            seed.spawn(1)[0]
+            if isinstance(seed, np.random.Generator)
+            else np.random.default_rng(np.random.SeedSequence(seed).spawn(1)[0])
+        )
+        draws = propagate(
+            candidate.model,
+            candidate.inputs,
+            n_samples=n,
+            method="random",
+            correlation=candidate.correlation,
+            rng=stream,
+            outputs=list(dict.fromkeys(r.output for r in requirements)),
+        )
+        fresh = (draws, _check(draws, requirements, safety_margin=safety_margin))
+        reason = (
+            f"all {len(requirements)} requirement(s) met at a cost of {found.cost:.6g} "
+            f"(cheapest of {found.evaluated} tier combinations checked on the Monte Carlo)"
+        )
+        if not all(c["met"] for c in fresh[1]):
+            reason += "; on fresh draws it falls short: raise n_samples"
+    else:
+        reason = (
+            f"requirement '{found.failing}' is not met by any tier combination on the Monte "
+            "Carlo, not even the tightest tiers: add a tighter tier or relax the requirement"
+        )
+    return _result(
+        scenario,
+        setup,
+        problem,
+        solution,
+        tolerances_of(found.tier_index),
+        verified,
+        feasible=found.feasible,
+        reason=reason,
+        failing=found.failing,
+        blocking="" if found.feasible else "tiers",
+        n_samples=n,
+        method=m,
+        seed=seed,
+        history=((found.cost, found.feasible),),
+        max_loosen=max_loosen,
+        fresh=fresh,
+        search=f"Monte Carlo over {found.evaluated} tier combinations by cost",
     )
 
 

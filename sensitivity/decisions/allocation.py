@@ -89,6 +89,16 @@ def _z(probability: float, kind: str) -> float:
     return float(stats.norm.ppf(probability))
 
 
+def _lower_bound(hits: int, n: int, margin: float) -> float:
+    """One-sided Clopper-Pearson lower bound on a probability at ``margin`` normal quantiles."""
+    if margin <= 0:
+        return hits / n
+    from trapbudget.sensitivity.compliance import probability_interval
+
+    level = 2.0 * float(stats.norm.cdf(margin)) - 1.0
+    return probability_interval(hits, n, confidence_level=level)[0]
+
+
 def _check(samples, requirements, *, safety_margin: float):
     """Probability met (with binomial standard error) and pass/fail of each requirement."""
     from trapbudget.sensitivity.decisions.compare import requirement_indicator
@@ -104,16 +114,22 @@ def _check(samples, requirements, *, safety_margin: float):
                 {
                     "probability": math.nan,
                     "standard_error": math.nan,
+                    "target": math.nan,
+                    "lower_bound": math.nan,
                     "spread": spread,
                     "met": spread <= float(req.limit),
                     "factor": float(req.limit) / spread,
                 }
             )
             continue
-        p_hat = float(indicator.mean())
+        hits = int(np.count_nonzero(indicator))
+        p_hat = hits / n
         se = math.sqrt(p_hat * (1.0 - p_hat) / n)
         target = 0.5 if req.probability is None else float(req.probability)
-        met = p_hat - safety_margin * se >= target
+        # The margin is a one-sided Clopper-Pearson bound at normal quantile safety_margin:
+        # unlike p - k se it stays below 1 when every sample passes.
+        lower = _lower_bound(hits, n, safety_margin)
+        met = lower >= target
         wanted = min(target + safety_margin * math.sqrt(target * (1 - target) / n), 1 - 1.0 / n)
         z_target = _z(wanted, req.kind)
         z_hat = _z(min(max(p_hat, 0.5 / n), 1.0 - 0.5 / n), req.kind)
@@ -127,6 +143,8 @@ def _check(samples, requirements, *, safety_margin: float):
             {
                 "probability": p_hat,
                 "standard_error": se,
+                "target": target,
+                "lower_bound": lower,
                 "spread": math.nan,
                 "met": bool(met),
                 "factor": factor,
@@ -166,6 +184,8 @@ def _result(
     seed,
     history,
     max_loosen,
+    fresh=None,
+    search="linear",
 ) -> Allocation:
     names = list(scenario.inputs)
     tol = scenario.tolerances
@@ -288,6 +308,20 @@ def _result(
     for key, values in req_rows.items():
         dtype = bool if key == "met" else (str if isinstance(values[0], str) else float)
         reqs[key] = xr.DataArray(np.asarray(values, dtype=dtype), dims="requirement")
+    if fresh is not None:
+        fresh_checks = fresh[1]
+        reqs["fresh_probability"] = ("requirement", [c["probability"] for c in fresh_checks])
+        reqs["fresh_probability_low"] = ("requirement", [c["lower_bound"] for c in fresh_checks])
+        reqs["fresh_met"] = ("requirement", np.array([c["met"] for c in fresh_checks], bool))
+        reqs["fresh_probability"].attrs["long_name"] = (
+            "probability on fresh independent draws (the choice was made on the common sample)"
+        )
+        reqs["fresh_probability_low"].attrs["long_name"] = (
+            "one-sided Clopper-Pearson bound of the fresh probability at the safety margin"
+        )
+        attrs["verified_on_fresh_draws"] = bool(all(c["met"] for c in fresh_checks))
+        attrs["fresh_n_samples"] = int(fresh[0].sizes.get("sample", 0))
+    attrs["search"] = search
     reqs.attrs.update(attrs)
     return Allocation(
         feasible=bool(feasible),

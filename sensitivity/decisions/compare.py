@@ -16,7 +16,14 @@ from collections.abc import Callable, Sequence
 
 import numpy as np
 import xarray as xr
+from scipy import stats
 
+from trapbudget.sensitivity.decisions.crn import (
+    _required_outputs,
+    _uncertain_names,
+    common_random_samples,
+    replicated_unit,
+)
 from trapbudget.sensitivity.scenario.core import Scenario
 from trapbudget.sensitivity.scenario.requirements import Requirement
 from trapbudget.sensitivity.scenario.settings import Upgrade
@@ -32,150 +39,6 @@ __all__ = [
 SECONDS_PER_DAY = 86400.0
 #: Probability levels of the stored empirical quantiles (for distribution plots).
 QUANTILE_LEVELS = np.linspace(0.0, 1.0, 201)
-
-
-# ---------------------------------------------------------------------------
-# common random numbers
-# ---------------------------------------------------------------------------
-
-
-def _uncertain_names(scenarios: Sequence[Scenario]) -> list[str]:
-    names: list[str] = []
-    for scenario in scenarios:
-        for name in scenario.inputs:
-            if name not in names:
-                names.append(name)
-    return names
-
-
-def _required_outputs(scenario: Scenario, outputs: Sequence[str] | None) -> list[str]:
-    wanted = list(outputs) if outputs is not None else list(scenario.outputs)
-    for req in scenario.requirements:
-        if req.output not in wanted:
-            wanted.append(req.output)
-    return wanted
-
-
-def common_random_samples(
-    scenarios: Sequence[Scenario],
-    *,
-    n_samples: int,
-    method: str = "sobol",
-    rng: int | np.random.Generator | None = None,
-    outputs: Sequence[str] | None = None,
-    unit: np.ndarray | None = None,
-    chunk_size: int = 65536,
-    progress: Callable[[int, int], None] | None = None,
-) -> list[xr.Dataset]:
-    """Propagate several scenarios through one shared unit-cube design.
-
-    Parameters
-    ----------
-    scenarios : sequence of Scenario
-        Scenarios to evaluate; they may differ in tolerances, nominal values,
-        correlations and model.
-    n_samples : int
-        Number of samples (a power of 2 for ``method="sobol"``).
-    method : {"random", "latin", "sobol"}
-        Design of the unit cube (:func:`trapbudget.sensitivity.sampling.unit_design`).
-    rng : seed or numpy.random.Generator, optional
-        Randomness of the design.
-    outputs : sequence of str, optional
-        Outputs to keep (default each scenario's outputs plus those its
-        requirements name).
-    unit : array (n_samples, d), optional
-        A precomputed design over the union of the scenarios' uncertain
-        inputs (in order of first appearance); drawn when omitted.
-    chunk_size : int
-        Samples per model call (bounded memory).
-    progress : callable, optional
-        ``progress(done, total)`` over all scenarios.
-
-    Returns
-    -------
-    list of xarray.Dataset
-        One samples Dataset per scenario, dim ``sample``, in the schema of
-        :func:`trapbudget.sensitivity.propagation.propagate`; sample k of every
-        Dataset comes from row k of the same unit design.
-
-    Notes
-    -----
-    Column j of the design always feeds the same input, whichever scenarios it
-    is uncertain in; each scenario maps its columns through its own marginals
-    (and Gaussian copula, if correlated), so an input with an unchanged
-    distribution takes identical values on both sides.
-
-    References
-    ----------
-    P. Glasserman, "Monte Carlo Methods in Financial Engineering" (Springer
-    2004), section 4.2 (common random numbers).
-    """
-    from trapbudget.sensitivity.protocol import evaluate_in_chunks
-    from trapbudget.sensitivity.sampling import transform, unit_design
-
-    names = _uncertain_names(scenarios)
-    if unit is None:
-        unit = unit_design(n_samples, len(names), method=method, rng=rng)  # type: ignore[arg-type]
-    unit = np.asarray(unit, dtype=float)
-    total = len(scenarios) * unit.shape[0]
-    results = []
-    for k, scenario in enumerate(scenarios):
-        own = list(scenario.inputs)
-        columns = unit[:, [names.index(n) for n in own]]
-        values = transform(
-            columns,
-            [scenario.inputs[n] for n in own],
-            correlation=scenario.correlation,
-        )
-        mapping = {n: values[:, i] for i, n in enumerate(own)}
-
-        def step(done: int, _total: int, k: int = k) -> None:
-            if progress is not None:
-                progress(k * unit.shape[0] + done, total)
-
-        result = evaluate_in_chunks(scenario.model, mapping, chunk_size=chunk_size, progress=step)
-        results.append(_samples_dataset(scenario, mapping, result, outputs, method=method))
-    return results
-
-
-def _samples_dataset(scenario, inputs, result, outputs, *, method) -> xr.Dataset:
-    model = scenario.model
-    in_specs = getattr(model, "inputs", {}) or {}
-    out_specs = getattr(model, "outputs", {}) or {}
-    data = {}
-    for name, values in inputs.items():
-        spec = in_specs.get(name)
-        data[name] = xr.Variable(
-            "sample",
-            np.asarray(values, dtype=float),
-            {
-                "units": getattr(spec, "unit", ""),
-                "long_name": getattr(spec, "description", name),
-                "role": "input",
-            },
-        )
-    for name in _required_outputs(scenario, outputs):
-        spec = out_specs.get(name)
-        data[name] = xr.Variable(
-            "sample",
-            np.asarray(result[name], dtype=float),
-            {
-                "units": getattr(spec, "unit", ""),
-                "long_name": getattr(spec, "description", name),
-                "role": "output",
-            },
-        )
-    if "validity" in result:
-        data["validity"] = xr.Variable(
-            "sample",
-            np.asarray(result["validity"]),
-            {"long_name": "validity bit mask", "role": "validity"},
-        )
-    n = len(next(iter(inputs.values()))) if inputs else 0
-    return xr.Dataset(
-        data,
-        attrs={"method": method, "n_samples": n, "title": str(getattr(scenario, "title", ""))},
-    )
 
 
 # ---------------------------------------------------------------------------
@@ -215,6 +78,14 @@ def _label(requirement: Requirement, index: int) -> str:
     return label or f"{requirement.output} {requirement.kind} #{index + 1}"
 
 
+def _paired_se(diff: np.ndarray, n_replicates: int) -> float:
+    """Standard error of mean(diff): from R independent block means, or from the rows."""
+    if n_replicates > 1:
+        means = diff.reshape(n_replicates, -1).mean(axis=1)
+        return float(np.std(means, ddof=1) / math.sqrt(n_replicates))
+    return float(np.std(diff, ddof=1) / math.sqrt(diff.size))
+
+
 def compare_samples(
     before: xr.Dataset,
     after: xr.Dataset,
@@ -224,6 +95,7 @@ def compare_samples(
     confidence_level: float = 0.95,
     repetition_rate: float | None = None,
     cost: float | None = None,
+    n_replicates: int = 1,
 ) -> xr.Dataset:
     """Compare paired output samples of two scenarios (same design, row by row).
 
@@ -241,6 +113,12 @@ def compare_samples(
         Experimental runs per second (Hz); gives the expected failing runs per day.
     cost : float, optional
         Cost of the change, in the scenario's currency.
+    n_replicates : int, default 1
+        R > 1: the rows are R equal consecutive blocks, each an independent
+        randomization of a QMC design (:func:`replicated_unit`); standard
+        errors of the paired mean change and probability shift come from the
+        R block means, ``s / sqrt(R)``, and ``mean_change_low/high`` are
+        Student-t intervals on R - 1 degrees of freedom. 1: independent rows.
 
     Returns
     -------
@@ -276,11 +154,14 @@ def compare_samples(
             if before[v].attrs.get("role") == "output" and v in after.data_vars
         ]
     outputs = list(outputs)
+    dof = (n_replicates - 1) if n_replicates > 1 else max(n - 1, 1)
+    t_factor = float(stats.t.ppf(0.5 + confidence_level / 2, dof))
     per_output: dict[str, list[float]] = {}
     for name in outputs:
         b = np.asarray(before[name].values, dtype=float)
         a = np.asarray(after[name].values, dtype=float)
         diff = a - b
+        change_se = _paired_se(diff, n_replicates)
         vb, va = float(np.var(b, ddof=1)), float(np.var(a, ddof=1))
         lb, hb = _quantiles(b, confidence_level)
         la, ha = _quantiles(a, confidence_level)
@@ -288,7 +169,9 @@ def compare_samples(
             "mean_before": float(np.mean(b)),
             "mean_after": float(np.mean(a)),
             "mean_change": float(np.mean(diff)),
-            "mean_change_standard_error": float(np.std(diff, ddof=1) / math.sqrt(n)),
+            "mean_change_standard_error": change_se,
+            "mean_change_low": float(np.mean(diff)) - t_factor * change_se,
+            "mean_change_high": float(np.mean(diff)) + t_factor * change_se,
             "std_before": math.sqrt(vb),
             "std_after": math.sqrt(va),
             "interval_low_before": lb,
@@ -314,6 +197,12 @@ def compare_samples(
         )
     for name in outputs:
         ds.attrs[f"units_{name}"] = before[name].attrs.get("units", "")
+    ds.attrs["n_replicates"] = int(n_replicates)
+    ds.attrs["standard_error_method"] = (
+        f"{n_replicates} independent randomizations (block means)"
+        if n_replicates > 1
+        else "independent rows"
+    )
 
     labels, rows = [], []
     rate = math.nan if repetition_rate is None else float(repetition_rate)
@@ -346,7 +235,7 @@ def compare_samples(
                 probability_before=pb,
                 probability_after=pa,
                 probability_shift=pa - pb,
-                shift_standard_error=float(np.std(flips, ddof=1) / math.sqrt(n)) if n > 1 else 0.0,
+                shift_standard_error=_paired_se(flips, n_replicates) if n > 1 else 0.0,
                 failing_per_day_before=(1.0 - pb) * rate * SECONDS_PER_DAY,
                 failing_per_day_after=(1.0 - pa) * rate * SECONDS_PER_DAY,
             )
@@ -424,8 +313,9 @@ def compare(
     """
     n, m, r, level = _settings(before, n_samples, method, rng)
     outs = list(outputs) if outputs is not None else _required_outputs(before, None)
+    unit, blocks = replicated_unit(n, len(_uncertain_names([before, after])), method=m, rng=r)
     samples_before, samples_after = common_random_samples(
-        [before, after], n_samples=n, method=m, rng=r, outputs=outs, progress=progress
+        [before, after], n_samples=n, method=m, unit=unit, outputs=outs, progress=progress
     )
     ds = compare_samples(
         samples_before,
@@ -435,6 +325,7 @@ def compare(
         confidence_level=level,
         repetition_rate=repetition_rate,
         cost=cost,
+        n_replicates=blocks,
     )
     ds.attrs.update(
         title_before=str(getattr(before, "title", "")),
@@ -510,8 +401,9 @@ def compare_upgrades(
     n, m, r, level = _settings(scenario, n_samples, method, rng)
     outs = list(outputs) if outputs is not None else _required_outputs(scenario, None)
     afters = [scenario.apply_upgrade(u) for u in upgrades]
+    unit, blocks = replicated_unit(n, len(_uncertain_names([scenario, *afters])), method=m, rng=r)
     samples = common_random_samples(
-        [scenario, *afters], n_samples=n, method=m, rng=r, outputs=outs, progress=progress
+        [scenario, *afters], n_samples=n, method=m, unit=unit, outputs=outs, progress=progress
     )
     parts = []
     for upgrade, after in zip(upgrades, samples[1:], strict=True):
@@ -524,6 +416,7 @@ def compare_upgrades(
                 confidence_level=level,
                 repetition_rate=repetition_rate,
                 cost=float(upgrade.cost),
+                n_replicates=blocks,
             )
         )
     names = [str(u.name) for u in upgrades]

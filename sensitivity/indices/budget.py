@@ -1,34 +1,11 @@
 """The budget Dataset of a ranking: indices, intervals, ranks and GUM columns from a design.
 
-:func:`~trapbudget.sensitivity.ranking.rank` runs the Saltelli design through a
-model and returns the budget Dataset (dims ``output``, ``input``) of
+:func:`~trapbudget.sensitivity.ranking.rank` runs the replicated design
+through a model and returns the budget Dataset (dims ``output``, ``input``) of
 DEVELOPERS.md; :func:`analyze_budget` here does the analysis alone on
-precomputed evaluations.
-
-Columns of the budget
----------------------
-Independent inputs (``method="sobol"``): ``first_order`` and ``total_order``
-are Sobol' indices (Saltelli 2010 and Jansen 1999 estimators), with bootstrap
-bounds; ``interaction = total_order - first_order``; ``variance_share`` is
-``total_order * Var(Y)``.
-
-Correlated inputs (a ``correlation`` given, or ``method="delta"``): Sobol'
-indices assume independent inputs, so the budget is computed from one
-correlated sample instead. ``first_order`` is then the *full* first-order
-index ``Var(E[Y|X_i]) / Var(Y)``, which includes the part of Y an input
-explains through the inputs it is correlated with (these can add to more than
-one); ``delta`` is Borgonovo's moment-independent index; ``total_order`` is NaN;
-``rank`` follows ``delta``; ``variance_share`` is ``first_order * Var(Y)``.
-The noise floor is the dummy's upper bounds on both, and an input is below
-it when both its indices are.
-
-Correlated inputs, conditional sampling (``method="kucherenko"``): for inputs
-joined by the Gaussian copula, ``first_order`` is again the full first-order
-index and ``total_order`` is ``E[Var(Y|X_~i)] / Var(Y)``, the share of the
-variance X_i still carries when every other input is known (Kucherenko,
-Tarantola & Annoni 2012); ``interaction = total - first`` may be negative
-when correlation dominates. Model runs N(2d+2). ``rank`` follows
-``total_order``. ``attrs["method"]`` says which of the three applies."""
+precomputed evaluations. What each column means for independent and for
+correlated inputs, and how the intervals are computed, is in the notes of
+:mod:`trapbudget.sensitivity.ranking`."""
 
 from __future__ import annotations
 
@@ -41,16 +18,27 @@ import xarray as xr
 
 from trapbudget.sensitivity.errors import ConvergenceWarning, ScenarioError
 from trapbudget.sensitivity.indices.givendata import first_order_given_data
+from trapbudget.sensitivity.indices.replicates import replicate_interval, split_replicates
 from trapbudget.sensitivity.indices.sobol import SobolResult, check_power_of_two, sobol_indices
 from trapbudget.sensitivity.protocol import evaluate_in_chunks, select_outputs, validity_counts
 from trapbudget.sensitivity.sampling import split_inputs, transform
 
-__all__ = ["DUMMY", "BudgetConvergenceWarning", "IndexMethod", "analyze_budget"]
+__all__ = ["DUMMY", "METHOD_NAMES", "BudgetConvergenceWarning", "IndexMethod", "analyze_budget"]
 
 IndexMethod = Literal["sobol", "delta", "kucherenko"]
 _METHODS = ("sobol", "delta", "kucherenko")
 DUMMY = "dummy"
 _FULL_FIRST_ORDER = "full first-order index Var(E[Y|Xi])/Var(Y), correlations included"
+_INDEPENDENT_TOTAL = (
+    "independent total-order index E[Var(Y|X~i)]/Var(Y): the share X_i adds when it joins last"
+)
+#: One printed name per method, wherever a method is named.
+METHOD_NAMES = {
+    "sobol": "Sobol' indices (Saltelli design)",
+    "kucherenko": "conditional sampling (Kucherenko)",
+    "delta": "given data (Borgonovo delta)",
+    "shapley": "Shapley effects",
+}
 
 
 class BudgetConvergenceWarning(ConvergenceWarning):
@@ -177,6 +165,7 @@ def analyze_budget(
     n_bootstrap: int = 200,
     rng: int | np.random.Generator | None = None,
     estimator: Literal["jansen", "sobol2007"] = "jansen",
+    n_replicates: int = 1,
 ) -> xr.Dataset:
     """Budget Dataset from precomputed Saltelli-design evaluations.
 
@@ -209,6 +198,12 @@ def analyze_budget(
     n_bootstrap : int, default 200
     rng : int or numpy.random.Generator, optional
     estimator : {"jansen", "sobol2007"}, default "jansen"
+    n_replicates : int, default 1
+        R >= 2: every block holds R independent randomizations of the design,
+        replicate-major (n = R N rows, N per replicate; the dummy's values
+        likewise within its A and B halves): every index and the noise floor
+        get Student-t intervals on R - 1 degrees of freedom. 1: one design of
+        independent random rows and bootstrap intervals.
 
     Returns
     -------
@@ -242,6 +237,7 @@ def analyze_budget(
         "confidence_level": confidence_level,
         "rng": generator,
         "estimator": estimator,
+        "n_replicates": n_replicates,
     }
     res = _first_and_total(f_A, f_B, f_AB, f_AB_total, f_BA, **kwargs)
     a = np.asarray(f_A, float).reshape(f_A.shape[0], -1)
@@ -259,14 +255,9 @@ def analyze_budget(
     ds["variance_share"] = ds["total_order"] * xr.DataArray(std**2, dims="output")
     ds["variance_share"].attrs["long_name"] = "total order x Var(Y), output units squared"
     if dummy_samples is not None:
-        _, interval = first_order_given_data(
-            np.asarray(dummy_samples).reshape(-1, 1),
-            both,
-            n_bootstrap=max(n_bootstrap, 2),
-            confidence_level=confidence_level,
-            rng=generator,
+        floor = _noise_floor(
+            np.asarray(dummy_samples), a, b, n_replicates, n_bootstrap, confidence_level, generator
         )
-        floor = np.maximum(interval.high[0], 0.0)
     else:
         floor = np.zeros(len(outputs))
     ds["noise_floor"] = ("output", floor)
@@ -288,15 +279,45 @@ def analyze_budget(
         ds["group_members"] = ("group", [",".join(m) for m in groups.values()])
     _unit_attrs(ds, units)
     ds.attrs.update(
-        n_samples=int(a.shape[0]),
+        n_samples=int(a.shape[0] // n_replicates),
+        n_replicates=int(n_replicates),
+        interval_method="replicates" if n_replicates > 1 else "bootstrap",
         confidence_level=float(confidence_level),
-        n_bootstrap=int(n_bootstrap),
+        n_bootstrap=0 if n_replicates > 1 else int(n_bootstrap),
         estimator=estimator,
         method="sobol",
+        method_name=METHOD_NAMES["sobol"],
         rank_by="total_order",
         dummy=dummy_samples is not None,
     )
     return ds
+
+
+def _noise_floor(dummy, a, b, n_replicates, n_bootstrap, confidence_level, generator):
+    """Upper bound of the ignored dummy's given-data first-order index, per output."""
+    if n_replicates == 1:
+        _, interval = first_order_given_data(
+            dummy.reshape(-1, 1),
+            np.concatenate([a, b]),
+            n_bootstrap=max(n_bootstrap, 2),
+            confidence_level=confidence_level,
+            rng=generator,
+        )
+        return np.maximum(interval.high[0], 0.0)
+    half = dummy.size // 2
+    d_a = split_replicates(dummy[:half], n_replicates)
+    d_b = split_replicates(dummy[half:], n_replicates)
+    a_r, b_r = split_replicates(a, n_replicates), split_replicates(b, n_replicates)
+    reps = [
+        first_order_given_data(
+            np.concatenate([d_a[r], d_b[r]]).reshape(-1, 1),
+            np.concatenate([a_r[r], b_r[r]]),
+            n_bootstrap=0,
+        )[0][0]
+        for r in range(n_replicates)
+    ]
+    high = replicate_interval(np.stack(reps), confidence_level=confidence_level).high
+    return np.maximum(high, 0.0)
 
 
 def _first_and_total(f_A, f_B, f_first, f_total, f_BA, **kwargs) -> SobolResult:

@@ -12,7 +12,7 @@ import xarray as xr
 
 from trapbudget.sensitivity.indices.budget import BudgetConvergenceWarning
 
-__all__ = []
+__all__ = ["waiting_for"]
 
 
 @dataclasses.dataclass(frozen=True)
@@ -27,6 +27,8 @@ class _Options:
     n_bootstrap: int
     rng: np.random.Generator
     estimator: str
+    n_replicates: int = 1
+    shapley: bool = False
 
     def analysis(self) -> dict[str, Any]:
         return {
@@ -57,10 +59,14 @@ def _converge(step: Callable[[int], xr.Dataset], n_samples: int, opts: _Options)
             converged = True
             break
         if 2 * n_total > max_samples:
+            waiting = waiting_for(
+                history[-2] if len(history) >= 2 else None, history[-1], convergence_tolerance
+            )
+            history[-1].attrs["waiting_for"] = waiting
             warnings.warn(
-                f"rank: the indices did not settle (interval width <= "
-                f"{convergence_tolerance} and a stable ranking) by n_samples = {n_total}; "
-                "raise max_samples (--max-samples) or convergence_tolerance",
+                f"rank: the indices did not settle by n_samples = {n_total} (per replicate): "
+                f"waiting for {waiting}; raise max_samples (--max-samples) or "
+                "convergence_tolerance",
                 BudgetConvergenceWarning,
                 stacklevel=4,
             )
@@ -74,7 +80,32 @@ def _converge(step: Callable[[int], xr.Dataset], n_samples: int, opts: _Options)
     return ds
 
 
-_INDEX_KEYS = ("first_order", "total_order", "delta")
+_INDEX_KEYS = ("first_order", "total_order", "delta", "shapley_effect")
+
+
+def waiting_for(previous: xr.Dataset | None, current: xr.Dataset, tolerance: float) -> str:
+    """Name the index the loop waits for: the widest interval, or an unsettled pair."""
+    best = ("", "", "", -np.inf)
+    for key in _INDEX_KEYS:
+        if key not in current or not np.isfinite(current[key].values).any():
+            continue
+        width = (current[f"{key}_high"] - current[f"{key}_low"]).transpose("output", "input")
+        values = np.where(np.isfinite(width.values), width.values, -np.inf)
+        i, j = np.unravel_index(np.argmax(values), values.shape)
+        if values[i, j] > best[3]:
+            best = (
+                key,
+                str(width["output"].values[i]),
+                str(width["input"].values[j]),
+                values[i, j],
+            )
+    key, output, name, width = best
+    if width >= tolerance:
+        return f"{key} of {name!r} for {output!r} (interval width {width:.3g} >= {tolerance:g})"
+    if previous is None:
+        return "a second step to check the ranking"
+    swap = _first_swap(previous, current)
+    return f"a stable ranking ({swap} swapped places)" if swap else "a stable ranking"
 
 
 def _max_width(ds: xr.Dataset) -> float:
@@ -87,7 +118,12 @@ def _max_width(ds: xr.Dataset) -> float:
 
 
 def _stable_ranking(previous: xr.Dataset, current: xr.Dataset) -> bool:
-    """True when no two inputs above the noise floor swapped places significantly.
+    """True when no two inputs above the noise floor swapped places significantly."""
+    return _first_swap(previous, current) is None
+
+
+def _first_swap(previous: xr.Dataset, current: xr.Dataset) -> str | None:
+    """The first pair of inputs above the noise floor that swapped places significantly.
 
     A swap counts only between inputs whose current intervals of the ranking
     index do not overlap: inputs whose indices are statistically tied may trade
@@ -103,9 +139,11 @@ def _stable_ranking(previous: xr.Dataset, current: xr.Dataset) -> bool:
         low, high = now[f"{key}_low"].values[keep], now[f"{key}_high"].values[keep]
         flipped = np.sign(value[:, None] - value[None, :]) != np.sign(old[:, None] - old[None, :])
         separate = (low[:, None] > high[None, :]) | (high[:, None] < low[None, :])
-        if np.any(flipped & separate):
-            return False
-    return True
+        bad = np.argwhere(flipped & separate)
+        if bad.size:
+            inputs = now["input"].values[keep]
+            return f"{inputs[bad[0, 0]]!r} and {inputs[bad[0, 1]]!r} for {name!r}"
+    return None
 
 
 def _settled(previous: xr.Dataset, current: xr.Dataset, convergence_tolerance: float) -> bool:
@@ -120,5 +158,5 @@ def _add_history(ds: xr.Dataset, history: Sequence[xr.Dataset]) -> None:
             ds[f"history_{key}"].attrs.update(units="1", long_name=f"{key} at each step")
     ds["history_max_width"] = ("step", [_max_width(h) for h in history])
     ds["history_max_width"].attrs.update(
-        units="1", long_name="widest bootstrap interval at each step"
+        units="1", long_name="widest confidence interval at each step"
     )

@@ -14,13 +14,13 @@ import xarray as xr
 from scipy import stats
 
 from trapbudget.sensitivity.errors import ScenarioError
+from trapbudget.sensitivity.indices.bootstrap import bootstrap_indices, resample_weights
 from trapbudget.sensitivity.indices.givendata import (
     default_bins,
     first_order_given_data,
     rank_classes,
 )
 from trapbudget.sensitivity.indices.screening import _quiet_salib
-from trapbudget.sensitivity.indices.sobol import bootstrap_indices, resample_weights
 
 __all__ = ["delta_indices"]
 
@@ -205,6 +205,13 @@ def delta_indices(
     (:func:`~trapbudget.sensitivity.indices.givendata.first_order_given_data`);
     with correlated inputs it is the *full* first-order index, which counts
     what an input explains through the inputs correlated with it.
+
+    Known bias (measured against the exact delta of a linear Gaussian model,
+    by quadrature, n = 8000, 20 classes): the kernel smoothing pulls delta of
+    strong inputs 3-9 % low and the sampling noise of the class densities
+    pushes weak ones up to 8 % high, bias reduction included; the bootstrap
+    interval does not include this bias, so read delta as a ranking measure,
+    not to better than about 10 %.
 
     References
     ----------

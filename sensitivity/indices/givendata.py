@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import sparse
 
-from trapbudget.sensitivity.indices.sobol import (
+from trapbudget.sensitivity.indices.bootstrap import (
     _BOOTSTRAP_BLOCK,
     ConfidenceInterval,
     bootstrap_indices,

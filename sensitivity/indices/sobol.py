@@ -10,12 +10,18 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Literal, NamedTuple
+from typing import Literal
 
 import numpy as np
 from scipy import stats
 from scipy.stats import qmc
 
+from trapbudget.sensitivity.indices.bootstrap import (
+    ConfidenceInterval,
+    bootstrap_estimates,
+    bootstrap_interval,
+)
+from trapbudget.sensitivity.indices.replicates import replicate_interval, split_replicates
 from trapbudget.sensitivity.sampling import is_power_of_two
 
 __all__ = [
@@ -24,11 +30,9 @@ __all__ = [
     "IntervalMethod",
     "SaltelliDesign",
     "SobolResult",
-    "bootstrap_indices",
     "check_power_of_two",
     "cross_matrices",
     "design_from_base",
-    "resample_weights",
     "saltelli_design",
     "sobol_indices",
 ]
@@ -37,15 +41,6 @@ Estimator = Literal["jansen", "sobol2007"]
 IntervalMethod = Literal["normal", "percentile"]
 _ESTIMATORS = ("jansen", "sobol2007")
 _INTERVALS = ("normal", "percentile")
-# Elements of one bootstrap weight block (resamples x base rows); bounds memory.
-_BOOTSTRAP_BLOCK = 1 << 22
-
-
-class ConfidenceInterval(NamedTuple):
-    """Lower and upper bounds of a bootstrap confidence interval."""
-
-    low: np.ndarray
-    high: np.ndarray
 
 
 def check_power_of_two(n_samples: int, *, name: str = "n_samples") -> int:
@@ -232,6 +227,9 @@ class SobolResult:
         Output variance and mean over the A and B rows.
     confidence_level : float
     n_bootstrap : int
+        Bootstrap resamples (0 when the intervals come from replicates).
+    n_replicates : int
+        Independent randomizations behind the intervals (1: bootstrap).
     """
 
     first_order: np.ndarray
@@ -247,6 +245,7 @@ class SobolResult:
     mean: np.ndarray
     confidence_level: float
     n_bootstrap: int
+    n_replicates: int = 1
 
 
 def _integrands(
@@ -315,12 +314,6 @@ def _weighted_estimates(
     return first, total, second
 
 
-def bootstrap_indices(n: int, n_bootstrap: int, rng) -> np.ndarray:
-    """Resample row indices, shape (n, n_bootstrap), drawn as SALib draws them."""
-    generator = np.random.default_rng(rng)
-    return generator.integers(n, size=(n, n_bootstrap))
-
-
 def sobol_indices(
     f_A: np.ndarray,
     f_B: np.ndarray,
@@ -332,6 +325,7 @@ def sobol_indices(
     interval: IntervalMethod = "percentile",
     rng: int | np.random.Generator | None = None,
     estimator: Estimator = "jansen",
+    n_replicates: int = 1,
 ) -> SobolResult:
     """First-, total- and second-order Sobol' indices from Saltelli-design evaluations.
 
@@ -354,6 +348,15 @@ def sobol_indices(
         ``SALib.analyze.sobol.analyze(..., seed=seed)``.
     estimator : {"jansen", "sobol2007"}, default "jansen"
         Total-order estimator.
+    n_replicates : int, default 1
+        R >= 2: the rows of every block are R independent randomizations of
+        the design, replicate-major (rows ``r n .. (r + 1) n - 1`` of f_A, f_B
+        and of each f_AB_i belong to replicate r). Each index is then the mean
+        of the R replicate estimates and its interval the Student-t interval
+        on R - 1 degrees of freedom (:func:`~trapbudget.sensitivity.indices.
+        replicates.replicate_interval`), valid on scrambled Sobol' points;
+        ``n_bootstrap`` and ``interval`` are not used. R = 1: one design, and
+        the bootstrap of its rows, valid only for independent random rows.
 
     Returns
     -------
@@ -389,6 +392,8 @@ def sobol_indices(
         raise ValueError(f"interval must be one of {_INTERVALS}; got {interval!r}")
     if not 0 < confidence_level < 1:
         raise ValueError(f"confidence_level must be in (0, 1); got {confidence_level!r}")
+    if not isinstance(n_replicates, int | np.integer) or n_replicates < 1:
+        raise ValueError(f"n_replicates must be a positive integer; got {n_replicates!r}")
     if not isinstance(n_bootstrap, int | np.integer) or n_bootstrap < 0 or n_bootstrap == 1:
         raise ValueError(f"n_bootstrap must be 0 or an integer >= 2; got {n_bootstrap!r}")
     a = np.asarray(f_A, dtype=float)
@@ -403,35 +408,35 @@ def sobol_indices(
     ab = ab_in.reshape(k, n, m)
     ba = None if f_BA is None else np.asarray(f_BA, dtype=float).reshape(k, n, m)
 
-    everything = [a, b, ab.reshape(-1, m)] + ([] if ba is None else [ba.reshape(-1, m)])
-    stacked = np.concatenate(everything, axis=0)
-    centre = stacked.mean(axis=0)
-    scale = stacked.std(axis=0)
-    scale = np.where(scale > 0, scale, 1.0)
-    a, b, ab = (a - centre) / scale, (b - centre) / scale, (ab - centre) / scale
-    if ba is not None:
-        ba = (ba - centre) / scale
-
-    integrands = _integrands(a, b, ab, ba, estimator)
     shape = (n, k, m, ba is not None)
-    first, total, second = _weighted_estimates(np.ones((1, n)), integrands, *shape)
-    first, total = first[0], total[0]
-    second = None if second is None else second[0]
-
-    nan = np.full_like(first, np.nan)
+    nan = np.full((k, m), np.nan)
     fo_iv = to_iv = ConfidenceInterval(nan, nan)
     fo_se = to_se = nan
     so_iv, so_se = None, None
-    if second is not None:
-        nan2 = np.full_like(second, np.nan)
+    if ba is not None:
+        nan2 = np.full((k, k, m), np.nan)
         so_iv, so_se = ConfidenceInterval(nan2, nan2), nan2
-    if n_bootstrap:
-        samples = _bootstrap_estimates(integrands, shape, n_bootstrap, rng)
-        z = stats.norm.ppf(0.5 + confidence_level / 2)
-        fo_iv, fo_se = _interval(samples[0], first, z, confidence_level, interval)
-        to_iv, to_se = _interval(samples[1], total, z, confidence_level, interval)
+    if n_replicates > 1:
+        first, total, second, reps = _replicated(a, b, ab, ba, n_replicates, estimator)
+        fo_se, fo_iv = _t_interval(reps[0], confidence_level)
+        to_se, to_iv = _t_interval(reps[1], confidence_level)
         if second is not None:
-            so_iv, so_se = _interval(samples[2], second, z, confidence_level, interval)
+            so_se, so_iv = _t_interval(reps[2], confidence_level)
+    else:
+        a, b, ab, ba = _standardised(a, b, ab, ba)
+        integrands = _integrands(a, b, ab, ba, estimator)
+        first, total, second = _weighted_estimates(np.ones((1, n)), integrands, *shape)
+        first, total = first[0], total[0]
+        second = None if second is None else second[0]
+        if n_bootstrap:
+            samples = bootstrap_estimates(integrands, shape, n_bootstrap, rng, _weighted_estimates)
+            z = stats.norm.ppf(0.5 + confidence_level / 2)
+            fo_iv, fo_se = bootstrap_interval(samples[0], first, z, confidence_level, interval)
+            to_iv, to_se = bootstrap_interval(samples[1], total, z, confidence_level, interval)
+            if second is not None:
+                so_iv, so_se = bootstrap_interval(
+                    samples[2], second, z, confidence_level, interval
+                )
 
     if single:
         first, total, fo_se, to_se = first[..., 0], total[..., 0], fo_se[..., 0], to_se[..., 0]
@@ -455,40 +460,47 @@ def sobol_indices(
         variance=np.asarray(variance),
         mean=np.asarray(mean),
         confidence_level=float(confidence_level),
-        n_bootstrap=int(n_bootstrap),
+        n_bootstrap=0 if n_replicates > 1 else int(n_bootstrap),
+        n_replicates=int(n_replicates),
     )
 
 
-def resample_weights(indices: np.ndarray) -> np.ndarray:
-    """Multiplicity of each of n rows in each resample: (n, r) indices -> (r, n) floats."""
-    n, width = indices.shape
-    flat = (indices + n * np.arange(width)[None, :]).ravel()
-    return np.bincount(flat, minlength=n * width).reshape(width, n).astype(float)
+def _standardised(a, b, ab, ba):
+    """Centre on the mean of all evaluations and scale by their standard deviation."""
+    m = a.shape[1]
+    everything = [a, b, ab.reshape(-1, m)] + ([] if ba is None else [ba.reshape(-1, m)])
+    stacked = np.concatenate(everything, axis=0)
+    centre = stacked.mean(axis=0)
+    scale = stacked.std(axis=0)
+    scale = np.where(scale > 0, scale, 1.0)
+    a, b, ab = (a - centre) / scale, (b - centre) / scale, (ab - centre) / scale
+    if ba is not None:
+        ba = (ba - centre) / scale
+    return a, b, ab, ba
 
 
-def _bootstrap_estimates(integrands, shape, n_bootstrap, rng):
-    """Bootstrap replicates of every estimator, in blocks of resamples."""
-    n = shape[0]
-    r = bootstrap_indices(n, n_bootstrap, rng)  # (n, n_bootstrap)
-    per_block = max(1, _BOOTSTRAP_BLOCK // max(n, integrands.shape[1]))
+def _replicated(a, b, ab, ba, n_replicates, estimator):
+    """Estimates of each replicate (rows replicate-major); their means and the replicates."""
+    a_r = split_replicates(a, n_replicates)
+    b_r = split_replicates(b, n_replicates)
+    ab_r = np.moveaxis(split_replicates(ab, n_replicates, axis=1), 2, 1)  # (R, k, n, m)
+    ba_r = None if ba is None else np.moveaxis(split_replicates(ba, n_replicates, axis=1), 2, 1)
+    n, m = a_r.shape[1], a_r.shape[2]
+    k = ab_r.shape[1]
+    shape = (n, k, m, ba is not None)
     firsts, totals, seconds = [], [], []
-    for start in range(0, n_bootstrap, per_block):
-        w = resample_weights(r[:, start : start + per_block])
-        f, t, s = _weighted_estimates(w, integrands, *shape)
-        firsts.append(f)
-        totals.append(t)
-        if s is not None:
-            seconds.append(s)
-    first = np.concatenate(firsts)
-    total = np.concatenate(totals)
-    second = np.concatenate(seconds) if seconds else None
-    return first, total, second
+    for r in range(n_replicates):
+        parts = _standardised(a_r[r], b_r[r], ab_r[r], None if ba_r is None else ba_r[r])
+        f, t, s2 = _weighted_estimates(np.ones((1, n)), _integrands(*parts, estimator), *shape)
+        firsts.append(f[0])
+        totals.append(t[0])
+        if s2 is not None:
+            seconds.append(s2[0])
+    reps = [np.stack(firsts), np.stack(totals)] + ([np.stack(seconds)] if seconds else [])
+    means = [x.mean(axis=0) for x in reps]
+    return means[0], means[1], (means[2] if seconds else None), reps
 
 
-def _interval(replicates, estimate, z, confidence_level, method):
-    se = np.std(replicates, axis=0, ddof=1)
-    if method == "normal":
-        return ConfidenceInterval(estimate - z * se, estimate + z * se), se
-    alpha = (1 - confidence_level) / 2
-    low, high = np.quantile(replicates, [alpha, 1 - alpha], axis=0)
-    return ConfidenceInterval(low, high), se
+def _t_interval(replicates, confidence_level):
+    res = replicate_interval(replicates, confidence_level=confidence_level)
+    return res.standard_error, ConfidenceInterval(res.low, res.high)

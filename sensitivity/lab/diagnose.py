@@ -39,7 +39,7 @@ import math
 import os
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 import xarray as xr
@@ -56,9 +56,14 @@ from trapbudget.sensitivity.lab.driftlog import (
     _mapping_from,
     read_log,
 )
+from trapbudget.sensitivity.lab.significance import benjamini_hochberg, holm, remainder_test
 from trapbudget.sensitivity.scenario.core import Scenario
 
-__all__ = ["Diagnosis", "diagnose"]
+__all__ = ["CONTROLS", "Control", "Diagnosis", "diagnose"]
+
+#: How ``flagged`` controls false alarms: per day, family-wise (Holm) or the FDR.
+Control = Literal["per-day", "holm", "fdr"]
+CONTROLS = ("per-day", "holm", "fdr")
 
 
 @dataclass(frozen=True)
@@ -78,6 +83,14 @@ class Diagnosis:
         Exact Shapley shares of the predicted change; rows sum to
         ``predicted_change``.
     flagged : ndarray of bool (day)
+        The verdict of ``control``; ``flagged_per_day`` (each day at the
+        stated rate), ``flagged_holm`` (family-wise over the log) and
+        ``flagged_fdr`` (Benjamini-Hochberg) beside it.
+    p_value, degrees_of_freedom : ndarray (day)
+        Two-sided tail of the remainder (Student t) and its effective degrees
+        of freedom (inf with given uncertainties); 1 on reference days.
+    control : str
+        "per-day", "holm" or "fdr".
     variance_share : ndarray (channel)
         Share of each channel in the mean square attribution over the days.
     messages : tuple of str
@@ -109,6 +122,12 @@ class Diagnosis:
     ignored_columns: tuple[str, ...]
     messages: tuple[str, ...] = ()
     channel_means: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
+    p_value: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    degrees_of_freedom: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    flagged_per_day: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=bool))
+    flagged_holm: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=bool))
+    flagged_fdr: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=bool))
+    control: str = "per-day"
 
     @property
     def ranking(self) -> list[tuple[str, float]]:
@@ -132,6 +151,11 @@ class Diagnosis:
                 "remainder_sigma": ("day", self.remainder_sigma, {"units": self.units}),
                 "z": ("day", self.z),
                 "flagged": ("day", self.flagged),
+                "flagged_per_day": ("day", self.flagged_per_day),
+                "flagged_holm": ("day", self.flagged_holm),
+                "flagged_fdr": ("day", self.flagged_fdr),
+                "p_value": ("day", self.p_value),
+                "degrees_of_freedom": ("day", self.degrees_of_freedom),
                 "variance_share": ("channel", self.variance_share),
             },
             coords={
@@ -144,6 +168,7 @@ class Diagnosis:
                 "output": self.output,
                 "reference_level": self.reference_level,
                 "false_alarm_rate": self.false_alarm_rate,
+                "control": self.control,
                 "threshold": self.threshold,
                 "skipped_rows": self.skipped_rows,
                 "ignored_columns": list(self.ignored_columns),
@@ -204,6 +229,7 @@ def diagnose(
     false_alarm_rate: float = 0.01,
     mapping: Mapping[str, Any] | str | os.PathLike[str] | None = None,
     unexplained_noise: float = 0.0,
+    control: Control = "per-day",
 ) -> Diagnosis:
     """Attribute day-to-day changes of the atom number to the monitored channels.
 
@@ -225,6 +251,13 @@ def diagnose(
     unexplained_noise : float
         Relative day-to-day scatter of the output expected even with nothing
         changing (added in quadrature to the allowed remainder); 0 by default.
+    control : {"per-day", "holm", "fdr"}, default "per-day"
+        Which verdict ``flagged`` holds: each day at ``false_alarm_rate``
+        (per-day rate), Holm's step-down rule (probability of any false
+        alarm over the whole log at most ``false_alarm_rate``) or
+        Benjamini-Hochberg (expected share of false alarms among the flagged
+        days at most ``false_alarm_rate``). All three are in the result
+        (``flagged_per_day``, ``flagged_holm``, ``flagged_fdr``).
 
     Returns
     -------
@@ -232,25 +265,40 @@ def diagnose(
 
     Notes
     -----
-    Each day's channel values are averaged; the model predicts the output at
-    each day's means and at the reference period's means (other inputs at
-    the scenario's nominal values); the predicted change is split over the
-    channels by the exact Shapley value (:func:`shapley_attribution`), which
-    sums to it to rounding. The remainder
+    The model predicts the output at every log entry (other inputs at the
+    scenario's nominal values); a day's prediction is the mean of its
+    entries' predictions, as its measurement is the mean of its entries. The
+    predicted change (day mean minus reference-period mean) is split over the
+    channels by averaging, the same way, each entry's exact Shapley
+    attribution (:func:`shapley_attribution`) against one common point (the
+    reference period's mean settings); the shares sum to the change to
+    rounding. The remainder
     ``r = (mean measured - reference mean measured) - predicted change`` is
     compared with its standard deviation from (i) measurement noise: the
     given uncertainties, else the pooled within-day scatter of
     measured - predicted, through the day's and the reference's means;
     (ii) calibration: first-order propagation of the covariance of the
     scenario's uncertain constants through the predicted change;
-    (iii) ``unexplained_noise``. A day is flagged when
-    ``|r| / sigma > z_(1 - alpha/2)``. The channels are ranked by the share
+    (iii) ``unexplained_noise``. With the scatter estimated from the log,
+    ``r / sigma`` follows Student's t with the Welch-Satterthwaite degrees of
+    freedom ``nu (sigma^2 / s_noise^2)^2``, nu the pooled degrees of freedom
+    (Satterthwaite 1946); ``p_value`` is its two-sided tail and ``z`` the
+    normal score with the same tail, so a day is flagged at the per-day rate
+    when ``|z| > z_(1 - alpha/2)``, i.e. ``p < alpha``. The channels are ranked by the share
     of the mean square attribution, ``sum_d phi_dc^2 / sum_dc phi_dc^2``
     (sums to 1; unlike a covariance split it stays meaningful when two drifts
     cancel in the total).
+
+    References
+    ----------
+    F. E. Satterthwaite, Biometrics Bull. 2, 110 (1946); S. Holm, Scand. J.
+    Stat. 6, 65 (1979); Y. Benjamini, Y. Hochberg, J. R. Stat. Soc. B 57, 289
+    (1995); JCGM 100:2008, G.4 (effective degrees of freedom).
     """
     if not 0 < false_alarm_rate < 1:
         raise DataError(f"false_alarm_rate {false_alarm_rate!r} must lie in (0, 1)")
+    if control not in CONTROLS:
+        raise DataError(f"control {control!r} is not known; use one of {', '.join(CONTROLS)}")
     table = log if isinstance(log, LogTable) else read_log(log)
     model = scenario.model
     where = str(getattr(scenario, "source", None) or "scenario")
@@ -309,14 +357,6 @@ def diagnose(
         if name not in input_of.values()
     }
 
-    entry_values = {
-        **{n: np.full(stamps.size, v) for n, v in base.items()},
-        **{input_of[c]: v for c, v in inputs.items()},
-    }
-    predicted = np.broadcast_to(
-        np.asarray(model.evaluate(entry_values)[output], dtype=float), stamps.shape
-    ).copy()
-
     day_of = stamps.astype("datetime64[D]")
     days, day_index, counts = np.unique(day_of, return_inverse=True, return_counts=True)
     ref = _reference_mask(days, reference, where)
@@ -325,17 +365,30 @@ def diagnose(
     def day_mean(x: np.ndarray) -> np.ndarray:
         return np.bincount(day_index, weights=x, minlength=days.size) / counts
 
+    def change(x: np.ndarray) -> np.ndarray:
+        """Day mean minus reference-period mean of a per-entry quantity (last axis: entries)."""
+        return day_mean(x) - float(np.mean(x[ref_rows]))
+
     channel_means = np.column_stack([day_mean(inputs[c]) for c in inputs])
     ref_point = {input_of[c]: float(np.mean(inputs[c][ref_rows])) for c in inputs}
-    points = {input_of[c]: channel_means[:, j] for j, c in enumerate(inputs)}
-    attribution, predicted_change, at_reference = shapley_attribution(
-        model, reference=ref_point, points=points, base=base, output=output
+    entry_points = {input_of[c]: inputs[c] for c in inputs}
+    # The measurement of a day is the mean over its entries, so the prediction is the mean
+    # of the per-entry predictions (not the model at the day's mean settings, which differs
+    # by the curvature times the within-day jitter). Each entry's change from one common
+    # point is attributed exactly; day and reference means of those shares sum to the
+    # predicted change.
+    entry_shares, entry_change, at_reference = shapley_attribution(
+        model, reference=ref_point, points=entry_points, base=base, output=output
     )
+    predicted = np.asarray(entry_change + float(at_reference), dtype=float)
+    attribution = np.column_stack([change(entry_shares[:, j]) for j in range(len(inputs))])
+    predicted_change = change(predicted)
     measured_day = day_mean(measured)
     measured_change = measured_day - float(np.mean(measured[ref_rows]))
     remainder = measured_change - predicted_change
 
     # (i) measurement noise of the day means
+    dof_noise = math.inf
     if given_u is not None:
         var_day = np.bincount(day_index, weights=given_u**2, minlength=days.size) / counts**2
         var_ref = float(np.sum(given_u[ref_rows] ** 2)) / ref_rows.sum() ** 2
@@ -353,21 +406,31 @@ def diagnose(
                 f"estimated; add '{u_name}' or more entries per day",
                 path=table.where,
             )
-        pooled = float(ss.sum() / dof.sum())
+        dof_noise = float(dof.sum())
+        pooled = float(ss.sum() / dof_noise)
         var_day = pooled / counts
         var_ref = pooled / ref_rows.sum()
-        noise_note = "the pooled within-day scatter of measured - predicted"
+        noise_note = (
+            f"the pooled within-day scatter of measured - predicted ({dof_noise:.0f} "
+            "degrees of freedom, Student t)"
+        )
     var_meas = var_day + var_ref
     # (ii) calibration uncertainty of the predicted change
-    var_cal = _calibration_variance(scenario, model, base, ref_point, points, output)
+    var_cal = _calibration_variance(scenario, model, base, entry_points, change, output)
     # (iii) stated unexplained day-to-day scatter
     level = float(at_reference)
     var_extra = (unexplained_noise * level) ** 2 * (1.0 + 1.0 / max(int(ref.sum()), 1))
-    sigma = np.sqrt(var_meas + var_cal + var_extra)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        z = np.where(sigma > 0, remainder / sigma, np.inf * np.sign(remainder))
+    var_total = var_meas + var_cal + var_extra
+    sigma = np.sqrt(var_total)
+    t_stat, dof_day, p_value = remainder_test(remainder, var_meas, var_total, dof_noise)
+    p_value = np.where(ref, 1.0, p_value)
+    # z on the normal scale with the same p-value: |z| > z_(1 - alpha/2) exactly when p < alpha.
+    z = np.sign(t_stat) * stats.norm.isf(np.clip(p_value / 2, 1e-300, 0.5))
     threshold = float(stats.norm.isf(false_alarm_rate / 2))
-    flagged = (np.abs(z) > threshold) & ~ref
+    flagged_day = (p_value < false_alarm_rate) & ~ref
+    flagged_holm = holm(p_value, ~ref, false_alarm_rate)
+    flagged_fdr = benjamini_hochberg(p_value, ~ref, false_alarm_rate)
+    flagged = {"per-day": flagged_day, "holm": flagged_holm, "fdr": flagged_fdr}[control]
 
     square = np.sum(attribution**2, axis=0)
     share = square / square.sum() if square.sum() > 0 else np.zeros(len(inputs))
@@ -385,7 +448,7 @@ def diagnose(
         channels,
         level,
         false_alarm_rate,
-        noise_note,
+        noise_note + f"; verdicts: {_CONTROL_NOTE[control]}",
         skipped,
         ignored,
         share,
@@ -416,6 +479,12 @@ def diagnose(
         ignored_columns=tuple(ignored),
         messages=tuple(messages),
         channel_means=channel_means,
+        p_value=p_value,
+        degrees_of_freedom=np.where(ref, math.nan, dof_day),
+        flagged_per_day=flagged_day,
+        flagged_holm=flagged_holm,
+        flagged_fdr=flagged_fdr,
+        control=control,
     )
 
 
@@ -423,26 +492,37 @@ def _calibration_variance(
     scenario: Scenario,
     model: Any,
     base: Mapping[str, float],
-    ref_point: Mapping[str, float],
-    points: Mapping[str, np.ndarray],
+    entry_points: Mapping[str, np.ndarray],
+    change: Any,
     output: str,
 ) -> np.ndarray:
+    """First-order variance of each day's predicted change from the constants' covariance.
+
+    ``change`` maps per-entry predictions to day-minus-reference changes, so the
+    derivative is that of the same averaged change the remainder uses.
+    """
     names, cov = _constants_covariance(scenario, model)
-    n_days = len(next(iter(points.values())))
+    n_days = len(change(np.zeros(len(next(iter(entry_points.values()))))))
     if not names:
         return np.zeros(n_days)
     grads = np.empty((n_days, len(names)))
     for j, name in enumerate(names):
-        centre = float(base.get(name, ref_point.get(name, model.inputs[name].default)))
+        centre = float(base.get(name, model.inputs[name].default))
         h = 1e-4 * (math.sqrt(cov[j, j]) or abs(centre) or 1.0)
         changes = []
         for step in (h, -h):
-            common = {**base, name: centre + step}
-            day = model.evaluate({**common, **points})[output]
-            ref = model.evaluate({**common, **ref_point})[output]
-            changes.append(np.asarray(day, dtype=float) - np.asarray(ref, dtype=float))
+            values = model.evaluate({**base, name: centre + step, **entry_points})[output]
+            n_entries = len(next(iter(entry_points.values())))
+            changes.append(change(np.broadcast_to(np.asarray(values, dtype=float), (n_entries,))))
         grads[:, j] = (changes[0] - changes[1]) / (2 * h)
     return np.einsum("di,ij,dj->d", grads, cov, grads)
+
+
+_CONTROL_NOTE = {
+    "per-day": "each day at the stated false-alarm rate",
+    "holm": "Holm's rule, the stated rate for any false alarm over the whole log",
+    "fdr": "Benjamini-Hochberg, the stated rate as the share of false alarms among flags",
+}
 
 
 def _messages(
