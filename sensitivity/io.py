@@ -249,7 +249,7 @@ def folder_lock(folder: str | os.PathLike[str]) -> Iterator[None]:
 def clean_leftovers(folder: str | os.PathLike[str]) -> list[Path]:
     """Remove scratch folders that killed runs left beside ``folder``; call under the lock."""
     folder = Path(folder)
-    removed = []
+    removed: list[Path] = []
     if not folder.parent.is_dir():
         return removed
     prefix = f".{folder.name}."
