@@ -203,7 +203,7 @@ def parse_requirements(
             )
         label = str(table.get("label", ""))
         try:
-            out.append(Requirement(output, kind, limit, probability, label))  # type: ignore[arg-type]
+            out.append(Requirement(output, kind, limit, probability, label))
         except ScenarioError as error:
             raise ScenarioError(error.message, path=path, key=key) from None
     seen: dict[str, int] = {}
