@@ -38,7 +38,10 @@ def format_number(value: float, *, digits: int = 3) -> str:
 def format_index(value: float) -> str:
     """A sensitivity index to three decimals (indices are fractions of a variance)."""
     value = float(value)
-    return "nan" if math.isnan(value) else f"{value:.3f}"
+    if math.isnan(value):
+        return "nan"
+    text = f"{value:.3f}"
+    return "0.000" if text == "-0.000" else text
 
 
 def format_quantity(value: float, unit: str, *, digits: int = 3) -> str:
@@ -101,11 +104,15 @@ def output_unit(name: str, *datasets) -> str:
 def main_index(budget) -> tuple[str, str]:
     """The budget variable that ranks the inputs and its label.
 
-    ``total_order`` for Sobol' budgets; ``delta`` (moment-independent) for
-    budgets of correlated inputs, whose total-order indices are undefined.
+    The budget's ``headline`` attr when it names a variable (``shapley_effect`` for
+    correlated inputs, ``total_order`` for independent ones); else ``total_order`` for
+    Sobol' budgets and ``delta`` (moment-independent) for given-data budgets.
     """
     import numpy as np
 
+    headline = str(budget.attrs.get("headline", ""))
+    if headline == "shapley_effect" and "shapley_effect" in budget:
+        return "shapley_effect", "Shapley effect"
     if "total_order" in budget and np.isfinite(np.asarray(budget["total_order"].values)).any():
         return "total_order", "total order"
     if "delta" in budget:

@@ -26,6 +26,7 @@ from trapbudget.reports.formatting import (
 )
 
 __all__ = [
+    "SHAPLEY_COLUMNS",
     "Datasets",
     "budget_columns",
     "budget_rows",
@@ -239,11 +240,20 @@ def _ci(ds: xr.Dataset, key: str) -> str:
     return value
 
 
+#: Column titles of the budget of correlated inputs, by the share each one states.
+SHAPLEY_COLUMNS = ("Shapley effect", "Alone (full first order)", "Added last (total, own part)")
+
+
 def budget_columns(budget: xr.Dataset) -> list[str]:
-    """Column titles of :func:`budget_rows` for this budget (Sobol' or given-data)."""
+    """Column titles of :func:`budget_rows` for this budget (Sobol', Shapley or given-data)."""
     _, label = main_index(budget)
-    middle = ["Total order", "Interaction"] if label == "total order" else [label.capitalize()]
-    return ["Rank", "Input", "First order", *middle, "sqrt(variance share)", "Linear |c| u"]
+    tail = ["sqrt(variance share)", "Linear |c| u"]
+    if label == "Shapley effect":
+        return ["Rank", "Input", *SHAPLEY_COLUMNS, *tail]
+    if label == "total order":
+        extra = ["Shapley effect"] if "shapley_effect" in budget else []
+        return ["Rank", "Input", "First order", "Total order", "Interaction", *extra, *tail]
+    return ["Rank", "Input", "First order", label.capitalize(), *tail]
 
 
 def budget_rows(
@@ -266,11 +276,16 @@ def budget_rows(
         cells = [
             str(int(_flt(item["rank"]))),
             str(item["input"].values) + (" (noise floor)" if floor else ""),
-            _ci(item, "first_order"),
-            _ci(item, key),
         ]
+        if label == "Shapley effect":
+            cells += [_ci(item, "shapley_effect"), _ci(item, "first_order")]
+            cells.append(_ci(item, "total_order"))
+        else:
+            cells += [_ci(item, "first_order"), _ci(item, key)]
         if label == "total order":
             cells.append(format_index(item["interaction"]) if "interaction" in item else "")
+            if "shapley_effect" in row:
+                cells.append(_ci(item, "shapley_effect"))
         cells.append(_q(math.sqrt(share), unit) if share >= 0 else "nan")
         contribution = item.get("uncertainty_contribution")
         cells.append("" if contribution is None else _q(contribution, unit))
@@ -291,6 +306,16 @@ _CONDITIONAL_TEXT = (
     "E[Var(Y|X~i)]/Var(Y), by which the inputs are ranked. With correlations the first order "
     "can exceed the total order; the interaction column is then not an interaction."
 )
+_SHAPLEY_TEXT = (
+    "The scenario correlates some inputs, so each input's headline share is its Shapley "
+    "effect (Owen 2014; Song, Nelson & Staum 2016), computed by exact conditioning under the "
+    "Gaussian copula: the shares are non-negative, sum to one and split a drift shared "
+    "through a correlation fairly between the inputs. Beside it, 'alone' is the full "
+    "first-order index Var(E[Y|Xi])/Var(Y), the share the input explains on its own with its "
+    "correlations included, and 'added last' the total-order index of its own, independent "
+    "part, the share it adds when it joins the others last. These two need not bracket the "
+    "Shapley effect."
+)
 _GIVEN_DATA_TEXT = (
     "The scenario correlates some inputs, and Sobol' total-order indices assume independent "
     "inputs, so this budget comes from one correlated sample: the full first-order index "
@@ -298,6 +323,16 @@ _GIVEN_DATA_TEXT = (
     "both) and the moment-independent delta index (Borgonovo 2007), by which the inputs are "
     "ranked."
 )
+
+
+def _interval_text(budget: xr.Dataset) -> str:
+    replicates = budget.attrs.get("n_replicates")
+    if str(budget.attrs.get("interval_method", "")) == "replicates" and replicates:
+        return (
+            f"Student t over {int(replicates)} independent randomizations of the design, "
+            f"{int(replicates) - 1} degrees of freedom"
+        )
+    return "bootstrap of independent draws"
 
 
 def budget_section(datasets: Datasets, study: Mapping[str, Any]) -> Section | None:
@@ -308,16 +343,19 @@ def budget_section(datasets: Datasets, study: Mapping[str, Any]) -> Section | No
     _, label = main_index(budget)
     blocks: list[Any] = [
         Text(
-            _GIVEN_DATA_TEXT
-            if label != "total order"
-            else _CONDITIONAL_TEXT
-            if budget.attrs.get("method") == "kucherenko"
+            _SHAPLEY_TEXT
+            if label == "Shapley effect"
             else _SOBOL_TEXT
+            if label == "total order" and budget.attrs.get("method") != "kucherenko"
+            else _CONDITIONAL_TEXT
+            if label == "total order"
+            else _GIVEN_DATA_TEXT
         ),
         Text(
             "The last two columns are in output units: the square root of the input's share of "
             "the variance (index x variance), and the linear (GUM) contribution |c| u at the "
-            f"nominal point. Brackets: {level} bootstrap confidence intervals. Inputs whose "
+            f"nominal point. Brackets: {level} confidence intervals ({_interval_text(budget)}). "
+            "Inputs whose "
             "index is indistinguishable from that of a dummy input the model ignores are marked "
             "as being at the noise floor."
         ),

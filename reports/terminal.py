@@ -46,7 +46,12 @@ def prediction_table(linear: xr.Dataset, *, title: str = "", top: int = 3) -> Ta
 
 
 def budget_tables(summary: xr.Dataset, budget: xr.Dataset, *, top: int = 5) -> list[Table]:
-    """One table per output: its Monte Carlo mean and spread, then its top drifts."""
+    """One table per output: its Monte Carlo mean and spread, then its top drifts.
+
+    Columns: rank, input, the headline index with the half-width of its confidence
+    interval, the first-order index ("alone" with correlations: the full first order),
+    and the spread share sqrt(index x variance) in output units. Fits 80 columns.
+    """
     tables = []
     key, index_label = main_index(budget)
     for name in [str(o) for o in budget["output"].values]:
@@ -59,14 +64,12 @@ def budget_tables(summary: xr.Dataset, budget: xr.Dataset, *, top: int = 5) -> l
                 f"+- {format_quantity(float(row['std']), unit)}"
             )
         table = Table(title=f"{name}: {head}" if head else name, title_justify="left")
-        for column, justify in (
-            ("rank", "right"),
-            ("input", "left"),
-            (index_label, "right"),
-            ("first order", "right"),
-            ("sqrt(variance share)", "right"),
-        ):
-            table.add_column(column, justify=justify)  # type: ignore[arg-type]
+        second = "alone" if key == "shapley_effect" else "first order"
+        table.add_column("#", justify="right")
+        table.add_column("input", justify="left", no_wrap=True)
+        table.add_column(index_label, justify="right", no_wrap=True)
+        table.add_column(second, justify="right")
+        table.add_column("spread share", justify="right", no_wrap=True)
         brow = budget.sel(output=name)
         order = np.argsort(np.asarray(brow["rank"].values, dtype=float), kind="stable")[:top]
         std = float(brow["output_std"]) if "output_std" in brow else float("nan")
@@ -83,7 +86,8 @@ def budget_tables(summary: xr.Dataset, budget: xr.Dataset, *, top: int = 5) -> l
                 label += " (noise floor)"
             ci = ""
             if f"{key}_low" in item and f"{key}_high" in item:
-                ci = f" [{format_index(item[f'{key}_low'])}, {format_index(item[f'{key}_high'])}]"
+                half = 0.5 * (float(item[f"{key}_high"]) - float(item[f"{key}_low"]))
+                ci = f" ± {format_index(half)}" if np.isfinite(half) else ""
             table.add_row(
                 str(int(item["rank"])),
                 label,
