@@ -1,0 +1,50 @@
+"""Write models/capture_table_data.py: the aligned-trap loading table of the capture model.
+
+Run by hand after changing the capture physics (about ten minutes on one core)::
+
+    python benchmarks/make_capture_table.py
+
+It evaluates :func:`trapbudget.models.capture.build_table` (straight-line capture
+speeds over the symmetric line quadrature, at every node of
+:data:`trapbudget.models.capture.TABLE_GRID`) and stores the result as compressed
+text in a Python module, so that it installs with the package.
+"""
+
+from __future__ import annotations
+
+import os
+
+os.environ.setdefault("NUMBA_NUM_THREADS", "1")
+
+import sys  # noqa: E402
+import time  # noqa: E402
+from pathlib import Path  # noqa: E402
+
+from trapbudget.models import capture  # noqa: E402
+
+TARGET = Path(__file__).resolve().parents[1] / "models" / "capture_table_data.py"
+
+
+def main() -> None:
+    start = time.perf_counter()
+
+    def progress(done: int, total: int) -> None:
+        sys.stderr.write(f"\r{done}/{total} nodes, {time.perf_counter() - start:6.0f} s")
+
+    table = capture.build_table(progress)
+    text = capture.encode_table(table)
+    lines = [text[i : i + 96] for i in range(0, len(text), 96)]
+    body = "\n".join(f'    "{line}"' for line in lines)
+    TARGET.write_text(
+        '"""Aligned-trap loading table of the capture model (generated; do not edit).\n\n'
+        "Written by benchmarks/make_capture_table.py from trapbudget.models.capture.build_table:\n"
+        "log of the mean of (vc k / Gamma)^4 and log(m6 / m4^1.5) on TABLE_GRID, float32,\n"
+        'zlib-compressed, base64.\n"""\n\n'
+        f"GRID = {capture.TABLE_GRID!r}\n\n"
+        f"TABLE = (\n{body}\n)\n"
+    )
+    sys.stderr.write(f"\nwrote {TARGET} in {time.perf_counter() - start:.0f} s\n")
+
+
+if __name__ == "__main__":
+    main()
