@@ -16,11 +16,11 @@ import os
 
 os.environ.setdefault("NUMBA_NUM_THREADS", "1")
 
-import sys  # noqa: E402
-import time  # noqa: E402
-from pathlib import Path  # noqa: E402
+import sys
+import time
+from pathlib import Path
 
-from trapbudget.models import capture  # noqa: E402
+from trapbudget.models import capture
 
 TARGET = Path(__file__).resolve().parents[1] / "models" / "capture_table_data.py"
 
@@ -33,7 +33,7 @@ def main() -> None:
 
     table = capture.build_table(progress)
     text = capture.encode_table(table)
-    lines = [text[i : i + 96] for i in range(0, len(text), 96)]
+    lines = [text[i : i + 88] for i in range(0, len(text), 88)]
     body = "\n".join(f'    "{line}"' for line in lines)
     TARGET.write_text(
         '"""Aligned-trap loading table of the capture model (generated; do not edit).\n\n'

@@ -78,19 +78,75 @@ def line_speeds(
         for _ in range(n_steps):
             # backward: u(ell - h) = u(ell) - int a d ell; a < 0 where the atom is slowed
             v = math.sqrt(2.0 * u)
-            k1 = _along(b0 + ell * u0, b1 + ell * u1, b2 + ell * u2, u0, u1, u2, v, s0, d,
-                        zx, zz, c0, back, clip)
+            k1 = _along(
+                b0 + ell * u0,
+                b1 + ell * u1,
+                b2 + ell * u2,
+                u0,
+                u1,
+                u2,
+                v,
+                s0,
+                d,
+                zx,
+                zz,
+                c0,
+                back,
+                clip,
+            )
             em = ell - 0.5 * h
             um = max(u - 0.5 * h * eta * k1, 0.0)
-            k2 = _along(b0 + em * u0, b1 + em * u1, b2 + em * u2, u0, u1, u2,
-                        math.sqrt(2.0 * um), s0, d, zx, zz, c0, back, clip)
+            k2 = _along(
+                b0 + em * u0,
+                b1 + em * u1,
+                b2 + em * u2,
+                u0,
+                u1,
+                u2,
+                math.sqrt(2.0 * um),
+                s0,
+                d,
+                zx,
+                zz,
+                c0,
+                back,
+                clip,
+            )
             um = max(u - 0.5 * h * eta * k2, 0.0)
-            k3 = _along(b0 + em * u0, b1 + em * u1, b2 + em * u2, u0, u1, u2,
-                        math.sqrt(2.0 * um), s0, d, zx, zz, c0, back, clip)
+            k3 = _along(
+                b0 + em * u0,
+                b1 + em * u1,
+                b2 + em * u2,
+                u0,
+                u1,
+                u2,
+                math.sqrt(2.0 * um),
+                s0,
+                d,
+                zx,
+                zz,
+                c0,
+                back,
+                clip,
+            )
             ee = ell - h
             ue = max(u - h * eta * k3, 0.0)
-            k4 = _along(b0 + ee * u0, b1 + ee * u1, b2 + ee * u2, u0, u1, u2,
-                        math.sqrt(2.0 * ue), s0, d, zx, zz, c0, back, clip)
+            k4 = _along(
+                b0 + ee * u0,
+                b1 + ee * u1,
+                b2 + ee * u2,
+                u0,
+                u1,
+                u2,
+                math.sqrt(2.0 * ue),
+                s0,
+                d,
+                zx,
+                zz,
+                c0,
+                back,
+                clip,
+            )
             u = max(u - h * eta * (k1 + 2.0 * k2 + 2.0 * k3 + k4) / 6.0, u_stop)
             ell = ee
         out[j] = math.sqrt(2.0 * u)
@@ -139,7 +195,7 @@ def interpolate(table, lows, steps, coords, out):  # pragma: no cover
         for a in range(4):
             x = (coords[i, a] - lows[a]) / steps[a]
             x = min(max(x, 0.0), shape[a] - 1.0)
-            k = min(int(math.floor(x)), shape[a] - 2)
+            k = min(math.floor(x), shape[a] - 2)
             _cubic_weights(x - k, wts[a])
             base[a] = k - 1
         for q in range(n_out):

@@ -34,6 +34,11 @@ _KB = constants.k
 _MU_B = constants.physical_constants["Bohr magneton"][0]
 _U = constants.physical_constants["atomic mass constant"][0]
 _ATM = constants.atm  # Pa
+#: Half-width (K) of the blend of the solid and liquid vapor-pressure branches at the melting
+#: point.
+MELT_BLEND = 3.0
+#: Lowest temperature of Alcock's fit (K): below it the vapor pressure is extrapolated.
+ALCOCK_LOWEST = 298.0
 
 _STECK_RB87 = 'D. A. Steck, "Rubidium 87 D Line Data", rev. 2.2.1 (2019)'
 _STECK_RB85 = 'D. A. Steck, "Rubidium 85 D Line Data", rev. 2.2.1 (2019)'
@@ -120,15 +125,20 @@ class VaporPressure:
     def pressure(self, temperature: ArrayLike) -> np.ndarray:
         """Saturated vapor pressure, Pa, at ``temperature`` (K, broadcasts).
 
-        The solid branch applies below the melting point, the liquid branch at
-        and above it. Non-positive temperatures give 0 Pa.
+        The solid branch applies below ``melting_point - MELT_BLEND``, the liquid
+        branch above ``melting_point + MELT_BLEND``; in between log P is blended with
+        a smoothstep weight, so P and its slope stay continuous (within Alcock's
+        +-5 %). Non-positive temperatures give 0 Pa.
         """
         t = np.asarray(temperature, dtype=float)
-        liquid = t >= self.melting_point
-        a = np.where(liquid, self.liquid_a, self.solid_a)
-        b = np.where(liquid, self.liquid_b, self.solid_b)
+        # smoothstep weight of the liquid branch over T_m -+ MELT_BLEND: continuous with a
+        # finite slope; the two branches differ by less than Alcock's 5 % within the blend
+        x = np.clip((t - self.melting_point + MELT_BLEND) / (2 * MELT_BLEND), 0.0, 1.0)
+        weight = x * x * (3.0 - 2.0 * x)
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-            p = _ATM * 10.0 ** (a + b / t)
+            log_solid = self.solid_a + self.solid_b / t
+            log_liquid = self.liquid_a + self.liquid_b / t
+            p = _ATM * 10.0 ** (log_solid + weight * (log_liquid - log_solid))
         return np.where(t > 0, p, 0.0)
 
 
