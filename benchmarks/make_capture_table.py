@@ -32,18 +32,25 @@ def main() -> None:
         sys.stderr.write(f"\r{done}/{total} nodes, {time.perf_counter() - start:6.0f} s")
 
     table = capture.build_table(progress)
-    text = capture.encode_table(table)
+    write(table)
+    sys.stderr.write(f"\nwrote {TARGET} in {time.perf_counter() - start:.0f} s\n")
+
+
+def write(table) -> None:
+    """Store the table as the generated module."""
+    text, bounds = capture.encode_table(table)
     lines = [text[i : i + 88] for i in range(0, len(text), 88)]
     body = "\n".join(f'    "{line}"' for line in lines)
+    grid = "\n".join(f"    {axis!r}," for axis in capture.TABLE_GRID)
     TARGET.write_text(
         '"""Aligned-trap loading table of the capture model (generated; do not edit).\n\n'
         "Written by benchmarks/make_capture_table.py from trapbudget.models.capture.build_table:\n"
-        "log of the mean of (vc k / Gamma)^4 and log(m6 / m4^1.5) on TABLE_GRID, float32,\n"
-        'zlib-compressed, base64.\n"""\n\n'
-        f"GRID = {capture.TABLE_GRID!r}\n\n"
+        "m4^(1/4) and m6 / m4^1.5 (m_n the mean of (vc k / Gamma)^n) on TABLE_GRID, as\n"
+        '16-bit codes of the logarithms, zlib-compressed, base64.\n"""\n\n'
+        f"GRID = (\n{grid}\n)\n"
+        f"BOUNDS = {bounds!r}\n\n"
         f"TABLE = (\n{body}\n)\n"
     )
-    sys.stderr.write(f"\nwrote {TARGET} in {time.perf_counter() - start:.0f} s\n")
 
 
 if __name__ == "__main__":

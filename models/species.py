@@ -25,6 +25,10 @@ from numpy.typing import ArrayLike
 from scipy import constants
 
 from trapbudget.models.protocol import ModelError
+from trapbudget.models.vapor_pressure import (
+    ALCOCK_SOURCE,
+    VaporPressure,
+)
 
 __all__ = ["SPECIES", "Citations", "Species", "VaporPressure", "species", "species_table"]
 
@@ -33,12 +37,6 @@ _C = constants.c
 _KB = constants.k
 _MU_B = constants.physical_constants["Bohr magneton"][0]
 _U = constants.physical_constants["atomic mass constant"][0]
-_ATM = constants.atm  # Pa
-#: Half-width (K) of the blend of the solid and liquid vapor-pressure branches at the melting
-#: point.
-MELT_BLEND = 3.0
-#: Lowest temperature of Alcock's fit (K): below it the vapor pressure is extrapolated.
-ALCOCK_LOWEST = 298.0
 
 _STECK_RB87 = 'D. A. Steck, "Rubidium 87 D Line Data", rev. 2.2.1 (2019)'
 _STECK_RB85 = 'D. A. Steck, "Rubidium 85 D Line Data", rev. 2.2.1 (2019)'
@@ -47,7 +45,6 @@ _STECK_NA = 'D. A. Steck, "Sodium D Line Data", rev. 2.2.1 (2019)'
 _TIECKE_K = 'T. G. Tiecke, "Properties of Potassium", v1.02 (2019)'
 _GEHM_LI = 'M. E. Gehm, "Properties of 6Li" (2003), Li-7 D2 linewidth'
 _NIST_MASS = "NIST Atomic Weights and Isotopic Compositions (atomic masses)"
-_ALCOCK = "C. B. Alcock, V. P. Itkin and M. K. Horrigan, Can. Metall. Q. 23, 309 (1984), Table 2"
 _FORMULA_ISAT = "computed: I_sat = hbar w0^3 Gamma / (12 pi c^2) (Steck's convention)"
 _HF_FACTORS = (
     "relative hyperfine transition strength factors S_FF' and decay branching from 6j "
@@ -87,59 +84,6 @@ class Citations(Mapping[str, str]):
 
     def __reduce__(self):
         return (Citations, (dict(self._items),))
-
-
-@dataclass(frozen=True)
-class VaporPressure:
-    """Vapor-pressure coefficients of one element in the Alcock form.
-
-    Parameters
-    ----------
-    solid_a, solid_b : float
-        ``A`` (1) and ``B`` (K) of ``log10(P / atm) = A + B / T`` below the melting point.
-    liquid_a, liquid_b : float
-        The same above the melting point.
-    melting_point : float
-        Melting temperature, K.
-    source : str
-        Citation of the coefficients.
-
-    Notes
-    -----
-    ``log10(P / atm) = A + B / T``, quoted to about +-5 % over the range of
-    the table; 1 atm = 101 325 Pa.
-
-    References
-    ----------
-    C. B. Alcock, V. P. Itkin and M. K. Horrigan, "Vapour pressure equations for
-    the metallic elements: 298-2500 K", Can. Metall. Q. 23, 309 (1984), Table 2.
-    """
-
-    solid_a: float
-    solid_b: float
-    liquid_a: float
-    liquid_b: float
-    melting_point: float
-    source: str = _ALCOCK
-
-    def pressure(self, temperature: ArrayLike) -> np.ndarray:
-        """Saturated vapor pressure, Pa, at ``temperature`` (K, broadcasts).
-
-        The solid branch applies below ``melting_point - MELT_BLEND``, the liquid
-        branch above ``melting_point + MELT_BLEND``; in between log P is blended with
-        a smoothstep weight, so P and its slope stay continuous (within Alcock's
-        +-5 %). Non-positive temperatures give 0 Pa.
-        """
-        t = np.asarray(temperature, dtype=float)
-        # smoothstep weight of the liquid branch over T_m -+ MELT_BLEND: continuous with a
-        # finite slope; the two branches differ by less than Alcock's 5 % within the blend
-        x = np.clip((t - self.melting_point + MELT_BLEND) / (2 * MELT_BLEND), 0.0, 1.0)
-        weight = x * x * (3.0 - 2.0 * x)
-        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-            log_solid = self.solid_a + self.solid_b / t
-            log_liquid = self.liquid_a + self.liquid_b / t
-            p = _ATM * 10.0 ** (log_solid + weight * (log_liquid - log_solid))
-        return np.where(t > 0, p, 0.0)
 
 
 @dataclass(frozen=True)
@@ -340,7 +284,7 @@ def _alkali(
         "leak_branching": _HF_FACTORS,
         "leak_relative_strength": _HF_FACTORS,
         "leak_probability_floor": "none for a closed alkali D2 cycling line (common practice)",
-        "vapor": _ALCOCK,
+        "vapor": ALCOCK_SOURCE,
     }
     base.update(sources)
     return Species(
