@@ -170,8 +170,15 @@ def line_moments(
 
 
 @numba.njit(cache=True, fastmath=False, inline="always")
-def _cubic_weights(t, w):  # pragma: no cover
-    # Catmull-Rom weights for the four nodes around a point at fraction t of its interval
+def _cubic_weights(t, w, mode):  # pragma: no cover
+    # Catmull-Rom weights (mode 1) or linear ones (mode 0) for the four nodes around a point
+    # at fraction t of its interval
+    if mode == 0:
+        w[0] = 0.0
+        w[1] = 1.0 - t
+        w[2] = t
+        w[3] = 0.0
+        return
     t2 = t * t
     t3 = t2 * t
     w[0] = -0.5 * t3 + t2 - 0.5 * t
@@ -181,8 +188,10 @@ def _cubic_weights(t, w):  # pragma: no cover
 
 
 @numba.njit(cache=True, fastmath=False)
-def interpolate(table, lows, steps, coords, out):  # pragma: no cover
-    """Catmull-Rom interpolation of a 4-D table of values (last axis: quantities).
+def interpolate(table, lows, steps, coords, modes, out):  # pragma: no cover
+    """Tensor-product interpolation of a 4-D table (last axis: quantities).
+
+    ``modes[a]`` is 1 for Catmull-Rom (cubic) along axis a, 0 for linear.
 
     ``coords`` (n, 4) are table coordinates; ``lows``/``steps`` give the uniform grids.
     Coordinates beyond the grid are clamped to its edge (the caller flags them).
@@ -196,7 +205,7 @@ def interpolate(table, lows, steps, coords, out):  # pragma: no cover
             x = (coords[i, a] - lows[a]) / steps[a]
             x = min(max(x, 0.0), shape[a] - 1.0)
             k = min(math.floor(x), shape[a] - 2)
-            _cubic_weights(x - k, wts[a])
+            _cubic_weights(x - k, wts[a], modes[a])
             base[a] = k - 1
         for q in range(n_out):
             out[i, q] = 0.0
