@@ -197,6 +197,12 @@ def main() -> None:
         f"loading rate, fast model vs converged line integrals, {args.samples} traps "
         f"({seconds:.0f} s): RMS {np.sqrt(np.mean(err**2)):.2%}, max {np.max(np.abs(err)):.2%}"
     )
+    strong = np.array([_table_args(c)[0][2] <= 3.0 for c in cases])
+    print(
+        f"  of which detuning within 3 Gamma ({strong.sum()} traps): RMS "
+        f"{np.sqrt(np.mean(err[strong] ** 2)):.2%}, max {np.max(np.abs(err[strong])):.2%}; "
+        f"beyond ({(~strong).sum()}): RMS {np.sqrt(np.mean(err[~strong] ** 2)):.2%}"
+    )
 
     if args.trajectories:
         common = capture_reference.reference_lines(6, 8, 4, 6, reach=1.5)
@@ -205,6 +211,12 @@ def main() -> None:
         ratio = np.array([trajectory_rate(c, common) / line_rate(c, common) for c in picks])
         seconds = time.perf_counter() - start
         combined = (1 + err[: args.trajectories]) / ratio - 1
+        for c, r in zip(picks, ratio, strict=True):
+            (eta, s0, red, zeta), g = _table_args(c)
+            print(
+                f"  eta {eta:6.1f} s0 {s0:5.2f} -delta/Gamma {red:4.2f} zeta {zeta:5.2f} "
+                f"c/w {g['centre']:.2f} eps {g['imbalance']:.2f}: 3-D / straight {r:.3f}"
+            )
         print(
             f"3-D trajectories vs straight lines (same {len(common[2])} lines), "
             f"{args.trajectories} traps ({seconds:.0f} s): ratio mean {ratio.mean():.3f}, "
