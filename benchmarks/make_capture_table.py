@@ -41,7 +41,10 @@ def write(table) -> None:
     text, bounds = capture.encode_table(table)
     lines = [text[i : i + 88] for i in range(0, len(text), 88)]
     body = "\n".join(f'    "{line}"' for line in lines)
-    grid = "\n".join(f"    {axis!r}," for axis in capture.TABLE_GRID)
+    grid = "\n".join(
+        f'    ("{name}", {lo!r}, {hi!r}, {n}, {off!r}),'
+        for name, lo, hi, n, off in capture.TABLE_GRID
+    )
     TARGET.write_text(
         '"""Aligned-trap loading table of the capture model (generated; do not edit).\n\n'
         "Written by benchmarks/make_capture_table.py from trapbudget.models.capture.build_table:\n"
