@@ -158,9 +158,10 @@ def trajectory_rate(case, lines) -> float:
     start = capture_reference.LIGHT_RADIUS + 1.5 + g["centre"]
     low = np.zeros(len(wts))
     high = np.full(len(wts), math.sqrt(2.0 * eta * (start + 1.0)) + 1.0)
+    rest = capture_reference.equilibrium(params)
     for _ in range(12):
         mid = 0.5 * (low + high)
-        ok = capture_reference._captured(mid, dirs, imps, params, 1e-6)
+        ok = capture_reference._captured(mid, dirs, imps, params, 1e-6, rest)
         low, high = np.where(ok, mid, low), np.where(ok, high, mid)
     return _rate_from_speeds(case, np.where(low > 0, 0.5 * (low + high), 0.0), wts)
 

@@ -9,9 +9,10 @@ Setup (dimensionless as in :mod:`capture`: lengths in waists, speeds in Gamma / 
 time in k w / Gamma): an atom starts on a straight line of direction u and impact
 offset b from the field zero, ``LIGHT_RADIUS + 1.5 + |c|`` waists before it, and
 is integrated for ``T_END`` with ``scipy.integrate.solve_ivp`` (RK45). It counts as
-captured if it ends within ``TRAP_RADIUS`` of the field zero (the slowed atoms are
-then cold and held by the trap: the criterion of the model, "slowed below the stop
-speed inside the trap region", with the trap's own restoring force doing the rest).
+captured if it ends within ``TRAP_RADIUS`` of the trap's equilibrium point (the field zero,
+displaced by radiation-pressure imbalance: :func:`equilibrium`); the slowed atoms are then
+cold and held by the trap: the criterion of the model, "slowed below the stop speed inside
+the trap region", with the trap's own restoring force doing the rest.
 Its capture speed on that line is found by bisection in the entry speed, all lines
 of a sample integrated together.
 
@@ -31,7 +32,7 @@ import numpy as np
 from numpy.typing import NDArray
 from scipy.integrate import solve_ivp
 
-__all__ = ["T_END", "acceleration", "reference_lines", "reference_moments"]
+__all__ = ["T_END", "acceleration", "equilibrium", "reference_lines", "reference_moments"]
 
 LIGHT_RADIUS = 3.0
 TRAP_RADIUS = 1.0
@@ -133,10 +134,26 @@ def reference_lines(
     return np.array(dirs), np.array(imps), np.array(wts)
 
 
-def _captured(speeds, dirs, imps, params, rtol):
+def equilibrium(params: dict, rtol: float = 1e-8) -> NDArray:
+    """Where a trapped atom comes to rest: an atom released at the field zero, after T_END.
+
+    Radiation-pressure imbalance (returning beams weaker) displaces the trap's equilibrium
+    from the field zero; the capture criterion is measured from this point.
+    """
+    c = np.array([params.get("centre", 0.0), 0.0, 0.0])
+
+    def rhs(_t, y):
+        return np.concatenate([y[3:], acceleration(y[:3], y[3:], **params)])
+
+    sol = solve_ivp(rhs, (0.0, 4 * T_END), np.concatenate([c, np.zeros(3)]), rtol=rtol)
+    return sol.y[:3, -1]
+
+
+def _captured(speeds, dirs, imps, params, rtol, rest=None):
     centre = params.get("centre", 0.0)
     start = LIGHT_RADIUS + 1.5 + abs(centre)
     c = np.array([centre, 0.0, 0.0])
+    rest = c if rest is None else rest
     p0 = c + imps - start * dirs
     v0 = speeds[:, None] * dirs
     n = len(speeds)
@@ -148,7 +165,7 @@ def _captured(speeds, dirs, imps, params, rtol):
     y0 = np.concatenate([p0, v0]).ravel()
     sol = solve_ivp(rhs, (0.0, T_END), y0, method="RK45", rtol=rtol, atol=1e-8 * start)
     end = sol.y[:, -1].reshape(2, n, 3)
-    return np.linalg.norm(end[0] - c, axis=1) < TRAP_RADIUS
+    return np.linalg.norm(end[0] - rest, axis=1) < TRAP_RADIUS
 
 
 def reference_moments(
@@ -185,11 +202,12 @@ def reference_moments(
     }
     dirs, imps, wts = reference_lines() if lines is None else lines
     start = LIGHT_RADIUS + 1.5 + abs(centre)
+    rest = equilibrium(params)
     low = np.zeros(len(wts))
     high = np.full(len(wts), math.sqrt(2.0 * eta * (start + 1.0)) + 1.0)
     for _ in range(n_bisect):
         mid = 0.5 * (low + high)
-        ok = _captured(mid, dirs, imps, params, rtol)
+        ok = _captured(mid, dirs, imps, params, rtol, rest)
         low = np.where(ok, mid, low)
         high = np.where(ok, high, mid)
     vc = 0.5 * (low + high)
