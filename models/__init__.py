@@ -1,9 +1,9 @@
 """Physics of laser-cooled atom sources: pure, vectorized NumPy functions in SI.
 
 The composed model is :class:`VaporCellMOT`; the kernel modules (``species``,
-``light``, ``field``, ``vapor``, ``capture``, ``cooling``, ``mot``,
-``observables``) hold the published formulas it is built from, each usable on
-its own.
+``light``, ``field``, ``vapor``, ``capture``, ``cooling``, ``mot``, ``cloud``,
+``observables``; the slow 3-D reference in ``capture_reference``) hold the published
+formulas it is built from, each usable on its own.
 
 Names are imported on first use (PEP 562): reading a model's input list or the
 species table does not compile the capture kernels.
@@ -20,7 +20,7 @@ _LOCATIONS: dict[str, str] = {
     "OutputSpec": "trapbudget.models.protocol",
     "SPECIES": "trapbudget.models.species",
     "Species": "trapbudget.models.species",
-    "VaporPressure": "trapbudget.models.species",
+    "VaporPressure": "trapbudget.models.vapor_pressure",
     "Validity": "trapbudget.models.trap",
     "VaporCellMOT": "trapbudget.models.trap",
 }
@@ -28,7 +28,16 @@ _LOCATIONS: dict[str, str] = {
 # the module itself has been imported by catalog) and stays bound.
 from trapbudget.models.catalog import species, species_table  # noqa: E402
 
-_SUBMODULES = ("capture", "cooling", "field", "light", "mot", "observables", "vapor")
+_SUBMODULES = (
+    "capture",
+    "cloud",
+    "cooling",
+    "field",
+    "light",
+    "mot",
+    "observables",
+    "vapor",
+)
 
 __all__ = [
     "SPECIES",
@@ -40,6 +49,7 @@ __all__ = [
     "VaporCellMOT",
     "VaporPressure",
     "capture",
+    "cloud",
     "cooling",
     "field",
     "light",
@@ -67,7 +77,8 @@ def __dir__() -> list[str]:
 
 
 if TYPE_CHECKING:  # the same names, eagerly, for type checkers and IDEs
-    from trapbudget.models import capture, cooling, field, light, mot, observables, vapor
+    from trapbudget.models import capture, cloud, cooling, field, light, mot, observables, vapor
     from trapbudget.models.protocol import InputSpec, ModelError, OutputSpec
-    from trapbudget.models.species import SPECIES, Species, VaporPressure
+    from trapbudget.models.species import SPECIES, Species
     from trapbudget.models.trap import Validity, VaporCellMOT
+    from trapbudget.models.vapor_pressure import VaporPressure

@@ -12,8 +12,11 @@ from numpy.typing import ArrayLike
 from scipy import constants
 
 __all__ = [
+    "SUB_DOPPLER_COEFFICIENT",
+    "SUB_DOPPLER_MINIMUM_RECOILS",
     "damping_coefficient",
     "doppler_temperature",
+    "shared_damping_coefficient",
     "spring_constant",
     "sub_doppler_temperature",
     "temperature",
@@ -21,6 +24,16 @@ __all__ = [
 
 _HBAR = constants.hbar
 _KB = constants.k
+
+#: Default of the calibratable sub-Doppler coefficient C in k_B T = k_B T_min + C hbar Omega^2 /
+#: |delta| (Omega^2 = Gamma^2 s_tot / 2 of all six beams). Lett et al., PRL 61, 169 (1988):
+#: Na molasses at 43 +- 20 uK with s_tot ~ 1 and delta ~ -3 Gamma (settings from memory) gives
+#: C = 0.3-0.8; Rb and Cs MOTs at 100-300 uK with s0 ~ 1-2 per beam at -2 Gamma (Townsend et al.,
+#: PRA 52, 1423 (1995), from memory) give C = 0.15-0.35. 0.3 sits in both ranges.
+SUB_DOPPLER_COEFFICIENT = 0.3
+#: T_min of the sub-Doppler law in recoil temperatures (common practice: polarization-gradient
+#: cooling bottoms out at a few recoil temperatures).
+SUB_DOPPLER_MINIMUM_RECOILS = 4.0
 
 
 def _as_float(*values: ArrayLike) -> list[np.ndarray]:
@@ -149,24 +162,71 @@ def doppler_temperature(
     return np.where(det < 0, t, np.inf)
 
 
+def shared_damping_coefficient(
+    pair_saturation: ArrayLike,
+    total_saturation: ArrayLike,
+    detuning: ArrayLike,
+    linewidth: ArrayLike,
+    wavenumber: ArrayLike,
+) -> np.ndarray:
+    """Damping coefficient of one beam pair when all beams share the atom's saturation, kg/s.
+
+    Parameters
+    ----------
+    pair_saturation : array_like
+        Saturation s of each beam of the pair at the atom.
+    total_saturation : array_like
+        Sum S of the saturations of all beams at the atom.
+    detuning : array_like, Hz (cyclic; red < 0)
+    linewidth : array_like, 1/s
+    wavenumber : array_like, 1/m
+
+    Returns
+    -------
+    numpy.ndarray, kg/s
+
+    Notes
+    -----
+    Slope at v = 0 of the rate-equation force ``hbar k (Gamma/2) s (L+ - L-) /
+    (1 + sum_j s_j L_j)`` (the denominator is even in v to first order):
+    ``beta = -8 hbar k^2 delta s / (Gamma (1 + x^2) (1 + x^2 + S))``, ``x = 2 delta /
+    Gamma``. For one pair with S = 2 s it differs from :func:`damping_coefficient`
+    (each beam saturating alone) only in the denominator.
+
+    References
+    ----------
+    H. J. Metcalf and P. van der Straten, "Laser Cooling and Trapping" (Springer,
+    1999), ch. 7.
+    """
+    s, big, det, gamma, k = _as_float(
+        pair_saturation, total_saturation, detuning, linewidth, wavenumber
+    )
+    delta = 2.0 * np.pi * det
+    x2 = (2.0 * delta / gamma) ** 2
+    return -8.0 * _HBAR * k**2 * delta * s / (gamma * (1.0 + x2) * (1.0 + x2 + big))
+
+
 def sub_doppler_temperature(
     coefficient: ArrayLike,
     total_saturation: ArrayLike,
     detuning: ArrayLike,
     linewidth: ArrayLike,
+    *,
+    minimum: ArrayLike = 0.0,
 ) -> np.ndarray:
-    """Polarization-gradient (sub-Doppler) temperature, K.
+    """Sub-Doppler (polarization-gradient) temperature ``T_min + C hbar Omega^2 / (k_B |delta|)``.
 
     Parameters
     ----------
     coefficient : array_like
-        Dimensionless prefactor C (calibratable; of order 0.1 to 1 in
-        alkali molasses).
+        Dimensionless prefactor C (calibratable; default :data:`SUB_DOPPLER_COEFFICIENT`).
     total_saturation : array_like
         Saturation parameter of all cooling beams together, s_tot.
     detuning : array_like, Hz
         Laser detuning (cyclic; red < 0).
     linewidth : array_like, 1/s
+    minimum : array_like, K
+        T_min, a few recoil temperatures.
 
     Returns
     -------
@@ -175,23 +235,21 @@ def sub_doppler_temperature(
 
     Notes
     -----
-    ``k_B T = C hbar Omega^2 / (4 |delta|)`` with the Rabi frequency of the
-    total light ``Omega^2 = Gamma^2 s_tot / 2`` (from ``s = 2 Omega^2 / Gamma^2``)
-    and ``delta = 2 pi detuning``: the light-shift scaling ``T ~ I / |delta|``
-    valid for ``|delta| >> Gamma``. The prefactor is not universal (it depends
-    on the level structure and polarization configuration), hence a
-    calibratable constant. The recoil limit is applied by :func:`temperature`.
+    ``Omega^2 = Gamma^2 s_tot / 2`` (from ``s = 2 Omega^2 / Gamma^2``), ``delta = 2 pi
+    detuning``: the light-shift scaling ``T ~ I / |delta|``. The prefactor depends on
+    the level structure and polarization configuration, hence calibratable.
 
     References
     ----------
     J. Dalibard and C. Cohen-Tannoudji, J. Opt. Soc. Am. B 6, 2023 (1989);
-    P. D. Lett et al., J. Opt. Soc. Am. B 6, 2084 (1989).
+    P. D. Lett et al., J. Opt. Soc. Am. B 6, 2084 (1989); C. G. Townsend et al.,
+    Phys. Rev. A 52, 1423 (1995).
     """
-    c, s, det, gamma = _as_float(coefficient, total_saturation, detuning, linewidth)
+    c, s, det, gamma, t0 = _as_float(coefficient, total_saturation, detuning, linewidth, minimum)
     delta = 2.0 * np.pi * np.abs(det)
     omega2 = gamma**2 * s / 2.0
     with np.errstate(divide="ignore", invalid="ignore"):
-        t = c * _HBAR * omega2 / (4.0 * delta * _KB)
+        t = t0 + c * _HBAR * omega2 / (delta * _KB)
     return np.where(det < 0, t, np.inf)
 
 
@@ -202,8 +260,9 @@ def temperature(
     *,
     sub_doppler_coefficient: ArrayLike | None = None,
     recoil_temperature: ArrayLike,
+    minimum_recoils: float = SUB_DOPPLER_MINIMUM_RECOILS,
 ) -> np.ndarray:
-    """Temperature of the cloud: Doppler, or sub-Doppler when lower, floored at the recoil limit.
+    """Temperature of the cloud: sub-Doppler law capped by Doppler theory, or Doppler alone.
 
     Parameters
     ----------
@@ -213,10 +272,11 @@ def temperature(
         Laser detuning (cyclic; red < 0).
     linewidth : array_like, 1/s
     sub_doppler_coefficient : array_like or None
-        Prefactor of :func:`sub_doppler_temperature`; ``None`` (default) means
-        Doppler theory only.
+        C of :func:`sub_doppler_temperature`; ``None`` means Doppler theory only.
     recoil_temperature : array_like, K
-        Floor (``Species.recoil_temperature``).
+        ``Species.recoil_temperature``.
+    minimum_recoils : float
+        T_min in recoil temperatures (sub-Doppler only).
 
     Returns
     -------
@@ -225,12 +285,9 @@ def temperature(
 
     Notes
     -----
-    ``T = max(T_r, min(T_Doppler, T_sub))`` with a coefficient, else
-    ``max(T_r, T_Doppler)``. The form is continuous in the coefficient (a
-    coefficient of 0 gives the recoil floor, not the Doppler value), so a fit
-    of the coefficient never meets a jump. In a MOT
-    the field gradient and multiple scattering raise the temperature above
-    molasses values; this function does not model that.
+    With a coefficient: ``T = min(T_min + C hbar Omega^2 / (k_B |delta|), T_Doppler)``,
+    ``T_min = minimum_recoils x T_r``; it falls with |delta| and rises with intensity,
+    continuous in C. Without: ``max(T_Doppler, T_r)``.
 
     References
     ----------
@@ -238,8 +295,16 @@ def temperature(
     C. Cohen-Tannoudji, J. Opt. Soc. Am. B 6, 2023 (1989).
     """
     t = doppler_temperature(total_saturation, detuning, linewidth)
-    if sub_doppler_coefficient is not None:
-        coeff = np.asarray(sub_doppler_coefficient, dtype=float)
-        t = np.minimum(t, sub_doppler_temperature(coeff, total_saturation, detuning, linewidth))
-    t = np.maximum(t, np.asarray(recoil_temperature, dtype=float))
+    tr = np.asarray(recoil_temperature, dtype=float)
+    if sub_doppler_coefficient is None:
+        t = np.maximum(t, tr)
+    else:
+        sub = sub_doppler_temperature(
+            sub_doppler_coefficient,
+            total_saturation,
+            detuning,
+            linewidth,
+            minimum=minimum_recoils * tr,
+        )
+        t = np.minimum(t, sub)
     return np.where(np.asarray(detuning, dtype=float) < 0, t, np.inf)

@@ -8,7 +8,8 @@ value in ``Species.sources``.
 
 All values are SI: wavelength in m (vacuum), linewidth as the decay rate
 Gamma = 1/tau in 1/s, saturation intensity in W/m^2, mass in kg, hyperfine
-splittings in Hz (cyclic)."""
+splittings in Hz (cyclic).
+"""
 
 from __future__ import annotations
 
@@ -22,6 +23,11 @@ import numpy as np
 from numpy.typing import ArrayLike
 from scipy import constants
 
+from trapbudget.models.vapor_pressure import (
+    ALCOCK_SOURCE,
+    VaporPressure,
+)
+
 __all__ = ["SPECIES", "Citations", "Species", "VaporPressure"]
 
 _HBAR = constants.hbar
@@ -29,7 +35,6 @@ _C = constants.c
 _KB = constants.k
 _MU_B = constants.physical_constants["Bohr magneton"][0]
 _U = constants.physical_constants["atomic mass constant"][0]
-_ATM = constants.atm  # Pa
 
 _STECK_RB87 = 'D. A. Steck, "Rubidium 87 D Line Data", rev. 2.2.1 (2019)'
 _STECK_RB85 = 'D. A. Steck, "Rubidium 85 D Line Data", rev. 2.2.1 (2019)'
@@ -38,7 +43,6 @@ _STECK_NA = 'D. A. Steck, "Sodium D Line Data", rev. 2.2.1 (2019)'
 _TIECKE_K = 'T. G. Tiecke, "Properties of Potassium", v1.02 (2019)'
 _GEHM_LI = 'M. E. Gehm, "Properties of 6Li" (2003), Li-7 D2 linewidth'
 _NIST_MASS = "NIST Atomic Weights and Isotopic Compositions (atomic masses)"
-_ALCOCK = "C. B. Alcock, V. P. Itkin and M. K. Horrigan, Can. Metall. Q. 23, 309 (1984), Table 2"
 _FORMULA_ISAT = "computed: I_sat = hbar w0^3 Gamma / (12 pi c^2) (Steck's convention)"
 _HF_FACTORS = (
     "relative hyperfine transition strength factors S_FF' and decay branching from 6j "
@@ -78,54 +82,6 @@ class Citations(Mapping[str, str]):
 
     def __reduce__(self):
         return (Citations, (dict(self._items),))
-
-
-@dataclass(frozen=True)
-class VaporPressure:
-    """Vapor-pressure coefficients of one element in the Alcock form.
-
-    Parameters
-    ----------
-    solid_a, solid_b : float
-        ``A`` (1) and ``B`` (K) of ``log10(P / atm) = A + B / T`` below the melting point.
-    liquid_a, liquid_b : float
-        The same above the melting point.
-    melting_point : float
-        Melting temperature, K.
-    source : str
-        Citation of the coefficients.
-
-    Notes
-    -----
-    ``log10(P / atm) = A + B / T``, quoted to about +-5 % over the range of
-    the table; 1 atm = 101 325 Pa.
-
-    References
-    ----------
-    C. B. Alcock, V. P. Itkin and M. K. Horrigan, "Vapour pressure equations for
-    the metallic elements: 298-2500 K", Can. Metall. Q. 23, 309 (1984), Table 2.
-    """
-
-    solid_a: float
-    solid_b: float
-    liquid_a: float
-    liquid_b: float
-    melting_point: float
-    source: str = _ALCOCK
-
-    def pressure(self, temperature: ArrayLike) -> np.ndarray:
-        """Saturated vapor pressure, Pa, at ``temperature`` (K, broadcasts).
-
-        The solid branch applies below the melting point, the liquid branch at
-        and above it. Non-positive temperatures give 0 Pa.
-        """
-        t = np.asarray(temperature, dtype=float)
-        liquid = t >= self.melting_point
-        a = np.where(liquid, self.liquid_a, self.solid_a)
-        b = np.where(liquid, self.liquid_b, self.solid_b)
-        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-            p = _ATM * 10.0 ** (a + b / t)
-        return np.where(t > 0, p, 0.0)
 
 
 @dataclass(frozen=True)
@@ -326,7 +282,7 @@ def _alkali(
         "leak_branching": _HF_FACTORS,
         "leak_relative_strength": _HF_FACTORS,
         "leak_probability_floor": "none for a closed alkali D2 cycling line (common practice)",
-        "vapor": _ALCOCK,
+        "vapor": ALCOCK_SOURCE,
     }
     base.update(sources)
     return Species(

@@ -3,15 +3,17 @@
 ``VaporCellMOT`` follows the model protocol (``inputs``, ``outputs``,
 ``evaluate``). It wires the kernels of the sibling modules together:
 
-1. light at the trap centre (``light``) -> saturation, scattering rate,
-   bright fraction with the repumper (``mot``);
-2. capture velocity from the full force along a radial path through the trap
-   (``capture``), with the radial gradient (the weaker one);
-3. vapor density and speed (``vapor``) -> loading rate (``mot``);
-4. Doppler / sub-Doppler temperature, damping and spring constant (``cooling``)
-   -> temperature-limited cloud radius;
-5. one-body losses plus light-assisted two-body loss -> closed-form steady state,
-   loading time, peak density and cloud radius (``mot``);
+1. vapor density and its Beer-Lambert attenuation of the beams (``vapor``, ``light``);
+2. light of the six beams at the trap centre (the field zero, moved by the stray field
+   and the pointing offset) -> one shared saturation for the scattering rate, the
+   bright fraction with the repumper (``mot``), the temperature and the force;
+3. loading over the real geometry: every direction and impact parameter (``capture``);
+4. sub-Doppler (default) or Doppler temperature, damping and spring constants per
+   axis (``cooling``) -> temperature-limited cloud, and the fraction of it the light
+   holds;
+5. density limit from the spring constant over the intensity, one-body and
+   light-assisted two-body loss with the mean density of the cloud's own profile
+   -> steady state and loading time (``cloud``);
 6. fluorescence on a detector.
 
 Outside its region of validity the model returns the honest limit and sets
@@ -27,11 +29,15 @@ from typing import Literal
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
+from scipy import special
 
-from trapbudget.models import capture, cooling, field, light, mot, vapor
+from trapbudget.models import capture, cloud, cooling, field, light, mot, vapor
 from trapbudget.models.catalog import species as lookup_species
 from trapbudget.models.protocol import InputSpec, ModelError, OutputSpec, values_in_si
 from trapbudget.models.species import Species
+from trapbudget.models.trap_specs import OUTPUTS as _OUTPUTS
+from trapbudget.models.trap_specs import inputs as _inputs
+from trapbudget.models.vapor_pressure import ALCOCK_LOWEST
 
 __all__ = ["Validity", "VaporCellMOT"]
 
@@ -58,6 +64,8 @@ class Validity(enum.IntFlag):
     NO_REPUMP = enum.auto()
     NO_LOSS = enum.auto()
     OUTSIDE_RANGE = enum.auto()
+    EXTRAPOLATING = enum.auto()
+    OPTICALLY_THICK = enum.auto()
 
 
 _FLAG_DOCS = {
@@ -65,12 +73,23 @@ _FLAG_DOCS = {
     "NO_POWER": "No cooling light (beam power or saturation is zero): no atoms.",
     "BLUE_DETUNING": "Detuning >= 0 (or within 1e-6 Gamma of 0): no cooling, no atoms, T = inf.",
     "NO_GRADIENT": "Zero gradient: a molasses slows atoms but does not trap them; no atoms.",
-    "NO_CAPTURE": "The force stops no atom inside the light (capture velocity 0): no atoms.",
+    "NO_CAPTURE": "No atom is slowed inside the trap region (no loading): no atoms.",
     "NO_VAPOR": "Zero vapor density: nothing to load; no atoms.",
-    "CENTRE_IN_DARK": "The field zero lies outside the light (large offset or bias): no atoms.",
+    "CENTRE_IN_DARK": (
+        "The field zero sits where the weakest beam pair has less than 1e-3 of its peak light "
+        "(large offset or stray field): no atoms (reached smoothly)."
+    ),
     "NO_REPUMP": "The cycling line leaks and there is no repump light: atoms go dark; no atoms.",
     "NO_LOSS": "No loss process at all: the atom number grows without bound (inf).",
     "OUTSIDE_RANGE": "An input lies outside its valid range (the result is extrapolated).",
+    "EXTRAPOLATING": (
+        "Inside the declared ranges but outside a fitted one (vapor pressure below Alcock's "
+        "298 K, or the capture table): outputs computed, less certain."
+    ),
+    "OPTICALLY_THICK": (
+        "The vapor absorbs the beams (optical depth above 1 across the cell at the MOT "
+        "detuning): attenuation included, outputs computed."
+    ),
 }
 for _name, _doc in _FLAG_DOCS.items():
     Validity[_name].__doc__ = _doc
@@ -86,177 +105,60 @@ _NO_TRAP = (
 )
 
 
-def _inputs(
-    sp: Species, gradient_source: str, vapor_source: str, cooling_model: str
-) -> dict[str, InputSpec]:
-    # default detuning -2 Gamma (2 significant digits): -12 MHz for Rb
-    detuning = float(f"{-2.0 * sp.linewidth_hz:.2g}")
-    specs = [
-        InputSpec("beam_power", "W", 3e-3, 0.0, 0.5, "power of each incoming beam at the cell"),
-        InputSpec("beam_waist", "m", 5e-3, 2e-4, 0.05, "1/e^2 intensity radius of each beam"),
-        InputSpec(
-            "aperture_radius", "m", 12.7e-3, 2e-4, 0.1, "clear radius of the limiting optic"
-        ),
-        InputSpec(
-            "beam_offset",
-            "m",
-            0.0,
-            -0.02,
-            0.02,
-            "pointing offset of the beam axes from the trap centre",
-        ),
-        InputSpec(
-            "beam_imbalance", "", 0.05, 0.0, 0.9, "fractional intensity lost on the returning pass"
-        ),
-        InputSpec(
-            "detuning",
-            "Hz",
-            detuning,
-            -200e6,
-            50e6,
-            "cooling-light detuning from the cycling line",
-        ),
-    ]
-    if gradient_source == "direct":
-        specs.append(
-            InputSpec("gradient", "T/m", 0.10, 0.0, 1.0, "axial quadrupole field gradient")
-        )
-    else:
-        specs += [
-            InputSpec("coil_current", "A", 2.32, 0.0, 100.0, "current in each MOT coil"),
-            InputSpec("coil_turns", "", 100.0, 1.0, 1e4, "turns per coil"),
-            InputSpec("coil_radius", "m", 0.05, 1e-3, 1.0, "coil radius"),
-            InputSpec("coil_separation", "m", 0.05, 1e-3, 2.0, "distance between the two coils"),
-        ]
-    specs += [
-        InputSpec(
-            "bias_field", "T", 0.0, -1e-3, 1e-3, "stray uniform field (moves the trap centre)"
-        ),
-        InputSpec("repump_power", "W", 1e-3, 0.0, 0.5, "repumper power at the cell (total)"),
-        InputSpec(
-            "cell_temperature", "K", 295.15, 250.0, 450.0, "cell wall and vapor temperature"
-        ),
-    ]
-    if vapor_source == "fraction":
-        specs.append(
-            InputSpec("vapor_fraction", "", 0.1, 0.0, 1.0, "vapor density over saturated density")
-        )
-    else:
-        specs.append(
-            InputSpec("vapor_density", "1/m**3", 1e15, 0.0, 1e20, "vapor density of the species")
-        )
-    specs += [
-        InputSpec(
-            "background_pressure",
-            "Pa",
-            1e-7,
-            0.0,
-            1e-2,
-            "pressure of the non-alkali background gas",
-        ),
-        InputSpec(
-            "loading_prefactor",
-            "",
-            1.0,
-            0.0,
-            100.0,
-            "multiplies the kinetic-theory loading rate",
-            constant=True,
-        ),
-        InputSpec(
-            "vapor_loss_coefficient",
-            "m**3/s",
-            3e-15,
-            0.0,
-            1e-12,
-            "<sigma v> for collisions with the hot vapor",
-            constant=True,
-        ),
-        InputSpec(
-            "background_loss_coefficient",
-            "1/(Pa*s)",
-            float(vapor.ARPORNTHIP_COEFFICIENT),
-            0.0,
-            1e8,
-            "loss rate per background pressure",
-            constant=True,
-        ),
-        InputSpec(
-            "two_body_coefficient",
-            "m**3/s",
-            1e-17,
-            0.0,
-            1e-13,
-            "light-assisted two-body loss coefficient beta",
-            constant=True,
-        ),
-        InputSpec(
-            "saturation_scale",
-            "",
-            1.0,
-            0.1,
-            10.0,
-            "effective over cycling saturation intensity",
-            constant=True,
-        ),
-        InputSpec(
-            "density_limit",
-            "1/m**3",
-            1e17,
-            1e13,
-            1e21,
-            "reradiation-limited peak density",
-            constant=True,
-        ),
-        InputSpec(
-            "detector_solid_angle",
-            "sr",
-            0.02,
-            0.0,
-            4 * math.pi,
-            "collection solid angle",
-            constant=True,
-        ),
-        InputSpec(
-            "detector_efficiency",
-            "",
-            0.5,
-            0.0,
-            1.0,
-            "optics transmission x quantum efficiency",
-            constant=True,
-        ),
-    ]
-    if cooling_model == "sub-doppler":
-        specs.append(
-            InputSpec(
-                "sub_doppler_coefficient",
-                "",
-                0.3,
-                0.0,
-                1e3,
-                "sub-Doppler temperature coefficient (order one; calibrate it)",
-                constant=True,
-            )
-        )
-    return {s.name: s for s in specs}
+#: Reference trap of the density limit: s0 = 2 per beam, delta = -2 Gamma, 10 G/cm, balanced.
+_REFERENCE_TRAP = (2.0, -2.0, 0.1)
+
+ASSUMPTIONS: tuple[str, ...] = (
+    "Three retro-reflected Gaussian beam pairs of equal waist cross at right angles; the "
+    "returning beams are weaker by the imbalance and the optically thick vapor attenuates "
+    "both (Beer-Lambert with the Doppler-broadened cross-section at the MOT detuning).",
+    "The atom is a two-level system on the cycling line in the rate-equation form: each beam "
+    "scatters (Gamma/2) s_i L_i / (1 + sum_j s_j L_j) with its own Doppler and Zeeman "
+    "detuning, so the excited population never exceeds 1/2; force, scattering rate, "
+    "temperature and bright fraction share this one saturation.",
+    "The loading rate counts vapor atoms from every direction and impact parameter that are "
+    "slowed below Gamma/(4k) inside one waist of the field zero, each along a straight line "
+    "through the light counted within three waists of the beam crossing; it is tabulated once "
+    "for the aligned trap and corrected smoothly for imbalance, clipping and a displaced "
+    "trap centre.",
+    "The loading-rate prefactor is a calibratable constant, so absolute atom numbers are only "
+    "as good as its calibration; the shapes against power, detuning, gradient and beam size "
+    "come from the physics.",
+    "Temperature follows the sub-Doppler law T = T_min + C hbar Omega^2/(k_B |delta|) with a "
+    "calibratable C, capped by Doppler theory (or Doppler theory alone on request).",
+    "The cloud is a thermal Gaussian up to the density limit, which scales as the spring "
+    "constant over the intensity (reradiation, Walker, Sesko & Wieman 1990); above it a "
+    "flat-topped core grows, and light-assisted two-body loss uses the mean density of that "
+    "profile.",
+    "Losses: hot alkali and background-gas collisions and light-assisted two-body loss; the "
+    "steady state and loading time solve the rate equation.",
+    "Repumping sets a bright fraction from repump and leak rates; fluorescence is isotropic "
+    "into the detector's solid angle.",
+    "A trap whose centre sits in weak light, without light, or with blue detuning holds "
+    "no atoms, reached smoothly; inputs outside a fitted range are flagged as extrapolated "
+    "but still computed.",
+)
 
 
-_OUTPUTS = [
-    OutputSpec("atom_number", "", "steady-state number of trapped atoms"),
-    OutputSpec("loading_time", "s", "time from empty to 1 - 1/e of the steady state"),
-    OutputSpec("temperature", "K", "cloud temperature (inf: no cooling)"),
-    OutputSpec("capture_velocity", "m/s", "largest entry speed that is still captured"),
-    OutputSpec("loading_rate", "1/s", "atoms captured per second from the vapor"),
-    OutputSpec("cloud_radius", "m", "rms radius of the cloud (geometric mean of the axes)"),
-    OutputSpec("peak_density", "1/m**3", "peak density of the cloud"),
-    OutputSpec("scattering_rate", "1/s", "photons scattered per second by a bright atom"),
-    OutputSpec("fluorescence", "1/s", "photons per second reaching the detector"),
-    OutputSpec("loss_rate", "1/s", "per-atom loss rate at steady state (one- and two-body)"),
-    OutputSpec("saturation_parameter", "", "I/I_sat of one incoming beam at the cloud"),
-    OutputSpec("bright_fraction", "", "fraction of atoms in the cycling states"),
-    OutputSpec("validity", "", "bit mask of Validity flags (0 = valid)"),
-]
+def _vapor_strength(sp: Species) -> float:
+    """Absorption of an unpolarized thermal vapor relative to the cycling transition.
+
+    Fraction of the atoms in the upper ground hyperfine level F = I + 1/2,
+    ``(2F + 1) / (2 (2I + 1))``, times the isotropic-light strength of F -> F' = F + 1,
+    ``(2F' + 1) / (3 (2F + 1))`` (Steck, D Line Data: 7/15 and 5/8 for Rb-87). 1 for a
+    line without hyperfine structure.
+    """
+    f, fp = abs(sp.m_lower), abs(sp.m_upper)
+    population = (2 * f + 1) / (4 * f) if f >= 0.5 else 1.0
+    return population * (2 * fp + 1) / (3 * (2 * f + 1))
+
+
+class _Strengths(dict):
+    def __missing__(self, key):
+        return _vapor_strength(lookup_species(key))
+
+
+_VAPOR_STRENGTH = _Strengths()
 
 
 class VaporCellMOT:
@@ -272,43 +174,47 @@ class VaporCellMOT:
     vapor_source : {"fraction", "density"}
         ``"fraction"``: ``vapor_fraction`` of the saturated density at the cell
         temperature (needs vapor-pressure data); ``"density"``: ``vapor_density``.
-    cooling : {"doppler", "sub-doppler"}
-        ``"doppler"`` (default): Doppler theory alone (Lett et al. 1989), floored
-        at the recoil temperature. ``"sub-doppler"``: adds the input
-        ``sub_doppler_coefficient`` (a calibratable constant) and takes the lower
-        of the Doppler and sub-Doppler temperatures (Dalibard & Cohen-Tannoudji
-        1989), continuous in the coefficient.
+    cooling : {"sub-doppler", "doppler"}
+        ``"sub-doppler"`` (default): ``T = T_min + C hbar Omega^2 / (k_B |delta|)``
+        capped by Doppler theory, C the calibratable ``sub_doppler_coefficient``
+        (:data:`trapbudget.models.cooling.SUB_DOPPLER_COEFFICIENT`), T_min four recoil
+        temperatures. ``"doppler"``: Doppler theory alone (Lett et al. 1989).
 
     Notes
     -----
-    Model choices (see the module docstrings of the kernels for formulas):
+    The physics and its limits are listed, one sentence each, in :attr:`assumptions`.
+    Geometry: the stray field ``bias_field`` lies along a radial axis x and moves the
+    field zero to ``-B / (A/2)``; the beam axes are offset from the trap by
+    ``beam_offset`` along the same axis. The field zero therefore sits on the x beams'
+    axis and at distance ``c = |x0 - offset|`` from the y and z beam axes.
+    Holding: the loading rate counts only atoms the trap keeps, the fraction
+    ``prod_a erf(w / (sqrt(2) sigma_a))`` of the thermal cloud (rms ``sigma_a =
+    sqrt(k_B T / kappa_a)`` per axis) inside the light, times a smoothstep in
+    ``log10`` of the weakest pair's light at the field zero that is 1 above 0.1 of its
+    peak and exactly 0 below 1e-3 (flag ``CENTRE_IN_DARK``): a trap drifting into the
+    dark, losing its light or its red detuning empties smoothly.
+    Beer-Lambert: optical depth ``n sigma_D L`` with the Doppler-broadened cross-section
+    ``sigma_D = f_v (3 lambda^2 / 2 pi) (sqrt(pi) Gamma / (2 k v_p)) exp(-(delta / k v_p)^2)``
+    (Foot 2005, ch. 7), ``f_v`` the unpolarized vapor's strength relative to the cycling
+    line (0.29 for Rb-87, from Steck's factors); the incoming beams reach the trap through
+    half the cell, the returning ones through one and a half cells.
+    Defaults: vapor-loss coefficient 3e-15 m^3/s (sigma of order 1e-13 cm^2 times
+    300 m/s; from memory, the order Monroe et al. 1990 quote); two-body coefficient
+    1e-17 m^3/s (1e-11 cm^3/s, from memory); density limit 1e17 m^-3 at the reference
+    trap (Walker, Sesko & Wieman 1990: about 1e11 cm^-3).
 
-    * beams: Gaussian, ``beam_waist`` the 1/e^2 intensity radius, all six of
-      equal waist; the returning beam weaker by ``beam_imbalance``;
-    * saturation at the cloud: s = I / (saturation_scale x I_sat) of the
-      incoming beam at the field zero, which the offset and the bias field
-      (along a radial axis, ``x0 = -B / A_radial``) move off the beam axis;
-      total saturation of all six beams 3 s (2 - imbalance);
-    * capture: :func:`trapbudget.models.capture.capture_velocity` along a
-      radial beam axis with the radial gradient (half the axial), for atoms
-      entering from either end (slowed by the returning or by the incoming
-      beam); the loading rate is the mean of the two directions' rates and
-      ``capture_velocity`` the mean of the two speeds; capture area the sphere
-      of the capture radius, 4 pi R^2;
-    * repumper: its total power in one Gaussian of the cooling-beam waist,
-      resonant, with the cycling I_sat (approximation);
-    * cloud: spring constants kappa_z (axial gradient) and kappa_r = kappa_z/2;
-      the rms radius is that of the geometric mean (kappa_z kappa_r^2)^(1/3),
-      which gives the peak density of the anisotropic Gaussian exactly.
-    * default vapor-loss coefficient 3e-15 m^3/s: sigma of order 1e-13 cm^2
-      times a thermal speed of 300 m/s (from memory; Monroe et al. 1990 quote
-      cross-sections of this order); a calibratable constant.
-    * default two-body coefficient 1e-17 m^3/s (1e-11 cm^3/s, from memory;
-      the upper end of published Rb values), density limit 1e17 m^-3
-      (Walker, Sesko & Wieman 1990).
+    References
+    ----------
+    C. Monroe, W. Swann, H. Robinson and C. Wieman, Phys. Rev. Lett. 65, 1571 (1990);
+    T. Walker, D. Sesko and C. Wieman, Phys. Rev. Lett. 64, 408 (1990); H. J. Metcalf
+    and P. van der Straten, "Laser Cooling and Trapping" (Springer, 1999).
     """
 
     validity_flags = Validity
+    #: Flags that qualify a result without invalidating it (outputs computed as usual):
+    #: counted and reported, but no cause for a validity warning.
+    advisory_flags = Validity.EXTRAPOLATING
+    assumptions: tuple[str, ...] = ASSUMPTIONS
 
     #: The physics assumptions and limits of the model, one plain sentence each
     #: (the reports print them beside every result).
@@ -337,7 +243,7 @@ class VaporCellMOT:
         *,
         gradient_source: Literal["direct", "coils"] = "direct",
         vapor_source: Literal["fraction", "density"] = "fraction",
-        cooling: Literal["doppler", "sub-doppler"] = "doppler",
+        cooling: Literal["doppler", "sub-doppler"] = "sub-doppler",
     ) -> None:
         if gradient_source not in ("direct", "coils"):
             raise ModelError(
@@ -366,6 +272,17 @@ class VaporCellMOT:
             self.species, gradient_source, vapor_source, cooling
         )
         self.outputs: Mapping[str, OutputSpec] = {o.name: o for o in _OUTPUTS}
+        s_ref, det_ref, grad_ref = _REFERENCE_TRAP
+        sp = self.species
+        ref = self._light_and_trap(
+            np.array([s_ref]),
+            np.array([det_ref * sp.linewidth_hz]),
+            np.array([grad_ref]),
+            np.array([1.0]),
+            np.array([1.0]),
+            np.array([1.0]),
+        )
+        self._reference_ratio = float(ref["ratio"][0])
 
     def __repr__(self) -> str:
         return (
@@ -435,16 +352,45 @@ class VaporCellMOT:
             stop = min(n, start + _CHUNK)
             # extreme but valid inputs may overflow to inf (e.g. a vanishing gradient moves the
             # trap centre to infinity); every such inf is then handled as a limit below
-            with np.errstate(over="ignore", under="ignore"):
+            with np.errstate(over="ignore", under="ignore", divide="ignore", invalid="ignore"):
                 part = self._evaluate_flat({k: a[start:stop] for k, a in flat.items()})
             for key, value in part.items():
                 out[key][start:stop] = value
         return {key: value.reshape(shape) for key, value in out.items()}
 
+    def _light_and_trap(self, s_x, detuning, axial, g, back, scale):
+        """Light at the field zero and the trap it makes (shared saturation).
+
+        ``s_x``: incoming x beam's saturation there; ``g``: light of the y and z pairs
+        there relative to the x pair; ``back``: returning / incoming; ``scale``:
+        effective I_sat over the cycling one.
+        """
+        sp = self.species
+        k, gamma = sp.wavenumber, sp.linewidth
+        zeeman = abs(sp.zeeman_coefficient)
+        pair = s_x * (1.0 + back)  # both beams of the x pair
+        s_total = pair * (1.0 + 2.0 * g)
+        kappas = []
+        for s_pair, grad in ((pair, 0.5 * axial), (pair * g, 0.5 * axial), (pair * g, axial)):
+            damping = cooling.shared_damping_coefficient(0.5 * s_pair, s_total, detuning, gamma, k)
+            kappas.append(np.maximum(cooling.spring_constant(damping, zeeman, grad, k), 0.0))
+        kappa = np.cbrt(kappas[0] * kappas[1] * kappas[2])
+        intensity = s_total * sp.saturation_intensity * scale
+        sigma_l = light.absorption_cross_section(sp.wavelength, detuning, gamma, s_total)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ratio = np.where(intensity > 0, kappa / (intensity * sigma_l**2), 0.0)
+        return {
+            "s_total": s_total,
+            "kappas": kappas,
+            "kappa": kappa,
+            "intensity": intensity,
+            "sigma_l": sigma_l,
+            "ratio": ratio,
+        }
+
     def _evaluate_flat(self, x: Mapping[str, NDArray]) -> dict[str, NDArray]:
         sp = self.species
         k, gamma, mass = sp.wavenumber, sp.linewidth, sp.mass
-        zeeman = abs(sp.zeeman_coefficient)
         flags = np.zeros(x["beam_power"].shape, dtype=np.int64)
 
         outside = np.zeros(flags.shape, dtype=bool)
@@ -454,7 +400,7 @@ class VaporCellMOT:
         flags[outside] |= Validity.OUTSIDE_RANGE
 
         if self.gradient_source == "direct":
-            axial = x["gradient"]
+            axial = np.abs(x["gradient"])
         else:
             axial = np.abs(
                 field.coil_gradient(
@@ -465,67 +411,64 @@ class VaporCellMOT:
                 )
             )
         radial = field.radial_gradient(axial)
-
         power, waist, detuning = x["beam_power"], x["beam_waist"], x["detuning"]
+        aperture, imbalance = x["aperture_radius"], np.clip(x["beam_imbalance"], 0.0, 1.0)
         # red of resonance by more than 1e-6 linewidths: otherwise no cooling (honest limit)
         cools = detuning < -1e-6 * sp.linewidth_hz
         cooling_detuning = np.where(cools, detuning, 0.0)
-        aperture, imbalance = x["aperture_radius"], x["beam_imbalance"]
-        i_sat = sp.saturation_intensity * x["saturation_scale"]
+        scale = x["saturation_scale"]
+        i_sat = sp.saturation_intensity * scale
         peak_saturation = light.peak_intensity(power, waist) / i_sat
 
-        # position of the field zero (trap centre) relative to the beam axes
-        with np.errstate(divide="ignore", invalid="ignore"):
-            centre = np.where(radial > 0, -x["bias_field"] / radial, np.inf)
-        distance = np.abs(centre - x["beam_offset"])
-        forward, _ = light.cloud_intensities(
-            power, waist, offset=distance, aperture_radius=aperture, imbalance=imbalance
+        # vapor, and its Beer-Lambert attenuation of the beams (Doppler-broadened line)
+        t_cell = x["cell_temperature"]
+        if self.vapor_source == "fraction":
+            density = x["vapor_fraction"] * vapor.saturated_density(sp.vapor, t_cell)
+            flags[t_cell < ALCOCK_LOWEST] |= Validity.EXTRAPOLATING
+        else:
+            density = x["vapor_density"]
+        speed = vapor.most_probable_speed(mass, t_cell)
+        kvp = k * speed
+        sigma_vapor = (
+            _VAPOR_STRENGTH[sp.name]
+            * (3 * sp.wavelength**2 / (2 * np.pi) * math.sqrt(math.pi) * gamma / (2 * kvp))
+            * np.exp(-((2 * np.pi * detuning / kvp) ** 2))
         )
-        s_beam = forward / i_sat
-        s_total = 3.0 * s_beam * (2.0 - imbalance)
+        depth = density * sigma_vapor * x["cell_length"]
+        flags[depth > 1.0] |= Validity.OPTICALLY_THICK
+        s0 = peak_saturation * np.exp(-0.5 * depth)
+        back = (1.0 - imbalance) * np.exp(-depth)
+
+        # field zero relative to the beam crossing; the y and z pairs pass at distance c
+        centre = np.where(radial > 0, -x["bias_field"] / np.where(radial > 0, radial, 1.0), 0.0)
+        c = np.abs(centre - x["beam_offset"])
+        g = np.where(c <= aperture, np.exp(-2.0 * (c / waist) ** 2), 0.0)
+        trap = self._light_and_trap(s0, cooling_detuning, axial, g, back, scale)
+        s_total = trap["s_total"]
         rate = light.scattering_rate(s_total, detuning, gamma)
         repump_saturation = (
-            light.beam_intensity(x["repump_power"], waist, distance, aperture_radius=aperture)
-            / i_sat
+            light.beam_intensity(x["repump_power"], waist, c, aperture_radius=aperture) / i_sat
         )
         leak = sp.leak_probability(detuning, saturation=s_total)
         bright = mot.bright_fraction(rate, leak, mot.repump_rate(repump_saturation, gamma))
 
-        radius = capture.capture_radius(waist, aperture)
-        path = {
-            "waist": waist,
-            "capture_radius": radius,
-            "gradient": radial,
-            "wavenumber": k,
-            "linewidth": gamma,
-            "mass": mass,
-            "zeeman_coefficient": zeeman,
-            "beam_offset": x["beam_offset"],
-            "imbalance": imbalance,
-            "bias_field": x["bias_field"],
-            "bright_fraction": bright,
-        }
-        # atoms enter from both ends of the path: slowed by the returning or the incoming beam
-        v_in = [
-            capture.capture_velocity(peak_saturation, cooling_detuning, direction=d, **path)  # type: ignore[arg-type]
-            for d in (1, -1)
-        ]
-        v_capture = 0.5 * (v_in[0] + v_in[1])
-
-        t_cell = x["cell_temperature"]
-        if self.vapor_source == "fraction":
-            density = x["vapor_fraction"] * vapor.saturated_density(sp.vapor, t_cell)  # type: ignore[arg-type]
-        else:
-            density = x["vapor_density"]
-        speed = vapor.most_probable_speed(mass, t_cell)
-        area = 4.0 * np.pi * radius**2
-        load = 0.5 * sum(
-            mot.loading_rate(density, area, v, speed, prefactor=x["loading_prefactor"])
-            for v in v_in
+        loading = capture.capture(
+            s0,
+            cooling_detuning,
+            waist=waist,
+            gradient=axial,
+            density=density,
+            most_probable_speed=speed,
+            wavenumber=k,
+            linewidth=gamma,
+            mass=mass,
+            zeeman_coefficient=sp.zeeman_coefficient,
+            centre=c,
+            imbalance=1.0 - back,
+            aperture_radius=aperture,
+            bright_fraction=bright,
         )
-        one_body = mot.vapor_loss_rate(
-            density, x["vapor_loss_coefficient"]
-        ) + vapor.background_loss_rate(x["background_pressure"], x["background_loss_coefficient"])
+        flags[loading.extrapolating] |= Validity.EXTRAPOLATING
 
         temp = cooling.temperature(
             s_total,
@@ -534,26 +477,44 @@ class VaporCellMOT:
             sub_doppler_coefficient=x.get("sub_doppler_coefficient"),
             recoil_temperature=sp.recoil_temperature,
         )
-        s_pair = s_beam * (1.0 - 0.5 * imbalance)
-        damping = cooling.damping_coefficient(s_pair, detuning, gamma, k)
-        kappa_axial = cooling.spring_constant(damping, zeeman, axial, k)
-        kappa = kappa_axial * 2.0 ** (-2.0 / 3.0)  # geometric mean of kz and kz/2, kz/2
-        sigma = mot.temperature_limited_radius(np.where(np.isfinite(temp), temp, 0.0), kappa)
-
-        state = mot.steady_state(
+        finite_t = np.where(np.isfinite(temp), temp, 0.0)
+        # fraction of the thermal cloud inside the light (1 for an ordinary trap; it goes to 0
+        # smoothly as a spring constant vanishes), times a smooth ramp over two decades that is
+        # exactly 0 once the weakest pair has less than 1e-3 of its peak light at the field zero
+        held = np.ones_like(finite_t)
+        for kappa_a in trap["kappas"]:
+            sigma_a = mot.temperature_limited_radius(finite_t, kappa_a)
+            held = held * special.erf(waist / (math.sqrt(2.0) * sigma_a))
+        ramp = np.clip(0.5 * (np.log10(np.maximum(g, 1e-300)) + 3.0), 0.0, 1.0)
+        held = held * ramp * ramp * (3.0 - 2.0 * ramp) * cools
+        load = x["loading_prefactor"] * loading.loading_rate * held
+        one_body = mot.vapor_loss_rate(
+            density, x["vapor_loss_coefficient"]
+        ) + vapor.background_loss_rate(x["background_pressure"], x["background_loss_coefficient"])
+        sigma = mot.temperature_limited_radius(finite_t, trap["kappa"])
+        n_lim = cloud.limiting_density(
+            x["density_limit"],
+            trap["kappa"],
+            trap["intensity"],
+            trap["sigma_l"],
+            self._reference_ratio,
+        )
+        state = cloud.cloud_steady_state(
             load,
             one_body,
             two_body_coefficient=x["two_body_coefficient"],
-            cloud_radius=sigma,
-            density_limit=x["density_limit"],
+            sigma=sigma,
+            density_limit=n_lim,
         )
 
         flags[~(peak_saturation > 0)] |= Validity.NO_POWER
         flags[~cools] |= Validity.BLUE_DETUNING
         flags[~(axial > 0)] |= Validity.NO_GRADIENT
         flags[~(density > 0)] |= Validity.NO_VAPOR
-        flags[(v_capture <= 0) & (peak_saturation > 0) & cools] |= Validity.NO_CAPTURE
-        flags[~(s_beam > 0) & (peak_saturation > 0)] |= Validity.CENTRE_IN_DARK
+        flags[~(loading.loading_rate > 0) & (peak_saturation > 0) & cools & (density > 0)] |= (
+            Validity.NO_CAPTURE
+        )
+        flags[(g < 1e-3) & (peak_saturation > 0)] |= Validity.CENTRE_IN_DARK
         flags[(leak > 0) & ~(x["repump_power"] > 0)] |= Validity.NO_REPUMP
         no_trap = (flags & int(_NO_TRAP)) != 0
         flags[~no_trap & np.isinf(state.atom_number)] |= Validity.NO_LOSS
@@ -562,24 +523,33 @@ class VaporCellMOT:
             empty_time = np.where(one_body > 0, 1.0 / one_body, np.inf)
         atoms = np.where(no_trap, 0.0, state.atom_number)
         n0 = np.where(no_trap, 0.0, state.peak_density)
+        nbar = np.where(no_trap, 0.0, state.mean_density)
+        # no loss at all: the cloud grows without bound; its limits, never NaN
+        unbounded = ~no_trap & np.isinf(state.atom_number)
+        radius = np.where(no_trap, 0.0, np.where(unbounded, np.inf, state.cloud_radius))
+        nbar = np.where(unbounded, 0.0, np.nan_to_num(nbar, nan=0.0))
         return {
             "atom_number": atoms,
             "loading_time": np.where(no_trap, empty_time, state.loading_time),
             "temperature": temp,
-            "capture_velocity": v_capture,
+            "capture_velocity": loading.capture_velocity,
             "loading_rate": np.where(no_trap, 0.0, load),
-            "cloud_radius": np.where(no_trap, 0.0, state.cloud_radius),
+            "cloud_radius": radius,
             "peak_density": n0,
             "scattering_rate": rate,
-            "fluorescence": mot.fluorescence(
-                atoms,
-                rate,
-                bright_fraction=bright,
-                solid_angle=x["detector_solid_angle"],
-                efficiency=x["detector_efficiency"],
+            "fluorescence": np.nan_to_num(
+                mot.fluorescence(
+                    atoms,
+                    rate,
+                    bright_fraction=bright,
+                    solid_angle=x["detector_solid_angle"],
+                    efficiency=x["detector_efficiency"],
+                ),
+                nan=0.0,  # inf atoms seen by a detector of zero solid angle: nothing detected
+                posinf=np.inf,
             ),
-            "loss_rate": one_body + mot.two_body_loss_rate(x["two_body_coefficient"], n0),
-            "saturation_parameter": s_beam,
+            "loss_rate": one_body + x["two_body_coefficient"] * nbar,
+            "saturation_parameter": s0 * (1.0 + 2.0 * g) / 3.0,
             "bright_fraction": bright,
             "validity": flags,
         }

@@ -219,14 +219,21 @@ def propagate(
 def _report_validity(ds: xr.Dataset, model: Any, *, stacklevel: int) -> None:
     mask = np.asarray(ds["validity"].values).astype(np.int64)
     counts = validity_counts(model, mask)
-    n_invalid = int(np.count_nonzero(mask))
+    advisory = int(getattr(model, "advisory_flags", 0) or 0)
+    base = getattr(model, "base", None)
+    advisory = advisory or int(getattr(base, "advisory_flags", 0) or 0)
+    serious = mask & ~advisory
+    n_invalid = int(np.count_nonzero(serious))
     ds.attrs["validity_counts"] = counts
     ds.attrs["invalid_fraction"] = n_invalid / mask.size
+    ds.attrs["advisory_fraction"] = int(np.count_nonzero(mask & advisory)) / mask.size
     if n_invalid:
+        flags = getattr(model, "validity_flags", None) or getattr(base, "validity_flags", None)
+        advisory_names = {f.name for f in flags if int(f) & advisory} if flags else set()
         reasons = ", ".join(
             f"{name} {count} ({100.0 * count / mask.size:.3g} %)"
             for name, count in counts.items()
-            if count
+            if count and name not in advisory_names
         )
         warnings.warn(
             f"{100.0 * n_invalid / mask.size:.3g} % of {mask.size} samples fell outside the "

@@ -12,7 +12,9 @@ from scipy import constants, integrate, optimize
 
 from trapbudget.models.catalog import species
 from trapbudget.models.light import (
+    absorption_cross_section,
     beam_intensity,
+    beam_scattering_rates,
     clipped_fraction,
     cloud_intensities,
     peak_intensity,
@@ -143,3 +145,39 @@ def test_rubidium_scattering_and_force_scales():
     # common practice: at ~6e6 photons/s the force is a few thousand times gravity
     a = constants.hbar * RB.wavenumber * 6e6 / RB.mass
     assert 2e3 < a / constants.g < 5e3
+
+
+@settings(derandomize=True, deadline=None)  # fixed examples, no timing
+@given(
+    st.lists(st.floats(0.0, 1e4), min_size=6, max_size=6),
+    st.lists(st.floats(-20.0, 20.0), min_size=6, max_size=6),
+)
+def test_six_beams_never_drive_the_excited_population_above_one_half(s, det):
+    # Metcalf & van der Straten 1999, ch. 2: a two-level atom's excited population <= 1/2,
+    # so the total scattering rate of any light is at most Gamma / 2
+    rates = beam_scattering_rates(np.array(s), np.array(det) * RB.linewidth_hz, RB.linewidth)
+    assert np.all(rates >= 0)
+    assert rates.sum() <= RB.linewidth / 2 * (1 + 1e-12)
+
+
+def test_shared_rates_reduce_to_the_total_saturation_form():
+    # equal detunings: (Gamma/2) s_i / (1 + S + (2 delta/Gamma)^2), Metcalf & van der Straten ch. 2
+    s = np.array([1.0, 2.0, 0.5, 0.5, 3.0, 0.0])
+    det = -1.5 * RB.linewidth_hz
+    got = beam_scattering_rates(s, np.full(6, det), RB.linewidth)
+    expected = scattering_rate(s, det, RB.linewidth, total_saturation=s.sum())
+    np.testing.assert_allclose(got, expected, rtol=1e-12)
+    # far-detuned beams do not saturate the atom for the others
+    far = beam_scattering_rates(
+        np.array([1.0, 1e3]), np.array([0.0, 1e4 * RB.linewidth_hz]), RB.linewidth
+    )
+    assert far[0] == pytest.approx(RB.linewidth / 4, rel=1e-3)
+
+
+def test_resonant_cross_section():
+    # Steck, "Rubidium 87 D Line Data": resonant cross-section of the cycling transition
+    # 3 lambda^2 / (2 pi) = 2.907e-13 m^2
+    sigma = absorption_cross_section(RB.wavelength, 0.0, RB.linewidth, 0.0)
+    assert float(sigma) == pytest.approx(2.907e-13, rel=1e-3)
+    half = absorption_cross_section(RB.wavelength, RB.linewidth_hz / 2, RB.linewidth, 0.0)
+    assert float(half) == pytest.approx(float(sigma) / 2, rel=1e-12)

@@ -335,4 +335,4 @@ def test_terminal_tables_keep_their_headers_for_every_output():
     tables = budget_tables(datasets["summary"], two)
     assert len(tables) == 2
     for table in tables:
-        assert [c.header for c in table.columns][:3] == ["rank", "input", "total order"]
+        assert [c.header for c in table.columns][:3] == ["#", "input", "total order"]
