@@ -216,27 +216,6 @@ class VaporCellMOT:
     advisory_flags = Validity.EXTRAPOLATING
     assumptions: tuple[str, ...] = ASSUMPTIONS
 
-    #: The physics assumptions and limits of the model, one plain sentence each
-    #: (the reports print them beside every result).
-    assumptions: tuple[str, ...] = (
-        "Three retro-reflected Gaussian beam pairs; each beam's scattering force is that of a "
-        "two-level atom on the cycling transition, saturation shared between beams (no "
-        "interference, no polarisation gradients in the force).",
-        "Capture velocity from the critical trajectory through the beam overlap region in one "
-        "dimension; atoms faster than it are lost, slower ones are captured.",
-        "Loading rate from the kinetic theory of a thermal vapor at the cell temperature; its "
-        "prefactor is a calibratable constant, so absolute atom numbers are only as good as "
-        "its calibration.",
-        "Losses: hot-alkali and background-gas collisions (rates proportional to density and "
-        "pressure) and light-assisted two-body loss; steady state of the rate equation.",
-        "Cloud size temperature-limited or, above the density limit, density-limited "
-        "(reradiation); temperature from Doppler theory or the calibrated sub-Doppler term.",
-        "Repumping as a bright fraction from repump and leak rates; fluorescence from the "
-        "detected solid angle and efficiency.",
-        "Outside its validity (no power, blue detuning, no gradient, no capture) the model "
-        "returns its honest limit (no atoms) and flags the sample.",
-    )
-
     def __init__(
         self,
         species: str | Species = "Rb87",
@@ -423,7 +402,7 @@ class VaporCellMOT:
         # vapor, and its Beer-Lambert attenuation of the beams (Doppler-broadened line)
         t_cell = x["cell_temperature"]
         if self.vapor_source == "fraction":
-            density = x["vapor_fraction"] * vapor.saturated_density(sp.vapor, t_cell)
+            density = x["vapor_fraction"] * vapor.saturated_density(sp.vapor, t_cell)  # type: ignore[arg-type]
             flags[t_cell < ALCOCK_LOWEST] |= Validity.EXTRAPOLATING
         else:
             density = x["vapor_density"]
