@@ -181,3 +181,28 @@ def test_the_projects_warnings_are_errors_in_the_suite_wherever_attributed():
     blue = {"detuning": st.uniform(1e6, 1e6)}  # blue of resonance: no trap, flagged
     with pytest.raises(ModelValidityWarning, match=r"fell outside the validity"):
         propagate(VaporCellMOT(), blue, n_samples=16, rng=0)
+
+
+HEAVY = ("numba", "matplotlib", "xarray", "SALib", "scipy.stats")
+
+
+@pytest.mark.parametrize(
+    "argv",
+    [["--version"], ["--help"], ["rank"], ["rank", "{bad}"], ["predict", "{missing}"]],
+)
+def test_usage_and_input_errors_answer_without_heavy_imports(tmp_path, argv):
+    # Fast start: what a typo costs is the interpreter and the parser, not numba or matplotlib.
+    import subprocess
+    import sys
+
+    bad = tmp_path / "bad.toml"
+    bad.write_text('[scenario]\ntitle = "typo"\n[inputs.beam_powr]\nnominal = "4 mW"\n')
+    argv = [a.format(bad=bad, missing=tmp_path / "missing.toml") for a in argv]
+    code = (
+        "import sys\nfrom trapbudget.cli.main import main\n"
+        f"try:\n    main({argv!r})\nexcept SystemExit:\n    pass\n"
+        f"print('HEAVY:' + ','.join(m for m in {HEAVY!r} if m in sys.modules))"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    line = [x for x in out.stdout.splitlines() if x.startswith("HEAVY:")][-1]
+    assert line == "HEAVY:", (argv, line, out.stderr[-500:])
