@@ -89,13 +89,13 @@ def add_compare(subparsers: argparse._SubParsersAction) -> None:
 
 
 def _run_spec(args: argparse.Namespace) -> int:
+    scenario = load(args.scenario)
     from trapbudget.reports.render import write_report
     from trapbudget.reports.spec import allocation_json, allocation_rich_table
     from trapbudget.sensitivity.decisions.allocate import allocate
     from trapbudget.sensitivity.decisions.allocation import InfeasibleError
     from trapbudget.sensitivity.study_record import describe_study
 
-    scenario = load(args.scenario)
     out = report_dir(args, f"{Path(args.scenario).stem}-spec")
     check_samples_fit(args, scenario, kind="propagate", copies=4)
     seed = scenario.settings.seed if args.seed is None else args.seed
@@ -145,14 +145,14 @@ def _select_upgrades(scenario: Any, names: Sequence[str] | None) -> Any:
 
 
 def _run_compare(args: argparse.Namespace) -> int:
+    if args.after is not None and args.upgrade:
+        raise UsageError(f"{PROG} compare: give AFTER or --upgrade, not both")
+    before = load(args.before)
     from trapbudget.reports.compare import comparison_json, comparison_rich_tables
     from trapbudget.reports.render import write_report
     from trapbudget.sensitivity.decisions.compare import compare, compare_upgrades
     from trapbudget.sensitivity.study_record import describe_study
 
-    if args.after is not None and args.upgrade:
-        raise UsageError(f"{PROG} compare: give AFTER or --upgrade, not both")
-    before = load(args.before)
     after = load(args.after) if args.after is not None else None
     upgrades = None if after is not None else _select_upgrades(before, args.upgrade)
     out = report_dir(args, f"{Path(args.before).stem}-compare")

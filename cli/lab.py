@@ -91,13 +91,13 @@ def _check_free(scenario: Any, free: list[str] | None) -> None:
 
 
 def _run_calibrate(args: argparse.Namespace) -> int:
+    scenario = load(args.scenario)
     from trapbudget.reports.calibration import calibration_json, calibration_rich_table
     from trapbudget.reports.render import write_report
     from trapbudget.sensitivity.io import atomic_write_text
     from trapbudget.sensitivity.lab.calibrate import calibrate
     from trapbudget.sensitivity.study_record import describe_study
 
-    scenario = load(args.scenario)
     stem = Path(args.scenario).stem
     out = report_dir(args, f"{stem}-calibration")
     free = [n.strip() for n in args.free.split(",") if n.strip()] if args.free else None
@@ -134,12 +134,12 @@ def _run_calibrate(args: argparse.Namespace) -> int:
 
 
 def _run_diagnose(args: argparse.Namespace) -> int:
+    scenario = load(args.scenario)
     from trapbudget.reports.diagnosis import diagnosis_json, diagnosis_rich_tables
     from trapbudget.reports.render import write_report
     from trapbudget.sensitivity.lab.diagnose import diagnose
     from trapbudget.sensitivity.study_record import describe_study
 
-    scenario = load(args.scenario)
     out = report_dir(args, f"{Path(args.log).stem}-diagnosis")
     reference = args.reference.split(":") if ":" in args.reference else args.reference
     diag = diagnose(

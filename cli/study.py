@@ -100,8 +100,12 @@ def add_demo(subparsers: argparse._SubParsersAction) -> None:
     p = subparsers.add_parser(
         "demo",
         help="write the invented demo lab's scenarios and run 'rank' on the Rb-87 one",
-        description="Write the demo scenario files (an invented lab and apparatus) into a folder, "
-        f"overwriting files of the same name, and run 'rank' on {DEMO_SCENARIO}.",
+        description="Write the demo scenario files (an invented lab and apparatus) into a folder "
+        f"and run 'rank' on {DEMO_SCENARIO}. A file there that the demo did not write, or "
+        "that was edited since, is kept unless --force is given.",
+    )
+    p.add_argument(
+        "--force", action="store_true", help="overwrite demo files that were edited or not ours"
     )
     add_samples_option(p)
     add_max_samples_option(p)
@@ -113,11 +117,11 @@ def add_demo(subparsers: argparse._SubParsersAction) -> None:
 
 
 def _run_predict(args: argparse.Namespace) -> int:
+    scenario = load(args.scenario)
     from trapbudget.reports.results import prediction_json
     from trapbudget.reports.terminal import prediction_table
     from trapbudget.sensitivity.linear import linear_propagation
 
-    scenario = load(args.scenario)
     linear = linear_propagation(
         scenario.model,
         scenario.inputs,
@@ -243,14 +247,42 @@ def _demo_files() -> list[Any]:
     )
 
 
+#: Record of the files the demo wrote into a folder (name -> SHA-256), so that it never
+#: overwrites a file it did not write, or one edited since, without --force.
+DEMO_MANIFEST = ".trapbudget-demo.json"
+
+
 def _run_demo(args: argparse.Namespace) -> int:
-    from trapbudget.sensitivity.io import atomic_write_bytes
+    import hashlib
+
+    from trapbudget.sensitivity.io import atomic_write_bytes, atomic_write_json
 
     folder = Path(args.out) if args.out is not None else DEFAULT_DEMO_DIR
     if folder.exists() and not folder.is_dir():
         raise UsageError(f"{PROG} demo: --out {folder} is a file; give a folder")
-    for item in _demo_files():
-        atomic_write_bytes(folder / item.name, item.read_bytes())
+    manifest_path = folder / DEMO_MANIFEST
+    try:
+        written = json.loads(manifest_path.read_text(encoding="utf-8"))
+        written = written if isinstance(written, dict) else {}
+    except (OSError, ValueError):
+        written = {}
+    files = {item.name: item.read_bytes() for item in _demo_files()}
+    for name, data in files.items():
+        target = folder / name
+        if args.force or not target.exists():
+            continue
+        current = hashlib.sha256(target.read_bytes()).hexdigest()
+        if current not in (written.get(name), hashlib.sha256(data).hexdigest()):
+            raise UsageError(
+                f"{PROG} demo: {target} exists and is not the demo's own copy (edited, or "
+                "not written by the demo); keep it by giving --out another folder, or "
+                "overwrite it with --force"
+            )
+    for name, data in files.items():
+        atomic_write_bytes(folder / name, data)
+    atomic_write_json(
+        manifest_path, {name: hashlib.sha256(data).hexdigest() for name, data in files.items()}
+    )
     if not args.quiet and not args.json:
         print(f"Demo files (invented lab) written to {folder}/", file=sys.stderr)
     scenario = load(folder / DEMO_SCENARIO)

@@ -358,3 +358,19 @@ def test_model_validity_warning_is_one_line_and_counted(capsys, tmp_path):
     # Detuning uniform on [-4, 2] MHz: 2/6 of the samples lie blue of resonance
     # (binomial standard error sqrt(p (1 - p) / m), four of them).
     assert counts["BLUE_DETUNING"] / m == pytest.approx(2 / 6, abs=4 * math.sqrt(2 / 9 / m))
+
+
+def test_demo_keeps_edited_files_unless_forced(capsys, tmp_path):
+    # A practitioner's edits to a demo scenario are never silently overwritten.
+    argv = ["demo", "--out", str(tmp_path), "--quiet", "--samples", "64", "--max-samples", "64"]
+    assert main(argv) == 0
+    capsys.readouterr()
+    scenario = tmp_path / "harrier-rb87.toml"
+    scenario.write_text(scenario.read_text(encoding="utf-8") + "\n# my edit\n", encoding="utf-8")
+    code = main(["demo", "--out", str(tmp_path), "--quiet", "--samples", "64"])
+    err = capsys.readouterr().err.strip()
+    assert code == 2 and "\n" not in err
+    assert "is not the demo's own copy" in err and "--force" in err
+    assert "# my edit" in scenario.read_text(encoding="utf-8")
+    assert main([*argv, "--force"]) == 0
+    assert "# my edit" not in scenario.read_text(encoding="utf-8")
