@@ -99,3 +99,16 @@ def test_the_demo_study_converges(demo_scenario):
     assert budget.attrs["converged"] is True
     assert budget["history_max_width"].values[-1] < budget.attrs["convergence_tolerance"]
     assert budget.attrs["headline"] == "shapley_effect"  # the demo declares correlations
+
+
+def test_result_objects_have_short_reprs_for_notebooks(demo_scenario):
+    scenario = load_scenario(demo_scenario)
+    text = repr(scenario)
+    assert len(text) < 300 and "VaporCellMOT" in text and "11 uncertain inputs" in text
+    assert "<table>" in scenario._repr_html_()
+    import matplotlib
+
+    backend = matplotlib.get_backend()
+    import trapbudget.reports.figures  # noqa: F401  (no backend switch on import)
+
+    assert matplotlib.get_backend() == backend

@@ -70,6 +70,18 @@ class Allocation:
     iterations: int = 0
     history: tuple[tuple[float, bool], ...] = ()
 
+    def __repr__(self) -> str:
+        state = "feasible" if self.feasible else f"infeasible ({self.reason})"
+        return (
+            f"Allocation({state}, total_cost={self.total_cost:g}, "
+            f"tolerances={sorted(self.tolerances)}, iterations={self.iterations})"
+        )
+
+    def _repr_html_(self) -> str:
+        import html
+
+        return f"<pre>{html.escape(repr(self))}</pre>"
+
     @property
     def blocking_input(self) -> str:
         """Input named as blocking an infeasible requirement ('' if feasible)."""

@@ -122,6 +122,16 @@ class Calibration:
     notes: tuple[str, ...] = ()
     scenario: Any = field(default=None, repr=False, compare=False)
 
+    def __repr__(self) -> str:
+        fitted = ", ".join(f"{n}={self.values[n]:.4g}" for n in self.free)
+        ratio = self.chi2 / self.dof if self.dof > 0 else float("nan")
+        return f"Calibration({fitted}; chi2/dof={ratio:.3g}, {len(self.notes)} notes)"
+
+    def _repr_html_(self) -> str:
+        import html
+
+        return f"<pre>{html.escape(repr(self))}</pre>"
+
     @property
     def reduced_chi2(self) -> float:
         """chi2 / dof (nan with no degrees of freedom)."""

@@ -122,6 +122,19 @@ class Diagnosis:
     ignored_columns: tuple[str, ...]
     messages: tuple[str, ...] = ()
     channel_means: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
+
+    def __repr__(self) -> str:
+        flagged = [str(d)[:10] for d, f in zip(self.days, self.flagged, strict=False) if f]
+        return (
+            f"Diagnosis({self.output}, {len(self.days)} days, channels={list(self.channels)}, "
+            f"flagged={flagged}, false_alarm_rate={self.false_alarm_rate:g})"
+        )
+
+    def _repr_html_(self) -> str:
+        import html
+
+        return f"<pre>{html.escape(repr(self))}</pre>"
+
     p_value: np.ndarray = field(default_factory=lambda: np.zeros(0))
     degrees_of_freedom: np.ndarray = field(default_factory=lambda: np.zeros(0))
     flagged_per_day: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=bool))
@@ -345,7 +358,14 @@ def diagnose(
     keep = np.all(np.isfinite(np.column_stack(needed)), axis=1)
     skipped = int(np.count_nonzero(~keep))
     if not keep.any():
-        raise DataError("every log row misses a value in a used column", path=table.where)
+        columns = [*inputs, measured_name] + ([u_name] if given_u is not None else [])
+        values = [*inputs.values(), measured] + ([given_u] if given_u is not None else [])
+        empty = [c for c, v in zip(columns, values, strict=True) if not np.isfinite(v).any()]
+        named = ", ".join(repr(c) for c in (empty or columns))
+        raise DataError(
+            f"every log row misses a value in {named}; fill the column in or unmap it",
+            path=table.where,
+        )
     stamps = table.timestamps[keep]
     measured = measured[keep]
     given_u = given_u[keep] if given_u is not None else None

@@ -145,6 +145,27 @@ class Scenario:
             }
         )
 
+    def __repr__(self) -> str:
+        source = f", source={self.source.name!r}" if self.source is not None else ""
+        return (
+            f"Scenario({self.title!r}, model={self.model_name}, species={self.species}, "
+            f"{len(self.inputs)} uncertain inputs, {len(self.requirements)} requirements"
+            f"{source})"
+        )
+
+    def _repr_html_(self) -> str:
+        import html
+
+        rows = "".join(
+            f"<tr><td>{html.escape(n)}</td><td>{html.escape(str(t.text))}</td></tr>"
+            for n, t in self.tolerances.items()
+        )
+        return (
+            f"<p><b>{html.escape(self.title)}</b> ({html.escape(self.model_name)}, "
+            f"{html.escape(self.species)})</p><table><tr><th>input</th><th>tolerance</th></tr>"
+            f"{rows}</table>"
+        )
+
     def __eq__(self, other: object) -> bool:
         if not isinstance(other, Scenario):
             return NotImplemented
