@@ -25,7 +25,14 @@ from collections.abc import Callable, Sequence
 from trapbudget.cli.decisions import add_compare, add_spec
 from trapbudget.cli.lab import add_calibrate, add_diagnose
 from trapbudget.cli.options import PROG, _Parser
-from trapbudget.cli.study import add_demo, add_predict, add_rank, add_report, add_species
+from trapbudget.cli.study import (
+    add_demo,
+    add_inputs,
+    add_predict,
+    add_rank,
+    add_report,
+    add_species,
+)
 from trapbudget.sensitivity.errors import TrapbudgetError, TrapbudgetWarning, UsageError
 
 __all__ = ["SUBCOMMANDS", "build_parser", "main"]
@@ -39,6 +46,7 @@ SUBCOMMANDS: list[Callable[[argparse._SubParsersAction], None]] = [
     add_compare,
     add_report,
     add_species,
+    add_inputs,
     add_demo,
     add_calibrate,
     add_diagnose,

@@ -28,7 +28,7 @@ from trapbudget.cli.output import (
 )
 from trapbudget.sensitivity.errors import UsageError
 
-__all__ = ["add_demo", "add_predict", "add_rank", "add_report", "add_species"]
+__all__ = ["add_demo", "add_inputs", "add_predict", "add_rank", "add_report", "add_species"]
 
 
 def add_predict(subparsers: argparse._SubParsersAction) -> None:
@@ -94,6 +94,28 @@ def add_species(subparsers: argparse._SubParsersAction) -> None:
     )
     add_common_options(p, out=False, seed=False)
     p.set_defaults(run=_run_species)
+
+
+def add_inputs(subparsers: argparse._SubParsersAction) -> None:
+    p = subparsers.add_parser(
+        "inputs",
+        help="list a model's inputs (unit, default, range, constant or setting) and outputs",
+        description="List every input of a scenario's model (its value in the scenario, or "
+        "the model default), with unit, valid range, whether it is a setting of the "
+        "apparatus or a model constant calibration may fit, and its meaning; then the "
+        "outputs. Give a scenario file or a model name (e.g. VaporCellMOT).",
+    )
+    p.add_argument("what", metavar="SCENARIO_OR_MODEL", help="scenario TOML file or model name")
+    p.add_argument("--species", default="Rb87", help="species for a model name (default Rb87)")
+    p.add_argument(
+        "--option",
+        action="append",
+        default=[],
+        metavar="KEY=VALUE",
+        help="model option for a model name, e.g. cooling=doppler (repeatable)",
+    )
+    add_common_options(p, out=False, seed=False)
+    p.set_defaults(run=_run_inputs)
 
 
 def add_demo(subparsers: argparse._SubParsersAction) -> None:
@@ -218,6 +240,68 @@ def _rerender(folder: Path, args: argparse.Namespace) -> int:
 
 def _run_report(args: argparse.Namespace) -> int:
     return _rerender(args.dir, args)
+
+
+def _run_inputs(args: argparse.Namespace) -> int:
+    from trapbudget.sensitivity.scenario.registry import MODELS, _make_model
+
+    path = Path(args.what)
+    if path.suffix == ".toml" or path.exists():
+        scenario = load(path)
+        model, values, label = scenario.model, dict(scenario.nominal), scenario.title
+        uncertain = set(scenario.inputs)
+    else:
+        if args.what not in MODELS:
+            import difflib
+
+            close = difflib.get_close_matches(args.what, list(MODELS), n=1)
+            hint = f"; did you mean {close[0]!r}?" if close else ""
+            raise UsageError(
+                f"{PROG} inputs: {args.what!r} is neither a scenario file nor a model{hint} "
+                f"(models: {', '.join(MODELS)})"
+            )
+        options = {}
+        for item in args.option:
+            key, sep, value = item.partition("=")
+            if not sep or not key:
+                raise UsageError(f"{PROG} inputs: --option {item!r} must be KEY=VALUE")
+            options[key.strip()] = value.strip()
+        model = _make_model(args.what, args.species, options, path=None)
+        values, label, uncertain = {}, f"{args.what} ({args.species})", set()
+    rows = []
+    for name, spec in model.inputs.items():
+        value = values.get(name, spec.default)
+        rows.append(
+            {
+                "name": name,
+                "unit": spec.unit,
+                "value": float(value),
+                "default": float(spec.default),
+                "low": float(spec.low),
+                "high": float(spec.high),
+                "kind": "constant" if spec.constant else "setting",
+                "set_by": "uncertain"
+                if name in uncertain
+                else "scenario"
+                if name in values
+                else "default",
+                "meaning": spec.description,
+            }
+        )
+    outputs = [
+        {"name": name, "unit": spec.unit, "meaning": spec.description}
+        for name, spec in model.outputs.items()
+    ]
+    if args.json:
+        emit_json({"title": label, "inputs": rows, "outputs": outputs})
+        return 0
+    console = stdout_console(args)
+    if console is not None:
+        from trapbudget.reports.terminal import inputs_rich_tables
+
+        for table in inputs_rich_tables(rows, outputs, title=label):
+            console.print(table)
+    return 0
 
 
 def _run_species(args: argparse.Namespace) -> int:

@@ -10,14 +10,16 @@ import xarray as xr
 from rich.table import Table
 
 from trapbudget.reports.formatting import (
+    display_scale,
     format_index,
+    format_number,
     format_percent,
     format_quantity,
     main_index,
     output_unit,
 )
 
-__all__ = ["budget_tables", "prediction_table", "species_rich_table"]
+__all__ = ["budget_tables", "inputs_rich_tables", "prediction_table", "species_rich_table"]
 
 
 def prediction_table(linear: xr.Dataset, *, title: str = "", top: int = 3) -> Table:
@@ -121,3 +123,34 @@ def species_rich_table(rows: Sequence[Mapping[str, Any]]) -> Table:
             cells.append(str(src))
         table.add_row(*cells)
     return table
+
+
+def inputs_rich_tables(
+    rows: Sequence[Mapping[str, Any]], outputs: Sequence[Mapping[str, Any]], *, title: str = ""
+) -> list[Table]:
+    """A model's inputs (value, range, setting or constant, meaning) and outputs, 80 columns.
+
+    Each input's meaning is the dim second line under its name.
+    """
+    inputs = Table(title=f"Inputs of {title}" if title else "Inputs", title_justify="left")
+    inputs.add_column("input / meaning", overflow="fold", ratio=1)
+    inputs.add_column("value", justify="right", no_wrap=True)
+    inputs.add_column("valid range", justify="right", no_wrap=True)
+    inputs.add_column("kind", no_wrap=True)
+    for row in rows:
+        unit = str(row["unit"])
+        low, high = float(row["low"]), float(row["high"])
+        typical = max(abs(v) for v in (low, high, 1e-300) if np.isfinite(v))
+        factor, label = display_scale(unit, typical)
+        span = f"{format_number(low * factor)} .. {format_number(high * factor)} {label}"
+        kind = str(row["kind"]) + ("" if row["set_by"] == "default" else "*")
+        name = f"[bold]{row['name']}[/bold]\n[dim]{row['meaning']}[/dim]"
+        inputs.add_row(name, format_quantity(float(row["value"]), unit), span, kind)
+    inputs.caption = "* set in the scenario (the others take the model's default)"
+    outs = Table(title="Outputs", title_justify="left")
+    outs.add_column("output", no_wrap=True)
+    outs.add_column("unit", no_wrap=True)
+    outs.add_column("meaning", overflow="fold", ratio=1)
+    for row in outputs:
+        outs.add_row(str(row["name"]), str(row["unit"]), str(row["meaning"]))
+    return [inputs, outs]

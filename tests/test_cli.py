@@ -374,3 +374,19 @@ def test_demo_keeps_edited_files_unless_forced(capsys, tmp_path):
     assert "# my edit" in scenario.read_text(encoding="utf-8")
     assert main([*argv, "--force"]) == 0
     assert "# my edit" not in scenario.read_text(encoding="utf-8")
+
+
+def test_inputs_lists_every_input_of_the_model_with_unit_range_and_kind(capsys, tmp_path):
+    from trapbudget.models import VaporCellMOT
+
+    code, out, err = _run(capsys, "inputs", "VaporCellMOT", "--json")
+    assert code == 0, err
+    result = json.loads(out)
+    model = VaporCellMOT()
+    assert [r["name"] for r in result["inputs"]] == list(model.inputs)
+    assert [o["name"] for o in result["outputs"]] == list(model.outputs)
+    by_name = {r["name"]: r for r in result["inputs"]}
+    assert by_name["beam_waist"]["unit"] == "m" and by_name["beam_waist"]["kind"] == "setting"
+    assert by_name["loading_prefactor"]["kind"] == "constant"
+    code, out, err = _run(capsys, "inputs", "VaporCelMOT")
+    assert code == 2 and "did you mean 'VaporCellMOT'?" in err and len(err.splitlines()) == 1
