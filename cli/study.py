@@ -26,7 +26,7 @@ from trapbudget.cli.output import (
     stage_progress,
     stdout_console,
 )
-from trapbudget.sensitivity.errors import UsageError
+from trapbudget.sensitivity.errors import ScenarioError, UsageError
 
 __all__ = ["add_demo", "add_inputs", "add_predict", "add_rank", "add_report", "add_species"]
 
@@ -182,6 +182,13 @@ def _rank_and_report(scenario: Any, args: argparse.Namespace, *, stem: str) -> i
         raise UsageError(
             f"{PROG}: --max-samples {args.max_samples} is below the sample size {n}; "
             f"give at least {n}"
+        )
+    if not scenario.inputs:
+        raise ScenarioError(
+            "no input has a tolerance, so there is nothing to rank; give at least one "
+            "[inputs.<name>] a tolerance (or use 'trapbudget predict')",
+            path=scenario.source,
+            key="inputs",
         )
     out = report_dir(args, stem)
     second = bool(args.second_order or scenario.settings.second_order)

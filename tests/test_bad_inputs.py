@@ -314,3 +314,16 @@ def test_skipped_data_rows_are_counted_and_said(capsys, demo, tmp_path):
     code, err = run(capsys, [*argv, "--out", tmp_path / "out", "--json"])
     assert code == 0
     assert "DataWarning: gaps.csv: 2 row(s) skipped (a needed value is empty or NaN)" in err
+
+
+def test_a_scenario_without_tolerances_has_nothing_to_rank(capsys, tmp_path):
+    path = tmp_path / "fixed.toml"
+    path.write_text(
+        '[scenario]\ntitle = "all fixed (invented)"\nspecies = "Rb87"\n'
+        '[inputs.beam_power]\nnominal = "6 mW"\n',
+        encoding="utf-8",
+    )
+    code, err = run(capsys, ["rank", path, "--out", tmp_path / "out"])
+    assert code == 1
+    assert re.search(r"fixed\.toml: inputs: no input has a tolerance", one_line(err))
+    assert run(capsys, ["predict", path, "--quiet"])[0] == 0
