@@ -138,12 +138,35 @@ def add_demo(subparsers: argparse._SubParsersAction) -> None:
 # --------------------------------------------------------------------------- subcommands
 
 
+def _warn_if_nominal_invalid(scenario: Any) -> None:
+    """One warning line per reason when the nominal point lies outside the model's validity."""
+    import warnings
+
+    from trapbudget.sensitivity.propagation import ModelValidityWarning
+
+    result = scenario.model.evaluate({})
+    mask = int(result.get("validity", 0))
+    base = getattr(scenario.model, "base", scenario.model)
+    flags = getattr(base, "validity_flags", None)
+    advisory = int(getattr(base, "advisory_flags", 0) or 0)
+    if not mask or flags is None:
+        return
+    for flag in flags:
+        if int(flag) and mask & int(flag) and not int(flag) & advisory:
+            warnings.warn(
+                f"the nominal point is outside the model's validity: {flag.name}: {flag.__doc__}",
+                ModelValidityWarning,
+                stacklevel=2,
+            )
+
+
 def _run_predict(args: argparse.Namespace) -> int:
     scenario = load(args.scenario)
     from trapbudget.reports.results import prediction_json
     from trapbudget.reports.terminal import prediction_table
     from trapbudget.sensitivity.linear import linear_propagation
 
+    _warn_if_nominal_invalid(scenario)
     linear = linear_propagation(
         scenario.model,
         scenario.inputs,

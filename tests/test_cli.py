@@ -390,3 +390,18 @@ def test_inputs_lists_every_input_of_the_model_with_unit_range_and_kind(capsys, 
     assert by_name["loading_prefactor"]["kind"] == "constant"
     code, out, err = _run(capsys, "inputs", "VaporCelMOT")
     assert code == 2 and "did you mean 'VaporCellMOT'?" in err and len(err.splitlines()) == 1
+
+
+def test_predict_at_blue_detuning_explains_instead_of_raw_warnings(capsys, tmp_path):
+    # Blue of resonance a MOT does not trap (common practice): one line per reason, no
+    # raw numpy RuntimeWarning.
+    from importlib import resources
+
+    text = (resources.files("trapbudget.examples") / "harrier-rb87.toml").read_text("utf-8")
+    path = tmp_path / "blue.toml"
+    path.write_text(text.replace('nominal = "-12 MHz"', 'nominal = "+12 MHz"', 1), "utf-8")
+    code, out, err = _run(capsys, "predict", str(path), "--json")
+    assert code == 0 and json.loads(out)
+    assert "RuntimeWarning" not in err
+    assert "ModelValidityWarning: the nominal point is outside the model's validity: " in err
+    assert "BLUE_DETUNING" in err
