@@ -143,21 +143,14 @@ def _warn_if_nominal_invalid(scenario: Any) -> None:
     import warnings
 
     from trapbudget.sensitivity.propagation import ModelValidityWarning
+    from trapbudget.sensitivity.protocol import nominal_validity
 
-    result = scenario.model.evaluate({})
-    mask = int(result.get("validity", 0))
-    base = getattr(scenario.model, "base", scenario.model)
-    flags = getattr(base, "validity_flags", None)
-    advisory = int(getattr(base, "advisory_flags", 0) or 0)
-    if not mask or flags is None:
-        return
-    for flag in flags:
-        if int(flag) and mask & int(flag) and not int(flag) & advisory:
-            warnings.warn(
-                f"the nominal point is outside the model's validity: {flag.name}: {flag.__doc__}",
-                ModelValidityWarning,
-                stacklevel=2,
-            )
+    for flag in nominal_validity(scenario.model):
+        warnings.warn(
+            f"the nominal point is outside the model's validity: {flag.name}: {flag.__doc__}",
+            ModelValidityWarning,
+            stacklevel=2,
+        )
 
 
 def _run_predict(args: argparse.Namespace) -> int:

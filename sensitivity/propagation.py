@@ -36,6 +36,7 @@ from trapbudget.sensitivity.protocol import (
     model_name,
     select_outputs,
     validity_counts,
+    validity_flags,
 )
 from trapbudget.sensitivity.sampling import SamplingMethod, sample_inputs, split_inputs
 from trapbudget.sensitivity.summary import _output_names, coverage_interval, numerical_tolerance
@@ -219,16 +220,13 @@ def propagate(
 def _report_validity(ds: xr.Dataset, model: Any, *, stacklevel: int) -> None:
     mask = np.asarray(ds["validity"].values).astype(np.int64)
     counts = validity_counts(model, mask)
-    advisory = int(getattr(model, "advisory_flags", 0) or 0)
-    base = getattr(model, "base", None)
-    advisory = advisory or int(getattr(base, "advisory_flags", 0) or 0)
+    flags, advisory = validity_flags(model)
     serious = mask & ~advisory
     n_invalid = int(np.count_nonzero(serious))
     ds.attrs["validity_counts"] = counts
     ds.attrs["invalid_fraction"] = n_invalid / mask.size
     ds.attrs["advisory_fraction"] = int(np.count_nonzero(mask & advisory)) / mask.size
     if n_invalid:
-        flags = getattr(model, "validity_flags", None) or getattr(base, "validity_flags", None)
         advisory_names = {f.name for f in flags if int(f) & advisory} if flags else set()
         reasons = ", ".join(
             f"{name} {count} ({100.0 * count / mask.size:.3g} %)"

@@ -25,8 +25,10 @@ __all__ = [
     "as_model",
     "evaluate_in_chunks",
     "model_name",
+    "nominal_validity",
     "select_outputs",
     "validity_counts",
+    "validity_flags",
 ]
 
 
@@ -290,6 +292,20 @@ def select_outputs(
     return keep
 
 
+def validity_flags(model: Any) -> tuple[Any, int]:
+    """The model's validity flag class (or None) and the bits of its advisory flags.
+
+    Advisory flags (``model.advisory_flags``) qualify a result without invalidating
+    it: they are counted, but give no validity warning. A bound model answers for
+    its base.
+    """
+    for obj in (model, getattr(model, "base", None)):
+        flags = getattr(obj, "validity_flags", None)
+        if flags is not None:
+            return flags, int(getattr(obj, "advisory_flags", 0) or 0)
+    return None, 0
+
+
 def validity_counts(model: Any, mask: ArrayLike) -> dict[str, int]:
     """Samples outside the model's validity, per flag of ``model.validity_flags``.
 
@@ -297,10 +313,7 @@ def validity_counts(model: Any, mask: ArrayLike) -> dict[str, int]:
     with a non-zero mask.
     """
     mask = np.asarray(mask).astype(np.int64)
-    flags = getattr(model, "validity_flags", None)
-    if flags is None:
-        base = getattr(model, "base", None)
-        flags = getattr(base, "validity_flags", None)
+    flags, _ = validity_flags(model)
     if flags is None:
         return {"invalid": int(np.count_nonzero(mask))}
     return {
@@ -308,3 +321,12 @@ def validity_counts(model: Any, mask: ArrayLike) -> dict[str, int]:
         for flag in flags
         if int(flag)
     }
+
+
+def nominal_validity(model: Any) -> list[Any]:
+    """The non-advisory validity flags the model sets at its nominal point (its defaults)."""
+    flags, advisory = validity_flags(model)
+    mask = int(np.asarray(model.evaluate({}).get("validity", 0)).reshape(-1)[0])
+    if flags is None or not mask:
+        return []
+    return [f for f in flags if int(f) and mask & int(f) and not int(f) & advisory]
