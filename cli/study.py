@@ -190,7 +190,7 @@ def _run_rank(args: argparse.Namespace) -> int:
 def _rank_and_report(scenario: Any, args: argparse.Namespace, *, stem: str) -> int:
     from trapbudget.reports.render import write_report
     from trapbudget.reports.results import study_json
-    from trapbudget.reports.terminal import budget_tables
+    from trapbudget.reports.terminal import budget_tables, print_bottom_line
     from trapbudget.sensitivity.study import run_study
 
     n = args.samples if args.samples is not None else scenario.settings.n_samples
@@ -229,6 +229,7 @@ def _rank_and_report(scenario: Any, args: argparse.Namespace, *, stem: str) -> i
         return 0
     console = stdout_console(args)
     if console is not None:
+        print_bottom_line(console, result["conclusion"])
         for table in budget_tables(datasets["summary"], datasets["budget"]):
             console.print(table)
         console.print(f"Report: {written / 'report.html'}")
@@ -238,9 +239,10 @@ def _rank_and_report(scenario: Any, args: argparse.Namespace, *, stem: str) -> i
 
 
 def _rerender(folder: Path, args: argparse.Namespace) -> int:
+    from trapbudget.reports.conclusion import conclusion_text
     from trapbudget.reports.render import rerender_report
     from trapbudget.reports.results import study_json
-    from trapbudget.reports.terminal import budget_tables
+    from trapbudget.reports.terminal import budget_tables, print_bottom_line
 
     datasets, study, written = rerender_report(folder)
     ranked = "summary" in datasets and "budget" in datasets
@@ -255,6 +257,7 @@ def _rerender(folder: Path, args: argparse.Namespace) -> int:
     console = stdout_console(args)
     if console is not None:
         if ranked:
+            print_bottom_line(console, conclusion_text(datasets, study))
             for table in budget_tables(datasets["summary"], datasets["budget"]):
                 console.print(table)
         console.print(f"Report: {written / 'report.html'}")

@@ -13,6 +13,7 @@ import xarray as xr
 
 from trapbudget.reports import figures
 from trapbudget.reports.blocks import Figure, Section, Table, Text
+from trapbudget.reports.conclusion import bottom_line_section
 from trapbudget.reports.formatting import (
     format_number,
     format_percent,
@@ -302,6 +303,7 @@ def safety_section(datasets: Datasets, study: Mapping[str, Any]) -> Section:
 
 
 CORE_BUILDERS = [
+    bottom_line_section,
     study_section,
     inputs_section,
     outputs_section,

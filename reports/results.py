@@ -13,6 +13,7 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
+from trapbudget.reports.conclusion import bottom_line
 from trapbudget.reports.formatting import output_unit
 
 __all__ = ["dim_records", "plain_value", "prediction_json", "study_json"]
@@ -128,6 +129,9 @@ def study_json(datasets: Mapping[str, xr.Dataset], study: Mapping[str, Any]) -> 
         result["requirements"] = dim_records(datasets["requirements"], "requirement")
     if "linear_check" in datasets and "output" in datasets["linear_check"].dims:
         result["linear_check"] = dim_records(datasets["linear_check"], "output")
+    findings, conclusion = bottom_line(datasets, study)
+    result["conclusion"] = conclusion
+    result["findings"] = findings
     samples = datasets.get("samples")
     if samples is not None and samples.attrs.get("validity_counts"):
         result["validity_counts"] = {

@@ -19,7 +19,13 @@ from trapbudget.reports.formatting import (
     output_unit,
 )
 
-__all__ = ["budget_tables", "inputs_rich_tables", "prediction_table", "species_rich_table"]
+__all__ = [
+    "budget_tables",
+    "inputs_rich_tables",
+    "prediction_table",
+    "print_bottom_line",
+    "species_rich_table",
+]
 
 
 def prediction_table(linear: xr.Dataset, *, title: str = "", top: int = 3) -> Table:
@@ -154,3 +160,20 @@ def inputs_rich_tables(
     for row in outputs:
         outs.add_row(str(row["name"]), str(row["unit"]), str(row["meaning"]))
     return [inputs, outs]
+
+
+def print_bottom_line(console: Any, sentences: Sequence[str]) -> None:
+    """Print the bottom-line sentences, verdicts in colour, wrapped to the console width."""
+    from rich.text import Text as RichText
+
+    styles = {"MET": "bold green", "MISSED": "bold red", "CAUTION": "bold yellow", "NEXT": "bold"}
+    console.print(RichText("Bottom line", style="bold underline"))
+    for sentence in sentences:
+        word, _, rest = sentence.partition(": ")
+        text = RichText("- ")
+        if word in styles:
+            text.append(word, style=styles[word])
+            text.append(": " + rest)
+        else:
+            text.append(sentence)
+        console.print(text)
