@@ -21,7 +21,7 @@ A finding is a plain record with a ``kind``:
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
@@ -108,7 +108,8 @@ def _driver_findings(budget: xr.Dataset) -> list[dict[str, Any]]:
 
 def _limit_text(item: Mapping[str, Any]) -> str:
     kind, unit = item["requirement_kind"], item.get("limit_units", "")
-    low, high = item.get("limit_low"), item.get("limit_high")
+    low, high = _float(item.get("limit_low")), _float(item.get("limit_high"))
+    low, high = (math.nan if v is None else v for v in (low, high))
     if kind == "at_least":
         return f"at least {format_quantity(low, unit)}"
     if kind == "at_most":
@@ -149,7 +150,7 @@ def _requirement_sentence(item: Mapping[str, Any], level: str) -> str:
     )
 
 
-def _driver_sentence(output: str, drivers: list[Mapping[str, Any]], head: str) -> str:
+def _driver_sentence(output: str, drivers: Sequence[Mapping[str, Any]], head: str) -> str:
     named = ", ".join(f"{d['input']} {format_percent(d['share'], digits=0)}" for d in drivers)
     label = drivers[0]["index_label"]
     return f"{head} is driven by {named} ({label}: share of its variance)."
