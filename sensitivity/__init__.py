@@ -68,6 +68,7 @@ _LOCATIONS: dict[str, str] = {
     "read_measurements": "trapbudget.sensitivity.lab.datafiles",
     "register_model": "trapbudget.sensitivity.scenario.registry",
     "run_study": "trapbudget.sensitivity.study",
+    "scan": "trapbudget.sensitivity.scanning",
     "saltelli_design": "trapbudget.sensitivity.indices.sobol",
     "save_dataset": "trapbudget.sensitivity.io",
     "scenario_to_toml": "trapbudget.sensitivity.scenario.writer",
@@ -132,6 +133,7 @@ __all__ = [
     "run_study",
     "saltelli_design",
     "save_dataset",
+    "scan",
     "scenario_to_toml",
     "select_outputs",
     "shapley_plan",
@@ -190,6 +192,7 @@ if TYPE_CHECKING:  # for type checkers and IDEs: the same names, imported eagerl
     )
     from trapbudget.sensitivity.ranking import rank
     from trapbudget.sensitivity.sampling import transform, unit_design
+    from trapbudget.sensitivity.scanning import scan
     from trapbudget.sensitivity.scenario.core import Scenario
     from trapbudget.sensitivity.scenario.costs import CostTier, SmoothCost, TieredCost
     from trapbudget.sensitivity.scenario.distributions import Tolerance
