@@ -31,6 +31,7 @@ __all__ = [
     "interaction_figure",
     "scatter_figure",
     "subplots",
+    "tick_label",
 ]
 
 BLUE = "#2b5d8a"
@@ -52,6 +53,8 @@ FIGURE_STYLE: dict[str, Any] = {
     "axes.labelsize": 9,
     "legend.fontsize": 8,
     "legend.frameon": False,
+    # no "1e-9" offset text drawn over the axis title: values carry SI-prefixed units instead
+    "axes.formatter.useoffset": False,
 }
 
 
@@ -65,8 +68,37 @@ def subplots(*args: Any, figsize: tuple[float, float] | None = None, **kwargs: A
     return fig, fig.subplots(*args, **kwargs)
 
 
+def tick_label(value: float, _position: Any = None) -> str:
+    """A tick label that carries its own power of ten: ``0.5``, ``250``, ``4×10^9``.
+
+    Matplotlib's default puts a shared multiplier or offset ("1e9", "1e-9") at the end of
+    the axis, where it collides with the axis title and is easily missed.
+    """
+    if value == 0 or not np.isfinite(value):
+        return "0" if value == 0 else ""
+    text = f"{value:.6g}"
+    if "e" not in text:
+        return text
+    mantissa, exponent = text.split("e")
+    power = rf"10^{{{int(exponent)}}}"
+    return rf"${power}$" if mantissa in ("1", "1.0") else rf"${mantissa}\times{power}$"
+
+
+def _plain_ticks(fig: Figure) -> None:
+    from matplotlib.ticker import FuncFormatter, ScalarFormatter
+
+    for ax in fig.axes:
+        for axis in (ax.xaxis, ax.yaxis):
+            if type(axis.get_major_formatter()) is ScalarFormatter:
+                axis.set_major_formatter(FuncFormatter(tick_label))
+
+
 def figure_png(fig: Figure) -> bytes:
-    """The figure as PNG bytes (no timestamp metadata, so reports are reproducible)."""
+    """The figure as PNG bytes (no timestamp metadata, so reports are reproducible).
+
+    Linear axes get :func:`tick_label` ticks (no shared multiplier over the axis title).
+    """
+    _plain_ticks(fig)
     buffer = io.BytesIO()
     fig.savefig(buffer, format="png", dpi=110, bbox_inches="tight", metadata={"Software": None})
     return buffer.getvalue()
