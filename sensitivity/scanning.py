@@ -170,6 +170,10 @@ def scan(
     grids = [_grid(scenario, n, ranges.get(n), c, span) for n, c in pairs]
     model = scenario.model
     keep = list(outputs) if outputs is not None else list(scenario.outputs)
+    known = [o for o in (getattr(model, "outputs", None) or {}) if o != "validity"]
+    unknown = [o for o in keep if known and o not in known]
+    if unknown:
+        raise UsageError(f"the model has no output {unknown[0]!r}; outputs are {', '.join(known)}")
 
     uncertain = list(scenario.inputs)
     others, idx_s, b, chol = _conditional(scenario.correlation, uncertain, names)

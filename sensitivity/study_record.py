@@ -205,13 +205,15 @@ def describe_study(
         model's assumptions.
     """
     datasets = datasets or {}
-    budget = datasets.get("budget")
-    samples = datasets.get("samples")
     settings = getattr(scenario, "settings", None)
     n_eval = 0
-    for ds in (samples, budget):
-        if ds is not None:
-            n_eval += int(ds.attrs.get("n_evaluations", ds.sizes.get("sample", 0)) or 0)
+    for name, ds in datasets.items():
+        if ds is None or not hasattr(ds, "attrs"):
+            continue
+        if "n_evaluations" in ds.attrs:
+            n_eval += int(ds.attrs["n_evaluations"] or 0)
+        elif name == "samples":
+            n_eval += int(ds.sizes.get("sample", 0))
     source = getattr(scenario, "source", None)
     return {
         "title": str(scenario.title),
