@@ -25,6 +25,7 @@ from collections.abc import Callable, Sequence
 from trapbudget.cli.decisions import add_compare, add_spec
 from trapbudget.cli.lab import add_calibrate, add_diagnose
 from trapbudget.cli.options import PROG, _Parser
+from trapbudget.cli.scan import add_scan
 from trapbudget.cli.study import (
     add_demo,
     add_inputs,
@@ -42,6 +43,7 @@ __all__ = ["SUBCOMMANDS", "build_parser", "main"]
 SUBCOMMANDS: list[Callable[[argparse._SubParsersAction], None]] = [
     add_predict,
     add_rank,
+    add_scan,
     add_spec,
     add_compare,
     add_report,

@@ -5,7 +5,9 @@ from __future__ import annotations
 import argparse
 import datetime as _dt
 import math
+import re
 from pathlib import Path
+from typing import Any
 
 from trapbudget.sensitivity.errors import UsageError
 
@@ -37,7 +39,16 @@ DEMO_SCENARIO = "harrier-rb87.toml"
 
 
 class _Parser(argparse.ArgumentParser):
-    """An ArgumentParser whose usage errors raise :class:`UsageError` instead of exiting."""
+    """An ArgumentParser whose usage errors raise :class:`UsageError` instead of exiting.
+
+    A value that starts with a minus and a digit (``-12MHz``, ``-3.5``) is a value, not an
+    option: no option of trapbudget looks like a negative number, and detunings are negative.
+    """
+
+    def __init__(self, *args: Any, **kwargs: Any) -> None:
+        super().__init__(*args, **kwargs)
+        # argparse's own pattern (Python 3.10-3.13) accepts only bare negative numbers
+        self._negative_number_matcher = re.compile(r"^-\.?\d")
 
     def error(self, message: str) -> None:  # type: ignore[override]
         raise UsageError(f"{self.prog}: {message}; see '{self.prog} --help'")

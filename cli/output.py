@@ -77,13 +77,21 @@ def progress_reporter(
         yield lambda description: None
         return
     from rich.console import Console
-    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TimeElapsedColumn
+    from rich.progress import (
+        BarColumn,
+        MofNCompleteColumn,
+        Progress,
+        TimeElapsedColumn,
+        TimeRemainingColumn,
+    )
 
     bar = Progress(
         "[progress.description]{task.description}",
         BarColumn(),
         MofNCompleteColumn(),
         TimeElapsedColumn(),
+        "left",
+        TimeRemainingColumn(),
         console=Console(file=sys.stderr),
         transient=False,
     )
