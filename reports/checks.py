@@ -84,6 +84,7 @@ _CHECK_COLUMNS = (
     ("d_high", "d high", True),
     ("numerical_tolerance", "delta", True),
     ("validated", "linear result validated", False),
+    ("validated_digits", "validated to digits", False),
 )
 
 
@@ -98,8 +99,11 @@ def linear_section(datasets: Datasets, study: Mapping[str, Any]) -> Section | No
             "First-order propagation (GUM, JCGM 100) at the nominal point against the Monte "
             "Carlo result (JCGM 101). The linear result is validated when both ends of its "
             f"{level} interval lie within the numerical tolerance delta of the Monte Carlo "
-            "interval (JCGM 101 section 8); otherwise the model is not linear enough over "
-            "the tolerances and the Monte Carlo result is the one to use."
+            "interval (JCGM 101 section 8.2), delta being half a unit in the last of the "
+            f"{study.get('significant_digits', 2)} significant digits of the Monte Carlo "
+            "standard uncertainty; 'validated to digits' gives the most digits (of 1 and 2) "
+            "at which it holds, 0 for neither. Where it fails the model is not linear enough "
+            "over the tolerances and the Monte Carlo result is the one to use."
         )
     ]
     linear_outputs = [str(o) for o in linear["output"].values]

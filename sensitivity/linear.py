@@ -232,7 +232,8 @@ def compare_linear_monte_carlo(
         From ``propagate.summarize`` on Monte Carlo samples (same outputs; its
         ``confidence_level`` is used for both intervals).
     significant_digits : int
-        Digits of the Monte Carlo u(y) that set ``delta``.
+        Digits n_dig of the Monte Carlo u(y) that set ``delta`` (JCGM 101 8.2: u(y) =
+        c x 10^l with c an n_dig-digit integer, delta = 10^l / 2); 1 or 2 in practice.
 
     Returns
     -------
@@ -240,8 +241,10 @@ def compare_linear_monte_carlo(
         Dim ``output`` (the outputs in both): ``linear_std``, ``monte_carlo_std``,
         ``std_ratio`` (linear / MC), ``linear_low``, ``linear_high``,
         ``monte_carlo_low``, ``monte_carlo_high``, ``d_low``, ``d_high``,
-        ``numerical_tolerance`` (delta), ``std_agrees``, ``interval_agrees``,
-        ``validated`` (both agree).
+        ``numerical_tolerance`` (delta), ``std_agrees`` (|u_lin - u_MC| <= delta, for
+        information), ``interval_agrees``, ``validated`` (the clause 8.2 verdict: both
+        coverage-interval endpoints within delta at ``significant_digits``) and
+        ``validated_digits`` (the largest of 1 and 2 digits at which they are, 0 if neither).
     """
     outputs = [
         o for o in linear_ds["output"].values.tolist() if o in summary_ds["output"].values.tolist()
@@ -261,6 +264,11 @@ def compare_linear_monte_carlo(
     d_high = np.abs(high_lin - mc["interval_high"].values)
     std_agrees = np.abs(u_lin - u_mc) <= delta
     interval_agrees = (d_low <= delta) & (d_high <= delta)
+    # the largest number of significant digits (of 1 and 2) at which the endpoints agree
+    validated_digits = np.zeros(len(outputs), dtype=np.int64)
+    for digits in (1, 2):
+        tol = np.array([numerical_tolerance(v, significant_digits=digits) for v in u_mc])
+        validated_digits[(d_low <= tol) & (d_high <= tol)] = digits
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = np.where(u_mc > 0, u_lin / u_mc, math.nan)
     ds = xr.Dataset(
@@ -277,7 +285,8 @@ def compare_linear_monte_carlo(
             "numerical_tolerance": ("output", delta),
             "std_agrees": ("output", std_agrees),
             "interval_agrees": ("output", interval_agrees),
-            "validated": ("output", std_agrees & interval_agrees),
+            "validated": ("output", interval_agrees),
+            "validated_digits": ("output", validated_digits),
         },
         coords={"output": outputs},
         attrs={

@@ -233,7 +233,9 @@ def run_study(
         "samples": samples,
         "summary": summary,
         "linear": linear,
-        "linear_check": compare_linear_monte_carlo(linear, summary),
+        "linear_check": compare_linear_monte_carlo(
+            linear, summary, significant_digits=scenario.settings.significant_digits
+        ),
         "budget": budget,
     }
     if scenario.requirements:

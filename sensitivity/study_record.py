@@ -229,6 +229,7 @@ def describe_study(
         "n_evaluations": n_eval,
         "method": str(getattr(settings, "method", "") or ""),
         "confidence_level": float(getattr(settings, "confidence_level", 0.95)),
+        "significant_digits": int(getattr(settings, "significant_digits", 2) or 2),
         "date": date or _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
         "sha256": str(getattr(scenario, "sha256", "") or ""),
         "scenario_file": "" if source is None else str(getattr(source, "name", source)),

@@ -83,6 +83,7 @@ def test_jcgm101_example_9_2_linear_is_validated():
     check = compare_linear_monte_carlo(lin, mc)
     assert float(check["numerical_tolerance"][0]) == pytest.approx(0.05)
     assert bool(check["validated"][0])
+    assert int(check["validated_digits"][0]) == 2
 
 
 def _mass_inputs():
@@ -111,6 +112,10 @@ def test_jcgm101_example_9_3_linear_fails_validation():
     check = compare_linear_monte_carlo(lin, mc)
     assert not bool(check["validated"][0])
     assert not bool(check["std_agrees"][0]) and not bool(check["interval_agrees"][0])
+    # JCGM 101:2008 9.3.2 (from memory): the GUF interval misses the MCM one by several
+    # hundredths of a mg at either end, more than delta = 0.005 mg even at one digit
+    assert int(check["validated_digits"][0]) == 0
+    assert float(check["d_high"][0]) * 1e6 > 0.005
     assert float(check["std_ratio"][0]) == pytest.approx(0.0539 / 0.0754, rel=0.02)
 
 
