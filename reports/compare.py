@@ -111,21 +111,54 @@ def _requirement_rows(ds: xr.Dataset) -> list[list[str]]:
     return rows
 
 
+def _is_probability(ds: xr.Dataset) -> bool:
+    return str(ds.attrs.get("benefit_metric", "")).startswith("probability")
+
+
+def upgrade_columns(ds: xr.Dataset) -> list[str]:
+    """Headers of the ranking table, each with its unit."""
+    currency = str(ds.attrs.get("currency", ""))
+    first = str(ds.attrs.get("benefit_first_output", "first output"))
+    gain = "Runs meeting reqs. (+pp)" if _is_probability(ds) else f"Var({first}) removed (%)"
+    per = f"{'pp' if _is_probability(ds) else '%'} per 1,000 {currency}".strip()
+    columns = ["Rank", "Upgrade", "Cost", gain]
+    if _is_probability(ds):
+        columns.append(f"Var({first}) removed")
+    return [*columns, per]
+
+
+def benefit_definition(ds: xr.Dataset) -> str:
+    """What 'benefit' means, in words, with its unit."""
+    first = str(ds.attrs.get("benefit_first_output", "the first output"))
+    if _is_probability(ds):
+        return (
+            "Benefit: the gain in the share of runs that meet each requirement, in percentage "
+            "points (pp), summed over the requirements; ranked by benefit per 1,000 of cost. "
+            f"Options equal there (as when several reach every requirement on every run) are "
+            f"ordered by the share of the variance of {first} they remove per cost."
+        )
+    return (
+        f"Benefit: the share of the variance of {first} the option removes, in %, ranked per "
+        "1,000 of cost (no option moves the probability of meeting a requirement)."
+    )
+
+
 def _upgrade_rows(ds: xr.Dataset) -> list[list[str]]:
     currency = str(ds.attrs.get("currency", ""))
     rows = []
     for option in sorted(_options(ds), key=lambda u: int(ds["rank"].sel(upgrade=u))):
         item = ds.sel(upgrade=option)
-        per_cost = float(item["benefit_per_cost"])
-        rows.append(
-            [
-                str(int(item["rank"])),
-                option,
-                f"{float(item['cost']):,.0f} {currency}".strip(),
-                format_number(float(item["benefit"])),
-                "free" if math.isinf(per_cost) else format_number(per_cost),
-            ]
-        )
+        per_cost = 1000.0 * 100.0 * float(item["benefit_per_cost"])
+        row = [
+            str(int(item["rank"])),
+            option,
+            f"{float(item['cost']):,.0f} {currency}".strip(),
+            format_number(100.0 * float(item["benefit"])),
+        ]
+        if _is_probability(ds) and "variance_removed_first" in item:
+            row.append(format_percent(float(item["variance_removed_first"]), digits=0))
+        row.append("free" if math.isinf(per_cost) else format_number(per_cost))
+        rows.append(row)
     return rows
 
 
@@ -230,13 +263,16 @@ def comparison_json(ds: xr.Dataset) -> dict[str, Any]:
         "repetition_rate",
         "currency",
         "benefit_metric",
+        "benefit_first_output",
     )
     out: dict[str, Any] = {k: plain_value(ds.attrs[k]) for k in keys if k in ds.attrs}
+    if "upgrade" in ds.dims:
+        out["benefit_definition"] = benefit_definition(ds)
     changes = []
     for option in _options(ds):
         item = _pick(ds, option)
         entry: dict[str, Any] = {"name": option}
-        for key in ("cost", "benefit", "benefit_per_cost", "rank"):
+        for key in ("cost", "benefit", "benefit_per_cost", "variance_removed_first", "rank"):
             if key in item:
                 entry[key] = plain_value(item[key])
         if "upgrade" not in ds.dims:
@@ -256,8 +292,10 @@ def comparison_rich_tables(ds: xr.Dataset) -> list[Any]:
     tables = []
     if "upgrade" in ds.dims:
         ranking = RichTable(title="Upgrades ranked by improvement per unit cost")
-        for column in ("Rank", "Upgrade", "Cost", "Benefit", "Per unit cost"):
-            ranking.add_column(column)
+        for column in upgrade_columns(ds):
+            ranking.add_column(column, overflow="fold")
+        ranking.caption = benefit_definition(ds)
+        ranking.caption_justify = "left"
         for row in _upgrade_rows(ds):
             ranking.add_row(*row)
         tables.append(ranking)
@@ -271,7 +309,7 @@ def comparison_rich_tables(ds: xr.Dataset) -> list[Any]:
             "Interval after",
             "Variance removed",
         ):
-            table.add_column(column)
+            table.add_column(column, overflow="fold")
         for row in _output_rows(ds, option):
             table.add_row(*row)
         tables.append(table)
@@ -295,13 +333,13 @@ def compare_section(
         return None
     blocks: list[Any] = [Text(plain_summary(ds))]
     if "upgrade" in ds.dims:
+        columns = upgrade_columns(ds)
         blocks.append(
             Table(
-                ["Rank", "Upgrade", "Cost", "Benefit", "Benefit per unit cost"],
+                columns,
                 _upgrade_rows(ds),
-                caption=f"Options ranked by improvement per unit cost (benefit: "
-                f"{ds.attrs.get('benefit_metric', '')})",
-                numeric=[True, False, True, True, True],
+                caption="Options ranked by improvement per unit cost. " + benefit_definition(ds),
+                numeric=[True, False, *([True] * (len(columns) - 2))],
             )
         )
     for option in _options(ds):

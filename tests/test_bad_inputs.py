@@ -17,6 +17,7 @@ from trapbudget.cli.main import main
 
 DEMO_FILES = (
     "harrier-rb87.toml",
+    "harrier-cs133.toml",
     "harrier-upgrade.toml",
     "harrier-detuning-scan.csv",
     "harrier-week-log.csv",
@@ -327,3 +328,15 @@ def test_a_scenario_without_tolerances_has_nothing_to_rank(capsys, tmp_path):
     assert code == 1
     assert re.search(r"fixed\.toml: inputs: no input has a tolerance", one_line(err))
     assert run(capsys, ["predict", path, "--quiet"])[0] == 0
+
+
+def test_compare_of_two_species_is_refused_naming_the_after_file(capsys, demo, tmp_path):
+    # a before/after comparison is one apparatus changed; two species share no random
+    # numbers worth pairing (common practice: each is studied on its own)
+    argv = ["compare", demo / "harrier-rb87.toml", demo / "harrier-cs133.toml"]
+    code, err = run(capsys, [*argv, "--out", tmp_path / "out", "--quiet"])
+    assert code == 1
+    line = one_line(err)
+    assert "harrier-cs133.toml: scenario.species" in line and "Cs133" in line and "Rb87" in line
+    assert "trapbudget rank" in line
+    assert not (tmp_path / "out").exists()

@@ -253,3 +253,24 @@ def test_a_different_component_changes_the_variance_as_its_coefficient_predicts(
     )
     # mean change = (b1' - b1) * mean(x1 samples): zero up to the sample mean's error u1/sqrt(n)
     assert float(ds["mean_change"].item()) == pytest.approx(0.0, abs=5 * 0.2 / math.sqrt(N))
+
+
+def test_options_that_all_reach_every_requirement_are_ordered_by_variance_removed():
+    # Both upgrades put the limit more than 7 standard deviations below the mean, so on
+    # 2^12 common draws every run passes after either (normal tail 1e-12, scipy.stats.norm):
+    # their probability gains are exactly equal, and the one that removes more variance
+    # (linear model: 1 - scale^2 of Var, references.md [F]) must rank first.
+    sigma = math.sqrt(sum((LIN[k] * s) ** 2 for k, s in (("x1", 0.2), ("x2", 0.3), ("x3", 0.4))))
+    limit = OFFSET - 1.5 * sigma
+
+    def scaled(name, scale):
+        changes = {k: {"tolerance": s * scale} for k, s in (("x1", 0.2), ("x2", 0.3), ("x3", 0.4))}
+        return {"name": name, "cost": 1000, "changes": changes}
+
+    upgrades = [scaled("fifth", 0.2), scaled("tenth", 0.1), scaled("nothing", 1.0)]
+    ds = compare_upgrades(_scenario(upgrades, limit=limit, n_samples=2**12))
+    gains = ds["benefit"].sel(upgrade=["fifth", "tenth"]).values
+    assert gains[0] == gains[1] > 0
+    removed = ds["variance_removed_first"].sel(upgrade=["fifth", "tenth"]).values
+    assert removed == pytest.approx([1 - 0.2**2, 1 - 0.1**2], abs=1e-9)
+    assert [int(ds["rank"].sel(upgrade=u)) for u in ("tenth", "fifth", "nothing")] == [1, 2, 3]

@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Sequence
+from typing import Any
 
 import numpy as np
 import xarray as xr
@@ -272,6 +273,21 @@ def _settings(scenario: Scenario, n_samples, method, rng):
     return options.n_samples, options.method, options.rng, options.confidence_level
 
 
+def _same_species(before: Any, after: Any) -> None:
+    """Refuse a before/after pair of two species: that is not a change to one apparatus."""
+    from trapbudget.sensitivity.errors import ScenarioError
+
+    a, b = str(getattr(before, "species", "") or ""), str(getattr(after, "species", "") or "")
+    if a and b and a != b:
+        raise ScenarioError(
+            f"the 'after' scenario is {b} but 'before' is {a}; compare judges one apparatus "
+            "before and after a change on common random numbers, which two species do not "
+            "share (different atoms, lines and vapor); run 'trapbudget rank' on each instead",
+            path=getattr(after, "source", None),
+            key="scenario.species",
+        )
+
+
 def compare(
     before: Scenario,
     after: Scenario,
@@ -310,7 +326,13 @@ def compare(
     xarray.Dataset
         As :func:`compare_samples`, judged against the requirements of
         ``before`` (a change must not move the goalposts).
+
+    Raises
+    ------
+    ScenarioError
+        When ``before`` and ``after`` are of different species.
     """
+    _same_species(before, after)
     n, m, r, level = _settings(before, n_samples, method, rng)
     outs = list(outputs) if outputs is not None else _required_outputs(before, None)
     unit, blocks = replicated_unit(n, len(_uncertain_names([before, after])), method=m, rng=r)
@@ -336,20 +358,31 @@ def compare(
     return ds
 
 
-def _benefit(parts: Sequence[xr.Dataset]) -> tuple[np.ndarray, str]:
-    """Improvement of each change, one metric for the whole set: probability gained, or
-    (when no change moves any probability) the fraction of variance of the first output removed.
+def _benefit(parts: Sequence[xr.Dataset]) -> tuple[np.ndarray, np.ndarray, str]:
+    """Improvement of each change: the probability gained (summed over the requirements),
+    and the fraction of the variance of the first output removed, which breaks ties.
+
+    When no change moves any probability the variance removed is the benefit itself.
     """
     shifts = [
         np.nan_to_num(p["probability_shift"].values, nan=0.0) if "probability_shift" in p else None
         for p in parts
     ]
+    first = str(parts[0]["output"].values[0])
+    removed = np.array([float(p["variance_removed_fraction"].sel(output=first)) for p in parts])
     if any(s is not None and np.any(s != 0) for s in shifts):
         values = np.array([float(np.sum(s)) if s is not None else 0.0 for s in shifts])
-        return values, "probability gained, summed over requirements"
-    first = str(parts[0]["output"].values[0])
-    values = np.array([float(p["variance_removed_fraction"].sel(output=first)) for p in parts])
-    return values, f"fraction of Var({first}) removed"
+        return values, removed, "probability gained, summed over requirements"
+    return removed, removed, f"fraction of Var({first}) removed"
+
+
+def _per_cost(values: np.ndarray, costs: np.ndarray) -> np.ndarray:
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(
+            costs > 0,
+            values / costs,
+            np.where(values > 0, np.inf, np.where(values < 0, -np.inf, 0.0)),
+        )
 
 
 def compare_upgrades(
@@ -381,8 +414,11 @@ def compare_upgrades(
         ``upgrade``, plus ``cost``, ``benefit`` (summed probability gained over
         the requirements, or the fraction of variance of the first output
         removed when there are no probability requirements),
-        ``benefit_per_cost`` (``inf`` for a free improvement) and ``rank``
-        (1 = best improvement per unit cost).
+        ``benefit_per_cost`` (``inf`` for a free improvement),
+        ``variance_removed_first`` (fraction of the variance of the first output
+        removed) and ``rank`` (1 = best improvement per unit cost; options with equal
+        benefit per cost, as when several reach every requirement on every run, are
+        ordered by the variance they remove per cost).
 
     Raises
     ------
@@ -432,19 +468,19 @@ def compare_upgrades(
         if key in ds:
             ds[key] = ds[key].isel(upgrade=0, drop=True)
     costs = np.array([float(u.cost) for u in upgrades])
-    benefit, metric = _benefit(parts)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        per_cost = np.where(
-            costs > 0,
-            benefit / costs,
-            np.where(benefit > 0, np.inf, np.where(benefit < 0, -np.inf, 0.0)),
-        )
-    order = np.argsort(-per_cost, kind="stable")
+    benefit, removed, metric = _benefit(parts)
+    per_cost = _per_cost(benefit, costs)
+    # rank by benefit per cost; options equal there (several reach the same probability,
+    # e.g. every run passes) are ordered by the variance they remove per cost
+    order = np.lexsort((-_per_cost(removed, costs), -per_cost))
     rank = np.empty(len(names), dtype=int)
     rank[order] = np.arange(1, len(names) + 1)
     ds["cost"] = ("upgrade", costs)
     ds["benefit"] = ("upgrade", benefit)
     ds["benefit_per_cost"] = ("upgrade", per_cost)
+    first = str(parts[0]["output"].values[0])
+    ds["variance_removed_first"] = ("upgrade", removed)
+    ds["variance_removed_first"].attrs["long_name"] = f"fraction of Var({first}) removed"
     ds["rank"] = ("upgrade", rank)
     ds.attrs.pop("cost", None)
     ds.attrs.update(
@@ -453,5 +489,6 @@ def compare_upgrades(
         method=m,
         seed=r if isinstance(r, int) else "",
         benefit_metric=metric,
+        benefit_first_output=first,
     )
     return ds
