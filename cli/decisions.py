@@ -91,7 +91,12 @@ def add_compare(subparsers: argparse._SubParsersAction) -> None:
 def _run_spec(args: argparse.Namespace) -> int:
     scenario = load(args.scenario)
     from trapbudget.reports.render import write_report
-    from trapbudget.reports.spec import allocation_json, allocation_rich_table
+    from trapbudget.reports.spec import (
+        SPEC_SHEET_FILE,
+        allocation_json,
+        allocation_rich_table,
+        spec_sheet_csv,
+    )
     from trapbudget.sensitivity.decisions.allocate import allocate
     from trapbudget.sensitivity.decisions.allocation import InfeasibleError
     from trapbudget.sensitivity.study_record import describe_study
@@ -109,15 +114,21 @@ def _run_spec(args: argparse.Namespace) -> int:
     study = describe_study(scenario, seed=seed, n_samples=n, datasets=datasets)
     result = allocation_json(ds)
     written = write_report(
-        out, datasets=datasets, study=study, result=result, scenario_file=scenario.source
+        out,
+        datasets=datasets,
+        study=study,
+        result=result,
+        scenario_file=scenario.source,
+        extra_files={SPEC_SHEET_FILE: spec_sheet_csv(ds)},
     )
     if args.json:
-        emit_json({**result, "report": str(written)})
+        emit_json({**result, "report": str(written), "spec_sheet": str(written / SPEC_SHEET_FILE)})
     else:
         console = stdout_console(args)
         if console is not None:
             console.print(allocation_rich_table(ds))
             console.print(f"Report: {written / 'report.html'}")
+            console.print(f"Spec sheet: {written / SPEC_SHEET_FILE}")
     if not allocation.feasible:
         raise InfeasibleError(f"{allocation.reason} (report: {written})", path=scenario.source)
     return 0

@@ -225,6 +225,7 @@ def write_report(
     result: Mapping[str, Any] | None = None,
     scenario_file: str | os.PathLike[str] | None = None,
     extra_sections: Sequence[Section] = (),
+    extra_files: Mapping[str, str] | None = None,
 ) -> Path:
     """Write a complete report folder atomically and return its path.
 
@@ -233,6 +234,8 @@ def write_report(
     machine-readable result, when given) and a copy of the scenario file. It
     is built in a temporary folder beside ``out`` and moved into place; an
     existing ``out`` is replaced only if it is empty or a previous report.
+    ``extra_files`` maps file names to text written beside them (e.g. the spec
+    sheet as CSV); names are reduced to safe file names.
 
     Raises
     ------
@@ -252,6 +255,10 @@ def write_report(
             for name, ds in datasets.items():
                 save_dataset(ds, tmp / f"{safe_stem(name)}.nc")
             atomic_write_json(tmp / "study.json", dict(study))
+            for name, text in (extra_files or {}).items():
+                stem, _, suffix = str(name).rpartition(".")
+                safe = f"{safe_stem(stem)}.{safe_stem(suffix)}" if stem else safe_stem(suffix)
+                (tmp / safe).write_text(text, encoding="utf-8")
             if result is not None:
                 atomic_write_json(tmp / "result.json", dict(result))
             if scenario_file is not None and Path(scenario_file).is_file():

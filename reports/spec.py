@@ -29,6 +29,7 @@ __all__ = [
     "plain_summary",
     "spec_rows",
     "spec_section",
+    "spec_sheet_csv",
     "tolerance_figure",
 ]
 
@@ -49,11 +50,48 @@ def _money(value: float, currency: str) -> str:
     return f"{value:,.0f} {currency}".strip()
 
 
+def _cost_line(attrs: Mapping[str, Any], currency: str) -> str:
+    if bool(attrs.get("default_costs", False)):
+        spent = format_number(float(attrs.get("new_spending", math.nan)))
+        return f"default prices (t_present / t), {spent} units above the present set-up"
+    new = _money(float(attrs.get("new_spending", math.nan)), currency)
+    level = _money(float(attrs.get("total_cost", math.nan)), currency)
+    return f"new spending {new} (price level {level})"
+
+
+def _spending_text(attrs: Mapping[str, Any], currency: str) -> str:
+    """What must be bought, in words: new spending first, the price level beside it."""
+    if bool(attrs.get("default_costs", False)):
+        return (
+            "The scenario has no cost tables, so every input is priced by the stated default: "
+            "holding it to a tolerance t costs t_present / t (1 at the present tolerance, 2 "
+            "at half of it; tightening any input by the same factor is equally hard). The "
+            "least tightening found that meets the requirements costs "
+            f"{format_number(float(attrs.get('new_spending', math.nan)))} of these units "
+            "above the present set-up."
+        )
+    new = _money(float(attrs.get("new_spending", math.nan)), currency)
+    level = _money(float(attrs.get("total_cost", math.nan)), currency)
+    return (
+        f"The cheapest way found to meet the requirements needs new spending of {new} "
+        f"(the price level of the whole allocation is {level}; relaxing an input refunds "
+        "nothing)."
+    )
+
+
+def _percent_text(text: str) -> str:
+    """A relative tolerance as written (``"2.01995 %"``) rounded to three digits."""
+    try:
+        return f"{format_number(float(text.strip()[:-1]))} %"
+    except ValueError:
+        return text.strip()
+
+
 def _tol(value: float, unit: str, text: str) -> str:
     if not math.isfinite(value):
         return "any"
     shown = format_quantity(value, unit) if unit else format_number(value)
-    return f"{text} ({shown})" if text.strip().endswith("%") else shown
+    return f"{_percent_text(text)} ({shown})" if text.strip().endswith("%") else shown
 
 
 def spec_rows(allocation: xr.Dataset) -> list[list[str]]:
@@ -78,6 +116,78 @@ def spec_rows(allocation: xr.Dataset) -> list[list[str]]:
             ]
         )
     return rows
+
+
+#: Name of the spec sheet written beside a ``spec`` report.
+SPEC_SHEET_FILE = "spec-sheet.csv"
+
+
+def spec_sheet_csv(allocation: xr.Dataset) -> str:
+    """The spec sheet as CSV text, one row per uncertain input.
+
+    Columns: ``input``, ``unit`` (the display unit every value of the row is in),
+    ``nominal``, ``tolerance_now``, ``tolerance_specified`` (both in the sense of
+    ``meaning``: standard uncertainty, half-width or expanded uncertainty), ``meaning``,
+    ``shape``, ``cost`` (in the scenario's currency, or relative units with the default
+    prices; empty for inputs without a cost model), ``set_by`` (the requirement that
+    binds the tolerance; empty where the cheapest option already suffices). Numbers carry
+    six significant digits; an infeasible allocation leaves ``tolerance_specified`` empty.
+    """
+    import csv
+    import io
+
+    from trapbudget.sensitivity.scenario.units import display_unit, ureg
+
+    currency = str(allocation.attrs.get("currency", ""))
+    if bool(allocation.attrs.get("default_costs", False)):
+        currency = "relative"
+    feasible = bool(allocation.attrs.get("feasible", False))
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, lineterminator="\n")
+    cost_header = f"cost_{currency}" if currency else "cost"
+    writer.writerow(
+        [
+            "input",
+            "unit",
+            "nominal",
+            "tolerance_now",
+            "tolerance_specified",
+            "meaning",
+            "shape",
+            cost_header,
+            "set_by",
+        ]
+    )
+
+    def number(value: float) -> str:
+        return f"{value:.6g}" if math.isfinite(value) else ""
+
+    for name in allocation["input"].values:
+        item = allocation.sel(input=name)
+        unit = str(item["unit"].values)
+        nominal = float(item["nominal"]) if "nominal" in item else math.nan
+        present = float(item["present_tolerance"])
+        shown = display_unit(unit, abs(present) if present else abs(nominal))
+        factor = 1.0
+        if unit and shown != unit:
+            factor = float(ureg.Quantity(1.0, unit).to(shown).magnitude)
+        free = bool(item["free"].values)
+        required = float(item["required_tolerance"]) if free and feasible else math.nan
+        cost = float(item["cost"]) if free else math.nan
+        writer.writerow(
+            [
+                str(name),
+                shown,
+                number(nominal * factor),
+                number(present * factor),
+                number(required * factor) if free else number(present * factor),
+                str(item["meaning"].values) if "meaning" in item else "",
+                str(item["shape"].values) if "shape" in item else "",
+                number(cost),
+                str(item["binding"].values),
+            ]
+        )
+    return buffer.getvalue()
 
 
 def _requirement_rows(allocation: xr.Dataset) -> list[list[str]]:
@@ -135,10 +245,7 @@ def plain_summary(allocation: xr.Dataset) -> str:
         if math.isfinite(p):
             reqs.append(f"'{label}' holds in about {format_percent(p)} of runs")
     bought = "; ".join(changes) if changes else "no change to the present set-up"
-    text = (
-        f"The cheapest way found to meet the requirements costs "
-        f"{_money(float(attrs.get('total_cost', math.nan)), currency)} and buys {bought}."
-    )
+    text = f"{_spending_text(attrs, currency)} It buys {bought}."
     if relaxed:
         text += f" These may be relaxed: {', '.join(relaxed)}."
     if kept:
@@ -190,6 +297,8 @@ def allocation_json(allocation: xr.Dataset) -> dict[str, Any]:
         "feasible",
         "reason",
         "total_cost",
+        "new_spending",
+        "default_costs",
         "currency",
         "blocking_input",
         "failing_requirement",
@@ -206,22 +315,63 @@ def allocation_json(allocation: xr.Dataset) -> dict[str, Any]:
 
 
 def allocation_rich_table(allocation: xr.Dataset) -> Any:
-    """The spec sheet as a rich table for the terminal."""
+    """The spec sheet as a rich table for the terminal (fits 80 columns).
+
+    Tolerances in each input's display unit, the tightening factor, the cost and the
+    tier chosen; which requirement sets which tolerances is said below the table.
+    """
+    from rich import box
     from rich.table import Table as RichTable
 
     currency = str(allocation.attrs.get("currency", ""))
     title = "Spec sheet: " + (
-        f"total cost {_money(float(allocation.attrs.get('total_cost', math.nan)), currency)}"
+        _cost_line(allocation.attrs, currency)
         if bool(allocation.attrs.get("feasible", False))
         else "no allocation meets every requirement"
     )
-    table = RichTable(title=title)
-    for i, column in enumerate(
-        ["Input", "Present", "Required", "Headroom", "Tier", "Cost", "Set by"]
-    ):
-        table.add_column(column, justify="right" if i in (1, 2, 3, 5) else "left")
-    for row in spec_rows(allocation):
-        table.add_row(*row)
+    table = RichTable(
+        title=title,
+        title_justify="left",
+        box=box.SIMPLE_HEAD,
+        pad_edge=False,
+        collapse_padding=True,
+    )
+    table.add_column("input", no_wrap=True)
+    table.add_column("now", justify="right", no_wrap=True)
+    table.add_column("required", justify="right", no_wrap=True)
+    table.add_column("tighten", justify="right", no_wrap=True)
+    table.add_column("cost", justify="right", no_wrap=True)
+    table.add_column("choice", ratio=1, overflow="fold")
+    default_costs = bool(allocation.attrs.get("default_costs", False))
+    set_by: dict[str, list[str]] = {}
+    for name in allocation["input"].values:
+        item = allocation.sel(input=name)
+        unit = str(item["unit"].values)
+        free = bool(item["free"].values)
+
+        def shown(value: float, unit: str = unit) -> str:
+            if not math.isfinite(value):
+                return "any"
+            return format_quantity(value, unit) if unit else format_number(value)
+
+        headroom = float(item["headroom"])
+        cost = float(item["cost"])
+        table.add_row(
+            str(name),
+            shown(float(item["present_tolerance"])),
+            shown(float(item["required_tolerance"])) if free else "as now",
+            f"{format_number(headroom, digits=2)}x" if free and math.isfinite(headroom) else "",
+            (format_number(cost) if default_costs else _money(cost, "")) if free else "",
+            (str(item["tier"].values) or "smooth cost") if free else "no cost model",
+        )
+        binding = str(item["binding"].values)
+        if binding:
+            set_by.setdefault(binding, []).append(str(name))
+    notes = [f"set by '{label}': {', '.join(names)}" for label, names in set_by.items()]
+    unit_note = "relative units (default prices)" if default_costs else currency
+    notes.append(f"cost in {unit_note}; tighten = now / required" if unit_note else "")
+    table.caption = "\n".join(n for n in notes if n)
+    table.caption_justify = "left"
     return table
 
 
@@ -237,8 +387,7 @@ def spec_section(datasets: Mapping[str, xr.Dataset], study: Mapping[str, Any]) -
             ["Input", "Present", "Required", "Headroom", "Tier", "Cost", "Set by"],
             spec_rows(allocation),
             caption="Spec sheet (headroom = present / required tolerance: above 1 the input "
-            f"must be tightened by that factor); total cost "
-            f"{_money(float(allocation.attrs.get('total_cost', math.nan)), currency)}",
+            f"must be tightened by that factor); {_cost_line(allocation.attrs, currency)}",
             numeric=[False, True, True, True, False, True, False],
         )
     )

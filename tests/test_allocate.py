@@ -395,12 +395,36 @@ def test_requirement_failing_at_the_nominal_point_is_reported():
     assert "fails at the nominal point" in allocation.reason
 
 
-def test_allocation_without_requirements_or_costs_is_refused():
+def test_allocation_without_requirements_is_refused():
     scenario = _linear_scenario(limit=9.0, costs=TIERS)
     with pytest.raises(ScenarioError, match="no requirements to allocate against"):
         allocate(dataclasses.replace(scenario, requirements=()))
-    with pytest.raises(ScenarioError, match=r"no cost tables, so no input is free"):
-        allocate(dataclasses.replace(scenario, costs={}))
+
+
+def test_allocation_without_cost_tables_uses_the_stated_default_prices():
+    # Default price of every uncertain input: C_i(t) = t_present_i / t (equal factors of
+    # tightening equally hard), i.e. the smooth cost with C_i = 1, r_i = t_present_i, p = 1,
+    # whose optimum is the closed form _closed_form_equal_exponent (Lagrange, derived above)
+    scenario = _linear_scenario(limit=9.0, costs={})
+    allocation = allocate(scenario, max_loosen=100.0)
+    assert allocation.feasible, allocation.reason
+    present = np.array([0.2, 0.2, 0.1])
+    a = np.array([B["x1"] ** 2, B["x2"] ** 2, B["x3"] ** 2])
+    u_bound = (OFFSET - 9.0) / stats.norm.ppf(0.95)
+    expected = _closed_form_equal_exponent(a, np.ones(3), present, 1.0, u_bound**2)
+    got = np.array([allocation.tolerances[n].value for n in ("x1", "x2", "x3")])
+    # ratios do not depend on the bound: exact; the scale within the Monte Carlo error
+    np.testing.assert_allclose(got / got[0], expected / expected[0], rtol=1e-6)
+    rel = _mc_relative_error(0.95, N_MC, 1.0) + 0.02
+    np.testing.assert_allclose(got, expected, rtol=rel)
+    spec = allocation.spec
+    assert spec.attrs["default_costs"] is True
+    assert bool(spec["free"].all())
+    # new spending: the rise of each input's price above its present price of 1, relaxing
+    # refunds nothing (definition stated in the report)
+    cost = present / got
+    assert spec.attrs["new_spending"] == pytest.approx(np.sum(np.maximum(cost - 1.0, 0.0)))
+    assert spec.attrs["total_cost"] == pytest.approx(np.sum(cost))
 
 
 def test_trap_allocation_holds_up_in_an_independent_monte_carlo_sample():

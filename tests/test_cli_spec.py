@@ -99,8 +99,53 @@ def test_spec_json_is_feasible_reproducible_and_writes_a_report(tmp_path, capsys
     )
     code, again, _ = _run(capsys, ["spec", path, "--json", "--seed", 3, "--out", tmp_path / "b"])
     first, second = json.loads(out), json.loads(again)
-    first.pop("report"), second.pop("report")
+    for result in (first, second):
+        result.pop("report"), result.pop("spec_sheet")
     assert first == second
+
+
+def test_spec_without_cost_tables_allocates_at_default_prices_and_writes_a_csv(tmp_path, capsys):
+    text = LINEAR.format(limit=9.0, x3=0.1, x1_costs=TIERS)
+    text = text[: text.index("[costs.x1]")] + text[text.index("[[upgrades]]") :]
+    path = tmp_path / "nocost.toml"
+    path.write_text(text, encoding="utf-8")
+    code, out, err = _run(capsys, ["spec", path, "--json", "--out", tmp_path / "s"])
+    assert code == 0, err
+    result = json.loads(out)
+    assert result["feasible"] is True and result["default_costs"] is True
+    # every input is free at the default price t_present / t: nothing is "held as present"
+    required = {r["input"]: r["required_tolerance"] for r in result["inputs"]}
+    assert set(required) == {"x1", "x2", "x3"}
+    # linear-Gaussian model: the allocated tolerances meet P(y >= 9) >= 0.95 within the
+    # Monte Carlo error of the 4096-run check (exact normal tail, scipy.stats.norm.sf)
+    sd = math.sqrt((2.0 * required["x1"]) ** 2 + required["x2"] ** 2 + (0.5 * required["x3"]) ** 2)
+    assert stats.norm.sf(9.0, 10.0, sd) >= 0.95 - 4 * math.sqrt(0.05 * 0.95 / 4096)
+    # the spec sheet beside the report, one row per input, values in the display unit
+    import csv
+
+    sheet = Path(result["spec_sheet"])
+    assert sheet.parent == tmp_path / "s"
+    rows = list(csv.DictReader(sheet.open(encoding="utf-8")))
+    assert [r["input"] for r in rows] == ["x1", "x2", "x3"]
+    assert list(rows[0]) == [
+        "input",
+        "unit",
+        "nominal",
+        "tolerance_now",
+        "tolerance_specified",
+        "meaning",
+        "shape",
+        "cost_relative",
+        "set_by",
+    ]
+    for row in rows:
+        assert float(row["tolerance_specified"]) == pytest.approx(required[row["input"]], rel=1e-5)
+        assert row["meaning"] == "standard" and row["shape"] == "normal"
+        # default price: present / specified tolerance
+        assert float(row["cost_relative"]) == pytest.approx(
+            float(row["tolerance_now"]) / float(row["tolerance_specified"]), rel=1e-4
+        )
+    assert {r["tolerance_now"] for r in rows} == {"0.2", "0.3", "0.1"}
 
 
 def test_spec_infeasible_requirement_names_the_blocking_input(tmp_path, capsys):

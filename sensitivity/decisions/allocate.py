@@ -155,6 +155,30 @@ def _label_of(req, index: int) -> str:
     return label or f"{req.output} {req.kind} #{index + 1}"
 
 
+#: Cost of an input at its present tolerance under the default prices (relative units).
+DEFAULT_REFERENCE_COST = 1.0
+
+
+def with_default_costs(scenario: Scenario) -> Scenario:
+    """The scenario with every uncertain input priced C(t) = t_present / t (relative units).
+
+    Used when a scenario has requirements but no cost tables: tightening any input by the
+    same factor costs the same (a smooth cost of exponent 1 referred to the present
+    tolerance; common practice for a first allocation without prices), so the allocation
+    spreads the tightening where it buys the most.
+    """
+    import dataclasses
+
+    from trapbudget.sensitivity.scenario.costs import SmoothCost
+
+    costs = {
+        name: SmoothCost(tolerance, DEFAULT_REFERENCE_COST, 1.0)
+        for name, tolerance in scenario.tolerances.items()
+        if name in scenario.inputs and float(tolerance.value) > 0
+    }
+    return dataclasses.replace(scenario, costs=costs)
+
+
 def allocate(
     scenario: Scenario,
     *,
@@ -236,12 +260,9 @@ def allocate(
             path=source,
             key="requirements",
         )
-    if not scenario.costs:
-        raise ScenarioError(
-            "no cost tables, so no input is free to change; add [costs.<input>] tiers or smooth",
-            path=source,
-            key="costs",
-        )
+    default_costs = not scenario.costs
+    if default_costs:
+        scenario = with_default_costs(scenario)
     labels = [_label_of(req, i) for i, req in enumerate(requirements)]
     setup = _linear_setup(scenario, requirements, labels)
     options = scenario.settings.resolve(n_samples=n_samples, method=method, rng=rng)
@@ -258,7 +279,7 @@ def allocate(
                 scenario, setup, tier_costs, unit, n, m, seed, safety_margin, max_loosen, progress
             )
             if searched is not None:
-                return searched
+                return _mark_default_costs(searched, default_costs)
             # Infeasible on the Monte Carlo and on the linear model: the linear pass
             # below names the requirement and the input that blocks it.
 
@@ -371,23 +392,33 @@ def allocate(
                     else "Monte Carlo check meets every requirement"
                 )
             )
-    return _result(
-        scenario,
-        setup,
-        problem,
-        solution,
-        tolerances,
-        verified,
-        feasible=feasible,
-        reason=reason,
-        failing=failing,
-        blocking=blocking,
-        n_samples=n,
-        method=m,
-        seed=seed,
-        history=tuple(history),
-        max_loosen=max_loosen,
+    return _mark_default_costs(
+        _result(
+            scenario,
+            setup,
+            problem,
+            solution,
+            tolerances,
+            verified,
+            feasible=feasible,
+            reason=reason,
+            failing=failing,
+            blocking=blocking,
+            n_samples=n,
+            method=m,
+            seed=seed,
+            history=tuple(history),
+            max_loosen=max_loosen,
+        ),
+        default_costs,
     )
+
+
+def _mark_default_costs(allocation: Allocation, default_costs: bool) -> Allocation:
+    """Record in the result whether the prices are the stated default, not the lab's."""
+    for ds in (allocation.spec, allocation.requirements):
+        ds.attrs["default_costs"] = bool(default_costs)
+    return allocation
 
 
 def _allocate_by_search(

@@ -37,7 +37,11 @@ class Allocation:
         One line: what was bought, or why no allocation meets the requirements
         (the requirement no affordable choice meets and the input that blocks it).
     total_cost : float
-        Cost of the allocation in the scenario's currency (``inf`` if infeasible).
+        Cost of the allocation in the scenario's currency (``inf`` if infeasible): the
+        price level of every free input at its allocated tolerance.
+    new_spending : float
+        (in ``spec.attrs``) what must be bought: the sum over inputs of the allocated
+        cost above the cost of the present tolerance; relaxing an input refunds nothing.
     spec : xarray.Dataset
         The spec sheet, dim ``input``: ``present_tolerance``,
         ``required_tolerance`` (tolerance values as written, absolute SI),
@@ -217,11 +221,16 @@ def _result(
             "headroom",
             "tier",
             "cost",
+            "present_cost",
+            "new_spending",
             "binding",
             "free",
             "present_text",
             "required_text",
             "unit",
+            "nominal",
+            "meaning",
+            "shape",
         )
     }
     for name in names:
@@ -251,11 +260,20 @@ def _result(
         )
         rows["tier"].append(tier)
         rows["cost"].append(cost if feasible else math.nan)
+        # what the present tolerance already costs (the price level in place); relaxing an
+        # input refunds nothing, so new spending is only the rise above it
+        held = float(model.cost(float(present.value))) if model is not None else 0.0
+        held = held if math.isfinite(held) else 0.0
+        rows["present_cost"].append(held)
+        rows["new_spending"].append(max(0.0, cost - held) if feasible else math.nan)
         rows["binding"].append(binding)
         rows["free"].append(model is not None)
         rows["present_text"].append(str(present.text or ""))
         rows["required_text"].append(str(required.text or ""))
         rows["unit"].append(str(getattr(present, "unit", "") or ""))
+        rows["nominal"].append(float(scenario.nominal.get(name, present.nominal)))
+        rows["meaning"].append(str(present.meaning))
+        rows["shape"].append(str(present.shape))
     long_names = {
         "present_tolerance": "present tolerance value (as written, SI)",
         "required_tolerance": "required tolerance value (as written, SI)",
@@ -264,11 +282,16 @@ def _result(
         "headroom": "present / required tolerance (above 1: tighten by this factor)",
         "tier": "cost tier chosen",
         "cost": "cost of the allocated tolerance",
+        "present_cost": "cost of the present tolerance (the price level in place)",
+        "new_spending": "cost above the present one (relaxing refunds nothing)",
         "binding": "requirement that sets this tolerance",
         "free": "has a cost model (free to change)",
         "present_text": "present tolerance as written",
         "required_text": "required tolerance as written",
         "unit": "SI unit of the input",
+        "nominal": "nominal value (SI)",
+        "meaning": "what the tolerance value states (standard, half-width or expanded)",
+        "shape": "distribution shape of the input",
     }
     spec = xr.Dataset(coords={"input": names})
     for key, values in rows.items():
@@ -281,6 +304,7 @@ def _result(
         "feasible": bool(feasible),
         "reason": reason,
         "total_cost": total,
+        "new_spending": float(np.nansum(rows["new_spending"])) if feasible else math.inf,
         "currency": str(getattr(scenario, "currency", "") or ""),
         "failing_requirement": failing,
         "blocking_input": blocking if not feasible else "",
