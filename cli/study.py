@@ -90,8 +90,10 @@ def add_species(subparsers: argparse._SubParsersAction) -> None:
     p = subparsers.add_parser(
         "species",
         help="the atomic data table with sources",
-        description="Atomic data of every species the models know, with the source of each value.",
+        description="Atomic data of every species the models know, with the source of each value. "
+        "Without NAME: one rounded row per species; with NAME: that species' values and sources.",
     )
+    p.add_argument("name", nargs="?", help="one species (e.g. Rb87, Cs133) with its sources")
     add_common_options(p, out=False, seed=False)
     p.set_defaults(run=_run_species)
 
@@ -334,14 +336,26 @@ def _run_species(args: argparse.Namespace) -> int:
     from trapbudget.models.catalog import species_table
 
     rows = species_table()
+    if args.name is not None:
+        from trapbudget.models.catalog import species as lookup
+
+        try:
+            wanted = lookup(args.name).name
+        except (KeyError, ValueError) as error:
+            raise UsageError(f"{PROG} species: {error}") from None
+        rows = [row for row in rows if row["name"] == wanted]
     if args.json:
-        emit_json(rows)
+        emit_json(rows if args.name is None else rows[0])
         return 0
     console = stdout_console(args)
     if console is not None:
-        from trapbudget.reports.terminal import species_rich_table
+        from trapbudget.reports.terminal import species_detail, species_rich_table
 
-        console.print(species_rich_table(rows))
+        if args.name is None:
+            console.print(species_rich_table(rows))
+            console.print(f"Values with their sources: {PROG} species NAME (or --json).")
+        else:
+            species_detail(console, rows[0])
     return 0
 
 

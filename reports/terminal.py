@@ -24,6 +24,7 @@ __all__ = [
     "inputs_rich_tables",
     "prediction_table",
     "print_bottom_line",
+    "species_detail",
     "species_rich_table",
 ]
 
@@ -107,28 +108,68 @@ def budget_tables(summary: xr.Dataset, budget: xr.Dataset, *, top: int = 5) -> l
     return tables
 
 
+#: Columns of the species table: key, header, significant digits.
+SPECIES_COLUMNS: tuple[tuple[str, str, int], ...] = (
+    ("wavelength_nm", "λ\nnm", 7),
+    ("linewidth_mhz", "Γ/2π\nMHz", 4),
+    ("saturation_intensity_mw_cm2", "I_sat\nmW/cm²", 4),
+    ("mass_u", "mass\nu", 6),
+    ("doppler_temperature_uk", "T_D\nµK", 4),
+    ("recoil_temperature_nk", "T_r\nnK", 4),
+)
+
+
+def _rounded(value: Any, digits: int) -> str:
+    try:
+        return f"{float(value):.{digits}g}"
+    except (TypeError, ValueError):
+        return str(value)
+
+
 def species_rich_table(rows: Sequence[Mapping[str, Any]]) -> Table:
-    """The atomic data table (rows of ``trapbudget.models.species.species_table``)."""
-    table = Table(title="Atomic data (cycling transition)", title_justify="left")
-    if not rows:
-        return table
-    columns = [k for k in rows[0] if k != "sources"]
-    for key in columns:
-        table.add_column(key.replace("_", " "), justify="left")
-    has_sources = "sources" in rows[0]
-    if has_sources:
-        table.add_column("sources", justify="left", overflow="fold")
+    """The atomic data table (rows of ``trapbudget.models.catalog.species_table``).
+
+    One row per species, values rounded to the digits people quote (the full values
+    and their sources are in ``--json`` and :func:`species_detail`); fits 80 columns.
+    """
+    from rich import box
+
+    table = Table(
+        title="Atomic data (cycling transition)",
+        title_justify="left",
+        box=box.SIMPLE_HEAD,
+        pad_edge=False,
+    )
+    table.add_column("species", no_wrap=True)
+    for _key, header, _digits in SPECIES_COLUMNS:
+        table.add_column(header, justify="right", no_wrap=True)
     for row in rows:
-        cells = [str(row.get(k, "")) for k in columns]
-        if has_sources:
-            src = row["sources"]
-            if isinstance(src, Mapping):
-                src = "; ".join(f"{k}: {v}" for k, v in src.items())
-            elif isinstance(src, list | tuple):
-                src = "; ".join(map(str, src))
-            cells.append(str(src))
+        cells = [str(row.get("name", ""))]
+        cells += [_rounded(row.get(key, ""), digits) for key, _h, digits in SPECIES_COLUMNS]
         table.add_row(*cells)
     return table
+
+
+def species_detail(console: Any, row: Mapping[str, Any]) -> None:
+    """Print one species: its line, each value with more digits, then the sources."""
+    from rich.table import Table as RichTable
+
+    console.print(f"[bold]{row.get('name', '')}[/bold]: {row.get('label', '')}")
+    values = RichTable(show_header=False, box=None, pad_edge=False)
+    values.add_column(no_wrap=True)
+    values.add_column(justify="right", no_wrap=True)
+    for key, header, digits in SPECIES_COLUMNS:
+        name, unit = header.split("\n")
+        values.add_row(f"{name} ({unit})", _rounded(row.get(key, ""), digits + 2))
+    console.print(values)
+    sources = row.get("sources") or {}
+    if isinstance(sources, Mapping) and sources:
+        cited = RichTable(title="Sources", title_justify="left", box=None, pad_edge=False)
+        cited.add_column("value", no_wrap=True, style="bold")
+        cited.add_column("source", ratio=1)
+        for field, text in sources.items():
+            cited.add_row(str(field), str(text))
+        console.print(cited)
 
 
 def inputs_rich_tables(

@@ -128,9 +128,30 @@ def test_species_json_lists_rubidium_with_sources(capsys):
     assert rows["Rb87"]["sources"]
 
 
-def test_species_table_prints(capsys):
+def test_species_table_fits_80_columns_and_rounds(capsys, monkeypatch):
+    monkeypatch.setenv("COLUMNS", "80")
     code, out, _ = _run(capsys, "species")
-    assert code == 0 and "Rb87" in out
+    assert code == 0
+    lines = out.splitlines()
+    assert max(len(line.rstrip()) for line in lines) <= 80
+    assert len(lines) < 30  # one line per species, not the sources folded into the table
+    # Steck, Rubidium 87 D Line Data: 780.241 209 686 nm, rounded to 7 digits, never a float
+    # printed in full
+    assert "780.2412" in out and "780.2412096" not in out
+    assert all(name in out for name in ("Rb87", "Cs133", "Sr88-689"))
+
+
+def test_species_by_name_shows_its_sources(capsys, monkeypatch):
+    monkeypatch.setenv("COLUMNS", "80")
+    code, out, _ = _run(capsys, "species", "caesium-133")
+    assert code == 0
+    assert out.startswith("Cs133") and "Steck" in out and "Rb87" not in out
+    code, out, _ = _run(capsys, "species", "Cs", "--json")
+    # Steck, Cesium D Line Data: D2 vacuum wavelength 852.347 275 82 nm
+    assert json.loads(out)["wavelength_nm"] == pytest.approx(852.3472758, abs=1e-6)
+    code, out, err = _run(capsys, "species", "Xe")
+    assert code == 2 and out == ""
+    assert "'Xe'" in _one_line_error(err, "UsageError") and "Rb87" in err
 
 
 def test_rank_json_matches_ishigami_closed_form(capsys, ishigami_file, tmp_path):
