@@ -18,9 +18,20 @@ import xarray as xr
 
 from trapbudget.reports.blocks import Figure, Section, Table, Text, register_section
 from trapbudget.reports.figures import BLUE, FIGURE_STYLE, GREY, ORANGE, figure_png, subplots
-from trapbudget.reports.formatting import format_number, format_percent, format_quantity
+from trapbudget.reports.formatting import (
+    display_scale,
+    format_number,
+    format_percent,
+    format_quantity,
+)
 
-__all__ = ["calibration_json", "calibration_section", "constant_rows", "residual_figure"]
+__all__ = [
+    "calibration_json",
+    "calibration_section",
+    "constant_rows",
+    "fit_figure",
+    "residual_figure",
+]
 
 
 def _value(value: float, unit: str) -> str:
@@ -75,6 +86,84 @@ def residual_figure(ds: xr.Dataset) -> bytes:
         ax.set_xlabel("observation")
         ax.set_ylabel("(measured - predicted) / u")
         ax.legend(loc="upper right", ncols=min(3, len(set(outputs))))
+        return figure_png(fig)
+
+
+def fit_figure(ds: xr.Dataset) -> bytes | None:
+    """Each data set against the model: measured points with their standard uncertainties,
+    the model with the fitted constants (line) and with the starting ones (dashed), over
+    the setting the data set scans. None when the Dataset holds no curves."""
+    if "curve" not in ds.dims or ds.sizes["curve"] == 0:
+        return None
+    n_curves = ds.sizes["curve"]
+    columns = min(2, n_curves)
+    rows = math.ceil(n_curves / columns)
+    measured = np.asarray(ds["measured"].values, dtype=float)
+    sigma = np.asarray(ds["measurement_uncertainty"].values, dtype=float)
+    owner = np.asarray(ds["observation_curve"].values)
+    x_obs = np.asarray(ds["observation_x"].values, dtype=float)
+    with matplotlib.rc_context(FIGURE_STYLE):  # type: ignore[arg-type]
+        fig, axes = subplots(
+            rows, columns, figsize=(6.4 if columns == 2 else 4.2, 2.7 * rows), squeeze=False
+        )
+        for k in range(rows * columns):
+            ax = axes[k // columns][k % columns]
+            if k >= n_curves:
+                ax.set_visible(False)
+                continue
+            curve = ds.isel(curve=k)
+            axis = str(curve["curve_axis"].values)
+            output = str(curve["curve_output"].values)
+            mine = owner == k
+            y_unit = str(curve["curve_output_unit"].values)
+            y_factor, y_label = display_scale(y_unit, float(np.nanmax(np.abs(measured[mine]))))
+            if axis:
+                x_unit = str(curve["curve_axis_unit"].values)
+                x_grid = np.asarray(curve["curve_x"].values, dtype=float)
+                x_factor, x_label = display_scale(x_unit, float(np.nanmax(np.abs(x_grid))))
+                ax.plot(
+                    x_grid * x_factor,
+                    np.asarray(curve["curve_start"].values) * y_factor,
+                    color=GREY,
+                    lw=1.0,
+                    ls="--",
+                    label="model, start",
+                )
+                ax.plot(
+                    x_grid * x_factor,
+                    np.asarray(curve["curve_fitted"].values) * y_factor,
+                    color=BLUE,
+                    lw=1.5,
+                    label="model, fitted",
+                )
+                ax.set_xlabel(f"{axis.replace('_', ' ')} ({x_label})" if x_label else axis)
+            else:
+                x_factor = 1.0
+                ax.plot(
+                    x_obs[mine],
+                    np.asarray(ds["predicted"].values, dtype=float)[mine] * y_factor,
+                    "s",
+                    color=BLUE,
+                    ms=4,
+                    label="model, fitted",
+                )
+                ax.set_xlabel("observation")
+            ax.errorbar(
+                x_obs[mine] * x_factor,
+                measured[mine] * y_factor,
+                yerr=np.where(np.isfinite(sigma[mine]), sigma[mine], 0.0) * y_factor,
+                fmt="o",
+                ms=3.5,
+                color=ORANGE,
+                capsize=2,
+                label="measured",
+            )
+            name = output.replace("_", " ")
+            ax.set_ylabel(f"{name} ({y_label})" if y_label else name)
+            ax.set_title(str(curve["curve_data_set"].values), fontsize="small")
+            if k == 0:
+                ax.legend(loc="best", fontsize="small")
+        fig.tight_layout()
         return figure_png(fig)
 
 
@@ -162,6 +251,18 @@ def calibration_section(
         )
     for note in attrs.get("notes", []) or []:
         blocks.append(Text(str(note), kind="note"))
+    fits = fit_figure(ds)
+    if fits is not None:
+        blocks.append(
+            Figure(
+                "calibration-fits",
+                fits,
+                caption="Each data set against the model over the setting it scans: measured "
+                "(points, standard uncertainty as used in the fit), the model with the fitted "
+                "constants (line) and with the starting ones (dashed); other settings at their "
+                "median over the data set",
+            )
+        )
     blocks.append(
         Figure(
             "calibration-residuals",

@@ -170,6 +170,35 @@ class RenderedReport:
     figures: dict[str, bytes]
 
 
+#: What a report is, by the result Dataset it holds (first match wins).
+REPORT_KINDS: tuple[tuple[str, str], ...] = (
+    ("calibration", "Calibration"),
+    ("diagnosis", "Drift diagnosis"),
+    ("allocation", "Tolerance allocation"),
+    ("comparison", "Upgrade comparison"),
+    ("scan", "Scan"),
+)
+
+
+def report_subtitle(datasets: Mapping[str, xr.Dataset], study: Mapping[str, Any]) -> str:
+    """One line under the title: what kind of report, of which model, seed and size.
+
+    The seed and the sample size are left out where the work had none (a calibration
+    or a diagnosis draws no samples).
+    """
+    kind = next((text for name, text in REPORT_KINDS if name in datasets), "Error budget")
+    model = " ".join(str(study.get(k, "") or "") for k in ("species", "model")).strip()
+    parts = [f"{kind} of a {model} study" if model else kind]
+    if study.get("seed") not in (None, ""):
+        parts.append(f"seed {study['seed']}")
+    n_samples = study.get("n_samples")
+    if isinstance(n_samples, int | float) and n_samples > 0:
+        parts.append(f"{int(n_samples)} samples")
+    if study.get("date"):
+        parts.append(str(study["date"]))
+    return ", ".join(parts)
+
+
 def render_report(
     datasets: Mapping[str, xr.Dataset],
     study: Mapping[str, Any],
@@ -179,6 +208,7 @@ def render_report(
 ) -> RenderedReport:
     """Render the report's HTML and Markdown from the result Datasets and the study record."""
     sections = build_sections(datasets, study, extra_sections=extra_sections)
+    subtitle = report_subtitle(datasets, study)
     figures: dict[str, bytes] = {}
     for section in sections:
         for fig in section.all_figures():
@@ -188,12 +218,12 @@ def render_report(
     html = (
         _environment("html")
         .get_template("report.html.j2")
-        .render(study=study, sections=sections, data_uri=_data_uri)
+        .render(study=study, subtitle=subtitle, sections=sections, data_uri=_data_uri)
     )
     markdown = (
         _environment("md")
         .get_template("report.md.j2")
-        .render(study=study, sections=sections, figure_dir=figure_dir)
+        .render(study=study, subtitle=subtitle, sections=sections, figure_dir=figure_dir)
     )
     return RenderedReport(html=html, markdown=markdown, figures=figures)
 

@@ -78,13 +78,16 @@ def study_section(datasets: Datasets, study: Mapping[str, Any]) -> Section:
         ["trapbudget version", study.get("trapbudget_version", "")],
         ["Scenario file", study.get("scenario_file", "")],
         ["Scenario SHA-256", study.get("sha256", "")],
-        ["Seed", str(study.get("seed", ""))],
-        ["Sample size", f"{study.get('n_samples', '')} (Monte Carlo n and Saltelli base N)"],
-        ["Model evaluations", str(study.get("n_evaluations", ""))],
-        ["Sampling method", study.get("method", "")],
-        ["Confidence level", format_percent(study.get("confidence_level", 0.95), digits=0)],
-        ["Date", study.get("date", "")],
     ]
+    if study.get("n_samples"):  # a calibration or a diagnosis draws no samples
+        rows += [
+            ["Seed", str(study.get("seed", ""))],
+            ["Sample size", f"{study['n_samples']} (Monte Carlo n and Saltelli base N)"],
+            ["Model evaluations", str(study.get("n_evaluations", ""))],
+            ["Sampling method", study.get("method", "")],
+            ["Confidence level", format_percent(study.get("confidence_level", 0.95), digits=0)],
+        ]
+    rows.append(["Date", study.get("date", "")])
     blocks: list[Any] = []
     if study.get("description"):
         blocks.append(Text(study["description"]))

@@ -79,6 +79,10 @@ def test_calibrate_recovers_the_constants_the_demo_was_made_with(capsys, calibra
     assert (out / "report.html").is_file() and (out / "calibration.nc").is_file()
     html = (out / "report.html").read_text(encoding="utf-8")
     assert "Calibration to measurements" in html and "laser-safety officer" in html
+    # a calibration draws no samples: its subtitle says what it is, without "seed None"
+    assert "Calibration of a Rb87 VaporCellMOT study" in html
+    assert "seed None" not in html and " 0 samples" not in html
+    assert (out / "figures" / "calibration-fits.png").is_file()
     # the calibrated scenario is a scenario like any other
     calibrated_scenario = load_scenario(result["calibrated_scenario"])
     dist = calibrated_scenario.inputs["loading_prefactor"]
@@ -86,6 +90,32 @@ def test_calibrate_recovers_the_constants_the_demo_was_made_with(capsys, calibra
     assert float(dist.std()) == pytest.approx(
         constants["loading_prefactor"]["uncertainty"], rel=1e-9
     )
+
+
+def test_fit_curves_pass_through_the_model_at_the_measured_settings(capsys, calibrated):
+    # The curves are the model itself: on the detuning scan every other setting is the same
+    # for all rows, so the fitted curve at the ends of its grid equals the model's
+    # prediction for the observations taken there (same inputs, same constants)
+    import numpy as np
+    import xarray as xr
+
+    argv, out = calibrated
+    run_json(capsys, argv)
+    ds = xr.load_dataset(out / "calibration.nc")
+    scans = np.flatnonzero(ds["curve_axis"].values == "detuning")
+    assert scans.size >= 2
+    k = int(ds["curve_output"].values.tolist().index("atom_number"))
+    assert ds["curve_axis"].values[k] == "detuning"
+    rows = np.flatnonzero(ds["observation_curve"].values == k)
+    x = ds["observation_x"].values[rows]
+    curve = ds.isel(curve=k)
+    for end, pick in ((0, np.argmin(x)), (-1, np.argmax(x))):
+        assert float(curve["curve_x"][end]) == x[pick]
+        assert float(curve["curve_fitted"][end]) == pytest.approx(
+            float(ds["predicted"].values[rows][pick]), rel=1e-9
+        )
+    # start and fitted constants give different curves (the fit moved the constants)
+    assert not np.allclose(curve["curve_start"], curve["curve_fitted"])
 
 
 def test_calibrate_is_reproducible(capsys, calibrated, tmp_path):

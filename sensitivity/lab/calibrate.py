@@ -27,6 +27,7 @@ from trapbudget.sensitivity.lab.calibration import (
     FlatDirection,
 )
 from trapbudget.sensitivity.lab.datafiles import MeasurementSet, read_measurements
+from trapbudget.sensitivity.lab.fitcurves import fit_curves
 from trapbudget.sensitivity.lab.observations import Observations, to_observations
 from trapbudget.sensitivity.scenario.core import Scenario
 
@@ -313,6 +314,13 @@ def calibrate(
         if any(np.isclose(values[name], b, rtol=1e-9, atol=0.0) for b in (low, high)):
             notes.append(f"{name} ended at a bound of its valid range [{low:g}, {high:g}]")
     predicted = _predict(model, base_values, obs, values)
+    curves = fit_curves(
+        model,
+        base_values,
+        obs,
+        {n: float(start[n]) for n in names},
+        {n: float(values[n]) for n in names},
+    )
     return Calibration(
         free=names,
         fitted=tuple(fitted),
@@ -332,6 +340,7 @@ def calibrate(
         robust=robust,
         notes=tuple(notes),
         scenario=scenario,
+        curves=curves,
     )
 
 

@@ -101,6 +101,10 @@ class Calibration:
         Statements for the report (scaling, unknown uncertainties, ...).
     scenario : object
         The scenario calibrated.
+    curves : xarray.Dataset or None
+        The model over each data set's scanned setting, before and after the fit
+        (:func:`~trapbudget.sensitivity.lab.fitcurves.fit_curves`); merged into
+        :meth:`to_dataset`.
     """
 
     free: tuple[str, ...]
@@ -121,6 +125,7 @@ class Calibration:
     robust: bool
     notes: tuple[str, ...] = ()
     scenario: Any = field(default=None, repr=False, compare=False)
+    curves: xr.Dataset | None = field(default=None, repr=False, compare=False)
 
     def __repr__(self) -> str:
         fitted = ", ".join(f"{n}={self.values[n]:.4g}" for n in self.free)
@@ -206,6 +211,8 @@ class Calibration:
         )
         for name, values in self.observations.settings.items():
             ds[f"setting_{name}"] = ("observation", values)
+        if self.curves is not None:
+            ds = ds.merge(self.curves)
         return ds
 
     # ----------------------------------------------------------- calibrated scenario
