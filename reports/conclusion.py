@@ -15,6 +15,8 @@ A finding is a plain record with a ``kind``:
   a fraction of the output's variance), ``index`` (which one) and ``rank``.
 - ``"validity"``: ``flagged`` and ``total`` Monte Carlo samples outside the model's
   validity.
+- ``"unranked"``: ``output`` and ``reason``: an output with no variance to share out
+  (undefined or the same in every run, e.g. no trap at a blue detuning).
 - ``"next"``: ``command``, the command line to run next, and ``why``.
 """
 
@@ -206,6 +208,13 @@ def bottom_line(
     for output, items in by_output.items():
         sentences.append(_driver_sentence(output, items, _output_head(output, summary, datasets)))
 
+    if budget is not None:
+        names = list(budget.attrs.get("unranked_outputs", []) or [])
+        reasons = list(budget.attrs.get("unranked_reasons", []) or [])
+        for output, reason in zip(names, reasons, strict=False):
+            findings.append({"kind": "unranked", "output": str(output), "reason": str(reason)})
+            sentences.append(f"{output} is not ranked: {reason}.")
+
     samples = datasets.get("samples")
     fraction = _float(samples.attrs.get("invalid_fraction", 0.0)) if samples is not None else None
     if samples is not None and fraction:
@@ -219,7 +228,13 @@ def bottom_line(
 
     scenario_file = str(study.get("scenario_file") or "SCENARIO.toml")
     missed = [item for item in req_found if not item["met"]]
-    if missed:
+    if fraction is not None and fraction >= 0.5:
+        command = f"trapbudget predict {scenario_file}"
+        why = (
+            "to see what the model gives at the nominal point and why: most runs fall "
+            "outside the model's validity, so no tolerance is worth setting yet"
+        )
+    elif missed:
         worst = missed[0]
         lever = by_output.get(worst["output"], [])
         why = f"to find the tolerances that meet '{worst['requirement']}' at least cost"

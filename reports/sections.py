@@ -365,6 +365,10 @@ def budget_section(datasets: Datasets, study: Mapping[str, Any]) -> Section | No
     ]
     if budget.attrs.get("first_order_meaning"):
         blocks.append(Text(f"First order here: {budget.attrs['first_order_meaning']}.", "note"))
+    names = list(budget.attrs.get("unranked_outputs", []) or [])
+    reasons = list(budget.attrs.get("unranked_reasons", []) or [])
+    for name, why in zip(names, reasons, strict=False):
+        blocks.append(Text(f"{name} is not ranked: {why}.", "note"))
     for name in _outputs({"budget": budget}):
         unit = _unit(datasets, name)
         blocks.append(

@@ -26,6 +26,7 @@ __all__ = [
     "print_bottom_line",
     "species_detail",
     "species_rich_table",
+    "unranked_lines",
 ]
 
 
@@ -54,7 +55,7 @@ def prediction_table(linear: xr.Dataset, *, title: str = "", top: int = 3) -> Ta
     return table
 
 
-def budget_tables(summary: xr.Dataset, budget: xr.Dataset, *, top: int = 5) -> list[Table]:
+def budget_tables(summary: xr.Dataset, budget: xr.Dataset, *, top: int = 5) -> list[Any]:
     """One table per output: its Monte Carlo mean and spread, then its top drifts.
 
     Columns: rank, input, the headline index with the half-width of its confidence
@@ -105,7 +106,20 @@ def budget_tables(summary: xr.Dataset, budget: xr.Dataset, *, top: int = 5) -> l
                 format_quantity(np.sqrt(max(share, 0.0)), unit),
             )
         tables.append(table)
+    tables += unranked_lines(budget)
     return tables
+
+
+def unranked_lines(budget: xr.Dataset) -> list[Any]:
+    """One line per output the study could not rank, with the reason (rich Text)."""
+    from rich.text import Text as RichText
+
+    names = list(budget.attrs.get("unranked_outputs", []) or [])
+    reasons = list(budget.attrs.get("unranked_reasons", []) or [])
+    return [
+        RichText(f"{name}: not ranked, {why}", style="yellow")
+        for name, why in zip(names, reasons, strict=False)
+    ]
 
 
 #: Columns of the species table: key, header, significant digits.

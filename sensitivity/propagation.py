@@ -246,6 +246,9 @@ def _batch_statistics(ds: xr.Dataset, names: Sequence[str], confidence_level: fl
     for i, name in enumerate(names):
         y = np.asarray(ds[name].values, dtype=float)
         y = y[np.isfinite(y)]
+        if y.size < 2:  # the output is undefined in (almost) every run: nothing to settle
+            out[i] = np.nan
+            continue
         low, high = coverage_interval(y, confidence_level=confidence_level)
         out[i] = (np.mean(y), np.std(y, ddof=1), low, high)
     return out
@@ -338,7 +341,8 @@ def propagate_adaptive(
         done = True
         for i, name in enumerate(names):
             y = np.concatenate([np.asarray(b[name].values, dtype=float) for b in batches])
-            u = float(np.std(y[np.isfinite(y)], ddof=1))
+            y = y[np.isfinite(y)]
+            u = float(np.std(y, ddof=1)) if y.size >= 2 else math.nan
             tol = numerical_tolerance(u, significant_digits=significant_digits)
             delta[name] = tol
             achieved[name] = [float(v) for v in spread[i]]

@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import html
 import os
-from collections.abc import Callable, Iterator, Mapping
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -25,9 +25,11 @@ import numpy as np
 import xarray as xr
 
 from trapbudget.sensitivity.compliance import check_requirements
+from trapbudget.sensitivity.errors import ScenarioError
 from trapbudget.sensitivity.io import atomic_write_json, save_dataset
 from trapbudget.sensitivity.linear import compare_linear_monte_carlo, linear_propagation
 from trapbudget.sensitivity.propagation import propagate, propagate_adaptive
+from trapbudget.sensitivity.protocol import validity_flags
 from trapbudget.sensitivity.ranking import rank
 from trapbudget.sensitivity.scenario.core import Scenario
 from trapbudget.sensitivity.scenario.settings import RunOptions
@@ -137,6 +139,38 @@ def _stage(progress: Progress | None, stage: str) -> Callable[[int, int], None] 
     return report
 
 
+def unrankable_outputs(
+    samples: xr.Dataset, summary: xr.Dataset, outputs: Sequence[str], model: Any = None
+) -> dict[str, str]:
+    """Outputs a ranking cannot speak of, each with the reason in words.
+
+    An output undefined in (almost) every run (a temperature where no atom is trapped)
+    or the same in every run (zero atoms at a blue detuning) has no variance to share
+    out among the inputs; the study says so instead of printing a table of nan.
+    """
+    counts = samples.attrs.get("validity_counts", {}) or {}
+    flags, advisory = validity_flags(model) if model is not None else (None, 0)
+    advisory_names = {f.name for f in flags if int(f) & advisory} if flags else set()
+    causes = ", ".join(
+        name for name, count in dict(counts).items() if count and name not in advisory_names
+    )
+    because = f" (model validity: {causes})" if causes else ""
+    reasons: dict[str, str] = {}
+    for name in outputs:
+        row = summary.sel(output=name)
+        n_finite = int(row["n_finite"])
+        std = float(row["std"])
+        if n_finite < 2:
+            reasons[name] = f"undefined in every run{because}"
+        elif not std > 1e-12 * abs(float(row["mean"])):  # zero but for rounding
+            unit = str(summary.attrs.get(f"units_{name}", ""))
+            value = (
+                format_quantity(float(row["mean"]), unit) if unit else f"{float(row['mean']):.3g}"
+            )
+            reasons[name] = f"the same in every run ({value}){because}"
+    return reasons
+
+
 def run_study(
     scenario: Scenario,
     *,
@@ -212,11 +246,21 @@ def run_study(
         chunk_size=options.chunk_size,
     )
     summary = summarize(samples, outputs=outputs, confidence_level=options.confidence_level)
+    unranked = unrankable_outputs(samples, summary, outputs, scenario.model)
+    ranked = [name for name in outputs if name not in unranked]
+    if not ranked:
+        listed = "; ".join(f"{name}: {why}" for name, why in unranked.items())
+        raise ScenarioError(
+            f"no output varies across the runs, so there is nothing to rank ({listed}); "
+            "check the nominal values ('trapbudget predict' says what the model gives there)",
+            path=scenario.source,
+            key="inputs",
+        )
     budget = rank(
         scenario.model,
         scenario.inputs,
         n_samples=options.n_samples,
-        outputs=outputs,
+        outputs=ranked,
         second_order=scenario.settings.second_order if second_order is None else second_order,
         correlation=scenario.correlation,
         nominal=scenario.nominal,
@@ -229,6 +273,8 @@ def run_study(
         max_samples=max_samples,
         progress=_stage(progress, STAGES[1]),
     )
+    budget.attrs["unranked_outputs"] = list(unranked)
+    budget.attrs["unranked_reasons"] = list(unranked.values())
     datasets: dict[str, xr.Dataset] = {
         "samples": samples,
         "summary": summary,

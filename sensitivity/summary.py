@@ -184,8 +184,13 @@ def _batch_uncertainty(ds, samples, names, confidence_level: float) -> None:
     table: dict[str, list[float]] = {"mean": [], "interval_low": [], "interval_high": []}
     for name in names:
         y = np.asarray(samples[name].values, dtype=float).reshape(h, batch)
-        per = [(float(np.mean(r[np.isfinite(r)])), *coverage_interval(r[np.isfinite(r)],
-               confidence_level=confidence_level)) for r in y]  # fmt: skip
+        finite = [r[np.isfinite(r)] for r in y]
+        if any(r.size < 2 for r in finite):  # undefined in (almost) a whole batch
+            for key in table:
+                table[key].append(math.nan)
+            continue
+        per = [(float(np.mean(r)), *coverage_interval(r, confidence_level=confidence_level))
+               for r in finite]  # fmt: skip
         per_arr = np.asarray(per)
         spread = per_arr.std(axis=0, ddof=1) / math.sqrt(h)
         for key, value in zip(table, spread, strict=True):

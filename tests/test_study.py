@@ -112,3 +112,62 @@ def test_result_objects_have_short_reprs_for_notebooks(demo_scenario):
     import trapbudget.reports.figures  # noqa: F401  (no backend switch on import)
 
     assert matplotlib.get_backend() == backend
+
+
+def _blue_scenario(tolerances: dict[str, str]):
+    from trapbudget.sensitivity.scenario.core import Scenario
+
+    inputs = {
+        name: {"nominal": value, "tolerance": tol} for name, (value, tol) in tolerances.items()
+    }
+    inputs["detuning"] = {"nominal": "+12 MHz"}  # blue of the cycling line: no trap
+    return Scenario.from_dict(
+        {
+            "scenario": {"title": "blue detuning", "model": "VaporCellMOT", "species": "Rb87"},
+            "inputs": inputs,
+            "outputs": {"names": ["atom_number", "loading_time", "temperature"]},
+            "settings": {"n_samples": 64, "seed": 5, "max_samples": 40000},
+        }
+    )
+
+
+def test_outputs_without_variance_are_named_not_ranked():
+    # Blue of resonance the light force heats (Metcalf & van der Straten, ch. 7): no trap,
+    # zero atoms in every run, no cloud temperature; the loading time (1 / vapor loss) still
+    # follows the vapor density and is ranked as usual
+    from trapbudget.models import Validity
+    from trapbudget.reports.conclusion import bottom_line
+    from trapbudget.sensitivity.propagation import ModelValidityWarning
+
+    scenario = _blue_scenario(
+        {"cell_temperature": ("295 K", "1 K"), "beam_power": ("6 mW", "3 %")}
+    )
+    with pytest.warns(ModelValidityWarning, match="BLUE_DETUNING"):
+        study = run_study(scenario, convergence=False)
+    budget = study.datasets["budget"]
+    assert list(budget["output"].values) == ["loading_time"]
+    reasons = dict(
+        zip(budget.attrs["unranked_outputs"], budget.attrs["unranked_reasons"], strict=True)
+    )
+    assert set(reasons) == {"atom_number", "temperature"}
+    assert reasons["atom_number"].startswith("the same in every run (0)")
+    assert reasons["temperature"].startswith("undefined in every run")
+    assert all(Validity.BLUE_DETUNING.name in why for why in reasons.values())
+    findings, sentences = bottom_line(study.datasets, study.record)
+    unranked = [f for f in findings if f["kind"] == "unranked"]
+    assert {f["output"] for f in unranked} == {"atom_number", "temperature"}
+    assert any(f["kind"] == "next" and "predict" in f["command"] for f in findings)
+    assert not any("nan" in sentence for sentence in sentences)
+
+
+def test_a_study_where_nothing_varies_is_one_clear_error():
+    from trapbudget.sensitivity.errors import ScenarioError
+    from trapbudget.sensitivity.propagation import ModelValidityWarning
+
+    # only the beam power is uncertain, and blue of resonance it changes nothing
+    scenario = _blue_scenario({"beam_power": ("6 mW", "3 %")})
+    with (
+        pytest.warns(ModelValidityWarning, match="BLUE_DETUNING"),
+        pytest.raises(ScenarioError, match=r"nothing to rank \(atom_number: the same in every"),
+    ):
+        run_study(scenario, convergence=False)
