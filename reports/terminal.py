@@ -7,6 +7,7 @@ from typing import Any
 
 import numpy as np
 import xarray as xr
+from rich import box
 from rich.table import Table
 
 from trapbudget.reports.formatting import (
@@ -31,16 +32,25 @@ __all__ = [
 
 
 def prediction_table(linear: xr.Dataset, *, title: str = "", top: int = 3) -> Table:
-    """Nominal outputs with first-order uncertainties and their largest contributions."""
-    table = Table(title=f"{title}: first-order (GUM) prediction" if title else None)
+    """Nominal outputs with first-order uncertainties and their largest contributions.
+
+    Contributions are shares of the linear variance, (c_i u_i)^2 / u^2 (JCGM 100, 5.1.2,
+    independent inputs), so the column fits 80 terminal columns whatever the unit.
+    """
+    table = Table(
+        title=f"{title}: first-order (GUM) prediction" if title else None,
+        title_justify="left",
+        box=box.SIMPLE_HEAD,
+        pad_edge=False,
+    )
     for column, justify in (
         ("output", "left"),
         ("nominal", "right"),
         ("u (linear)", "right"),
         ("relative", "right"),
-        ("largest contributions |c| u", "left"),
+        ("largest shares of u²", "left"),
     ):
-        table.add_column(column, justify=justify)  # type: ignore[arg-type]
+        table.add_column(column, justify=justify, no_wrap=column != "largest shares of u²")  # type: ignore[arg-type]
     inputs = [str(i) for i in linear["input"].values]
     for name in [str(o) for o in linear["output"].values]:
         row = linear.sel(output=name)
@@ -49,7 +59,12 @@ def prediction_table(linear: xr.Dataset, *, title: str = "", top: int = 3) -> Ta
         std = float(row["output_std_linear"])
         contrib = np.nan_to_num(np.asarray(row["uncertainty_contribution"].values, float))
         order = np.argsort(-contrib, kind="stable")[:top]
-        tops = "\n".join(f"{inputs[i]} {format_quantity(contrib[i], unit)}" for i in order)
+        total = float(np.sum(contrib**2))
+        tops = "\n".join(
+            f"{inputs[i]} {format_percent(contrib[i] ** 2 / total, digits=0)}"
+            for i in order
+            if total > 0 and contrib[i] > 0
+        )
         rel = format_percent(std / abs(nominal), digits=2) if nominal else ""
         table.add_row(name, format_quantity(nominal, unit), format_quantity(std, unit), rel, tops)
     return table
@@ -73,7 +88,12 @@ def budget_tables(summary: xr.Dataset, budget: xr.Dataset, *, top: int = 5) -> l
                 f"{format_quantity(float(row['mean']), unit)} "
                 f"+- {format_quantity(float(row['std']), unit)}"
             )
-        table = Table(title=f"{name}: {head}" if head else name, title_justify="left")
+        table = Table(
+            title=f"{name}: {head}" if head else name,
+            title_justify="left",
+            box=box.SIMPLE_HEAD,
+            pad_edge=False,
+        )
         second = "alone" if key == "shapley_effect" else "first order"
         table.add_column("#", justify="right")
         table.add_column("input", justify="left", no_wrap=True)
@@ -146,8 +166,6 @@ def species_rich_table(rows: Sequence[Mapping[str, Any]]) -> Table:
     One row per species, values rounded to the digits people quote (the full values
     and their sources are in ``--json`` and :func:`species_detail`); fits 80 columns.
     """
-    from rich import box
-
     table = Table(
         title="Atomic data (cycling transition)",
         title_justify="left",

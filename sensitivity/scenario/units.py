@@ -96,7 +96,7 @@ DISPLAY_UNITS: dict[str, str] = {
 
 _AUTO_PREFIXES = {
     "K": (("nK", 1e-9), ("uK", 1e-6), ("mK", 1e-3), ("K", 1.0)),
-    "s": (("us", 1e-6), ("ms", 1e-3), ("s", 1.0)),
+    "s": (("ns", 1e-9), ("us", 1e-6), ("ms", 1e-3), ("s", 1.0)),
 }
 
 
