@@ -85,31 +85,38 @@ def test_delta_of_correlated_linear_gaussian():
     exact = exact_delta(COVARIANCE)
     np.testing.assert_allclose(exact, [0.6987, 0.2568, 0.3488], atol=1e-3)  # quadrature, this file
     delta = ds["delta"].sel(output="y").values
-    # Kernel smoothing biases the estimate low by about 0.02 at this n
-    # (Plischke et al. 2013, section 5); the ordering must be the exact one.
-    assert np.all(np.abs(delta - exact) < 0.04), (delta, exact)
+    half = (ds["delta_high"] - ds["delta"]).sel(output="y").values
+    # the exact value within two reported half-widths (coverage over many data sets is
+    # checked in test_coverage.py), and the half-widths no wider than the scatter at this n
+    assert np.all(np.abs(delta - exact) <= 2 * half), (delta, exact, half)
+    assert np.all(half < 0.03)
     assert list(np.argsort(delta)) == list(np.argsort(exact))
-    assert np.all(ds["delta_low"].values < ds["delta_high"].values)
     assert list(ds["input"].values) == ["x1", "x2", "x3"]
 
 
-def test_fast_delta_matches_salib_kernel_estimate():
-    # SALib.analyze.delta.calc_delta (Plischke et al. 2013, eq. 26): exact kernel sums on
-    # the same classes; ours bins the kernels on a fine grid, so agree to a few 1e-3.
-    from SALib.analyze.delta import calc_delta
+def test_fast_delta_is_closer_to_the_exact_value_than_salib():
+    # SALib.analyze.delta (Plischke, Borgonovo & Smith 2013) on the same data: its kernel
+    # smoothing and class conditioning pull a strong input low (about 0.02 here, section 5
+    # of the paper); the cross-fitted estimator is within its own interval
+    n = 4096
+    x = np.random.default_rng(11).multivariate_normal(np.zeros(3), COVARIANCE, size=n)
+    y = x.sum(axis=1)
+    exact = exact_delta(COVARIANCE)
+    ours = delta_indices(x, y, n_bootstrap=20, rng=2)
+    salib = delta_indices(x, y, n_bootstrap=4, delta_bootstrap=10, backend="salib", rng=2)
+    err_ours = np.abs(ours["delta"].values[0] - exact)
+    err_salib = np.abs(salib["delta"].values[0] - exact)
+    assert err_salib[0] > 0.01 and err_ours[0] < err_salib[0], (err_ours, err_salib)
+    assert np.sum(err_ours) < np.sum(err_salib)
 
-    from trapbudget.sensitivity.indices.delta import _delta_estimates
-    from trapbudget.sensitivity.indices.givendata import rank_classes
 
-    n = 2048
-    rng = np.random.default_rng(8)
-    x = rng.multivariate_normal(np.zeros(3), COVARIANCE, size=n)
-    y = x.sum(axis=1) + 0.3 * x[:, 1] ** 2
-    m = default_bins(n)
-    ours = _delta_estimates(rank_classes(x, m), y, np.ones((1, n)), m, 512)[0]
-    grid = np.linspace(y.min(), y.max(), 100)
-    ref = [calc_delta(y, grid, x[:, i], np.linspace(0, n, m + 1)) for i in range(3)]
-    np.testing.assert_allclose(ours, ref, atol=5e-3)
+def test_delta_of_an_input_the_model_ignores_is_zero_within_its_interval():
+    # an independent input leaves f(y | x) = f(y): delta = 0 exactly (Borgonovo 2007)
+    rng = np.random.default_rng(4)
+    x = rng.normal(size=(2048, 2))
+    ds = delta_indices(x, np.sin(x[:, 0]) + 0.1 * x[:, 0] ** 3, n_bootstrap=20, rng=4)
+    low, high = float(ds["delta_low"][0, 1]), float(ds["delta_high"][0, 1])
+    assert low <= 0.0 <= high and high < 0.05
 
 
 def test_delta_leaves_global_state_alone():

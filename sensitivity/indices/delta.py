@@ -6,6 +6,7 @@ apply."""
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping, Sequence
 from typing import Any, Literal
 
@@ -14,12 +15,7 @@ import xarray as xr
 from scipy import stats
 
 from trapbudget.sensitivity.errors import ScenarioError
-from trapbudget.sensitivity.indices.bootstrap import bootstrap_indices, resample_weights
-from trapbudget.sensitivity.indices.givendata import (
-    default_bins,
-    first_order_given_data,
-    rank_classes,
-)
+from trapbudget.sensitivity.indices.givendata import first_order_given_data
 from trapbudget.sensitivity.indices.screening import _quiet_salib
 
 __all__ = ["delta_indices"]
@@ -50,95 +46,153 @@ def _columns_of(
     return matrix, list(names)
 
 
-def _delta_estimates(
-    classes: np.ndarray, y: np.ndarray, w: np.ndarray, n_bins: int, grid_size: int
-) -> np.ndarray:
-    """Plischke et al. (2013) delta (before bias reduction) for weight rows w (r, n).
+#: Cells of the copula-scale axis u = rank(x) / n on which the joint density is binned.
+U_CELLS = 64
+#: Bandwidths: this factor times Scott's rule n^(-1/6) sd for a two-dimensional kernel
+#: density (Scott 1992, eq. 6.42), on both axes (u and y).
+BANDWIDTH_FACTOR = 0.7
 
-    Kernel densities (Gaussian, Silverman bandwidth per class, as
-    scipy.stats.gaussian_kde) by linear binning on a padded grid and an FFT
-    convolution, so that every resample and class is one array operation.
-    Returns (r, d).
+
+def _smooth_y(hist: np.ndarray, h: float) -> np.ndarray:
+    """Gaussian smoothing of binned counts along the last axis (bandwidth ``h`` in cells).
+
+    The grid is padded by four standard deviations of Y beyond the data, so the
+    circular convolution of the FFT does not wrap mass around.
     """
-    n, d = classes.shape
-    r = w.shape[0]
-    sd = y.std(ddof=1)
-    pad = 4.0 * sd
-    low = y.min() - pad
-    step = (y.max() + pad - low) / (grid_size - 1)
-    pos = (y - low) / step
-    left = np.floor(pos).astype(np.int64)
-    frac = pos - left
-    freq = np.fft.rfftfreq(grid_size, d=step)
-    out = np.empty((r, d))
-    for j in range(d):
-        # (r, n_bins, grid): weighted linear-binned counts of y per class of x_j.
-        base = classes[:, j] * grid_size + left
-        hist = np.zeros((r, n_bins * grid_size))
-        for offset, share in ((0, 1.0 - frac), (1, frac)):
-            codes = base + offset
-            hist += _weighted_bincount(codes, share, w, n_bins * grid_size)
-        hist = hist.reshape(r, n_bins, grid_size)  # type: ignore[assignment]
-        cls = classes[:, j]
-        counts = _weighted_bincount(cls, np.ones(n), w, n_bins)  # (r, c)
-        s1 = _weighted_bincount(cls, y, w, n_bins)
-        s2 = _weighted_bincount(cls, y * y, w, n_bins)
-        out[:, j] = _class_l1(hist, counts, s1, s2, freq, step)
-    return out
+    size = hist.shape[-1]
+    transfer = np.exp(-2.0 * (np.pi * np.fft.rfftfreq(size) * h) ** 2)
+    return np.fft.irfft(np.fft.rfft(hist, axis=-1) * transfer, n=size, axis=-1)
 
 
-def _weighted_bincount(codes, share, w, size):
-    """rows of w (r, n) -> (r, size): sum of w * share per code."""
-    r = w.shape[0]
-    flat = (codes[None, :] + size * np.arange(r)[:, None]).ravel()
-    weights = (w * share[None, :]).ravel()
-    return np.bincount(flat, weights=weights, minlength=r * size).reshape(r, size)
+def _smooth_u(hist: np.ndarray, h: float) -> np.ndarray:
+    """Gaussian smoothing along the first axis (the u cells on [0, 1]), reflected at both
+    ends so that every cell keeps its mass (bandwidth ``h`` in cells; by FFT, which stays
+    fast where a threaded matrix product would wait for busy cores)."""
+    return _smooth_y(np.concatenate([hist[::-1], hist, hist[::-1]]).T, h).T[
+        hist.shape[0] : 2 * hist.shape[0]
+    ]
 
 
-def _smoothed(hist, count, mean_sq, mean, freq, step):
-    """Densities from binned counts (..., grid) with Silverman bandwidths."""
-    with np.errstate(invalid="ignore", divide="ignore"):
-        var = (mean_sq - mean**2) * count / (count - 1)
-        h = np.sqrt(np.maximum(var, 0.0)) * (0.75 * count) ** (-0.2)
-    transfer = np.exp(-2.0 * (np.pi * freq) ** 2 * (h**2)[..., None])
-    grid = hist.shape[-1]
-    dens = np.fft.irfft(np.fft.rfft(hist, axis=-1) * transfer, n=grid, axis=-1)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        dens = dens / (count[..., None] * step)
-    return dens, h
+def _binned(
+    values: np.ndarray, weights: np.ndarray, rows: np.ndarray, n_rows: int, grid
+) -> np.ndarray:
+    """Linear binning of ``values`` (weights) on ``grid`` = (low, step, size), per row code."""
+    low, step, size = grid
+    pos = (values - low) / step
+    left = np.clip(np.floor(pos).astype(np.int64), 0, size - 2)
+    frac = np.clip(pos - left, 0.0, 1.0)
+    codes = rows * size + left
+    total = n_rows * size
+    hist = np.bincount(codes, weights * (1.0 - frac), total) + np.bincount(
+        codes + 1, weights * frac, total
+    )
+    return hist.reshape(n_rows, size)
 
 
-def _class_l1(hist, counts, s1, s2, freq, step):
-    total = counts.sum(axis=1)  # (r,)
-    all_hist = hist.sum(axis=1)
-    f_y, _ = _smoothed(all_hist, total, s2.sum(axis=1) / total, s1.sum(axis=1) / total, freq, step)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        f_c, h = _smoothed(hist, counts, s2 / counts, s1 / counts, freq, step)
-    l1 = np.abs(f_y[:, None, :] - f_c).sum(axis=-1) * step
-    # Classes with fewer than two points or no spread have no density (skipped, as SALib).
-    usable = (counts > 1) & (h > 0) & np.isfinite(l1)
-    return np.sum(np.where(usable, counts * l1, 0.0), axis=1) / (2.0 * total)
+def _weighted_sd(values: np.ndarray, weights: np.ndarray) -> float:
+    mass = float(weights.sum())
+    mean = float(weights @ values / mass)
+    return math.sqrt(float(weights @ (values - mean) ** 2) / max(mass - 1.0, 1.0))
 
 
-def _delta_fast(x, y, *, n_bootstrap, confidence_level, rng, grid_size=512):
-    """Bias-reduced delta and its half-width for one output (Plischke et al. 2013, eq. 30)."""
+def _held_out_terms(u_cells, y, fit, ev, w_fit, grid):
+    """Per evaluation point, 1{y in A(u)} - mean over u' of 1{y in A(u')}, for each input.
+
+    ``A(u) = {y: f(y | u) > f(y)}`` is fitted on the rows ``fit`` (weights ``w_fit``): the
+    conditional density is the kernel density of the residuals ``y - m(u)`` (``m`` the
+    mean of y in the u cell), smoothed across neighbouring cells and shifted back by
+    ``m(u)``, so that a strong input's fast-moving conditional mean is not smeared by the
+    smoothing in u. The indicator is evaluated at the rows ``ev``, which the fit has not
+    seen, so sampling noise cannot inflate the distance.
+    """
+    low, step, size = grid
+    y_fit = y[fit]
+    mass = float(w_fit.sum())
+    scott = BANDWIDTH_FACTOR * mass ** (-1.0 / 6.0)
+    h_u = scott * U_CELLS / math.sqrt(12.0)  # in u cells; the sd of u is 1/sqrt(12)
+    marginal = _binned(y_fit, w_fit, np.zeros(fit.size, dtype=np.int64), 1, grid)[0]
+    marginal = _smooth_y(marginal, scott * _weighted_sd(y_fit, w_fit) / step) / mass / step
+    y_ev = y[ev]
+    f_ev = marginal[np.clip(np.rint((y_ev - low) / step).astype(np.int64), 0, size - 1)]
+    rows = np.arange(ev.size)
+    terms = np.empty((ev.size, u_cells.shape[1]))
+    for j in range(u_cells.shape[1]):
+        cells = u_cells[fit, j]
+        # m(u): the kernel-smoothed conditional mean (Nadaraya-Watson on the u cells)
+        sums = np.stack(
+            [np.bincount(cells, w_fit * y_fit, U_CELLS), np.bincount(cells, w_fit, U_CELLS)],
+            axis=1,
+        )
+        sums = _smooth_u(sums, h_u)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            centre = sums[:, 0] / sums[:, 1]
+        centre = np.where(np.isfinite(centre), centre, float(w_fit @ y_fit / mass))
+        residual = y_fit - centre[cells]
+        spread = _weighted_sd(residual, w_fit)
+        r_low = float(residual.min()) - 4.0 * spread
+        r_step = (float(residual.max()) + 4.0 * spread - r_low) / (size - 1) or 1.0
+        joint = _binned(residual, w_fit, cells, U_CELLS, (r_low, r_step, size))
+        joint = _smooth_y(_smooth_u(joint, h_u), scott * spread / r_step)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            density = joint / (joint.sum(axis=1, keepdims=True) * r_step)
+        # f(y_e | u) for every cell u: the residual density at y_e - m(u)
+        index = np.rint((y_ev[None, :] - centre[:, None] - r_low) / r_step).astype(np.int64)
+        outside = (index < 0) | (index >= size)
+        values = np.take_along_axis(density, np.clip(index, 0, size - 1), axis=1)
+        inside = np.where(outside, False, values > f_ev[None, :])  # (U_CELLS, n_ev)
+        terms[:, j] = inside[u_cells[ev, j], rows] - inside.mean(axis=0)
+    return terms
+
+
+def _u_cells(x: np.ndarray) -> np.ndarray:
+    """Copula-scale cell (0..U_CELLS-1) of each value, ranks within the given rows."""
+    ranks = np.argsort(np.argsort(x, axis=0, kind="stable"), axis=0, kind="stable")
+    return np.minimum((ranks + 0.5) / x.shape[0] * U_CELLS, U_CELLS - 1).astype(np.int64)
+
+
+def _delta_fast(x, y, *, n_bootstrap, confidence_level, rng, grid_size=256):
+    """Cross-fitted delta, its bootstrap bias correction and half-width, for one output.
+
+    Returns (estimate (d,), half-width (d,)); see the Notes of :func:`delta_indices`.
+    """
     n = x.shape[0]
-    n_bins = default_bins(n)
-    classes = rank_classes(x, n_bins)
-    point = _delta_estimates(classes, y, np.ones((1, n)), n_bins, grid_size)[0]
-    boot = bootstrap_indices(n, n_bootstrap, rng)
-    per_block = max(1, (1 << 22) // (n_bins * grid_size))
-    reps = np.concatenate(
+    generator = np.random.default_rng(rng)
+    order = generator.permutation(n)
+    halves = (np.sort(order[: n // 2]), np.sort(order[n // 2 :]))
+    cells = [_u_cells(x[h]) for h in halves]
+    u_cells = np.empty((n, x.shape[1]), dtype=np.int64)
+    for h, c in zip(halves, cells, strict=True):
+        u_cells[h] = c
+    sd = float(np.std(y))
+    low, high = float(np.min(y)) - 4.0 * sd, float(np.max(y)) + 4.0 * sd
+    grid = (low, (high - low) / (grid_size - 1) if high > low else 1.0, grid_size)
+
+    def estimate(weights: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
+        parts = []
+        for k in (0, 1):
+            fit, ev = halves[k], halves[1 - k]
+            terms = _held_out_terms(u_cells, y, fit, ev, weights[k], grid)
+            parts.append(weights[1 - k] @ terms / weights[1 - k].sum())
+        return 0.5 * (parts[0] + parts[1])
+
+    point = estimate((np.ones(halves[0].size), np.ones(halves[1].size)))
+    reps = np.array(
         [
-            _delta_estimates(
-                classes, y, resample_weights(boot[:, a : a + per_block]), n_bins, grid_size
+            estimate(
+                tuple(  # type: ignore[arg-type]
+                    generator.multinomial(h.size, np.full(h.size, 1.0 / h.size)).astype(float)
+                    for h in halves
+                )
             )
-            for a in range(0, n_bootstrap, per_block)
+            for _ in range(n_bootstrap)
         ]
     )
-    corrected = 2.0 * point[None, :] - reps
+    shift = reps.mean(axis=0) - point
+    corrected = point - shift
+    # the correction is uncertain by about its own size: added in quadrature (conservative)
+    se = np.sqrt(reps.var(axis=0, ddof=1) + shift**2)
     z = stats.norm.ppf(0.5 + confidence_level / 2)
-    return corrected.mean(axis=0), z * corrected.std(axis=0, ddof=1)
+    return corrected, z * se
 
 
 def delta_indices(
@@ -177,10 +231,10 @@ def delta_indices(
         Resamples for the delta intervals (default ``n_bootstrap``); each
         costs a full delta estimate per input.
     backend : {"fast", "salib"}, default "fast"
-        "fast": the same estimator vectorized here (kernel densities by
-        linear binning and FFT, all resamples at once); "salib":
-        ``SALib.analyze.delta`` (exact kernel sums, a Python loop per class
-        and resample; minutes for large n).
+        "fast": the cross-fitted estimator below (held-out evaluation, bootstrap
+        bias correction); "salib": ``SALib.analyze.delta`` (Plischke et al. 2013:
+        equal-count classes and kernel densities on all the data; biased, see Notes),
+        kept as a reference.
     max_points : int, default 8192
         With ``backend="salib"``: the delta estimate and its resamples use at
         most this many rows (SALib's ``y_resamples``), which bounds its cost.
@@ -190,33 +244,52 @@ def delta_indices(
     -------
     xarray.Dataset
         Dims ``output``, ``input``: ``delta``, ``delta_low``, ``delta_high``
-        (estimate +- z times the bootstrap standard error, SALib's
-        ``delta_raw`` and ``delta_raw_conf``), ``first_order``,
+        (estimate +- z times its standard uncertainty), ``first_order``,
         ``first_order_low``, ``first_order_high`` (percentile bootstrap).
 
     Notes
     -----
     ``delta_i = (1/2) E_Xi[ integral |f_Y(y) - f_{Y|Xi}(y)| dy ]`` (Borgonovo
-    2007), estimated by Plischke, Borgonovo & Smith (2013) with
-    equal-count classes of X_i, kernel densities and bias reduction
-    (SALib.analyze.delta, "raw" resampling of the data as given).
+    2007): the mean total-variation distance between the conditional and the
+    marginal distribution of Y, ``E_U[ P(Y in A(U) | U) - P(Y in A(U)) ]`` with
+    ``U = F_i(X_i)`` and ``A(u) = {y: f(y | u) > f(y)}``. The ``"fast"`` estimator
+    (written for this project) uses that form with cross-fitting:
+
+    1. the rows are split at random into two halves; on one half the joint density of
+       (U, Y) (U from ranks, binned in :data:`U_CELLS` cells) and the marginal of Y are
+       estimated by Gaussian kernels with :data:`BANDWIDTH_FACTOR` times Scott's
+       two-dimensional rule, which gives the sets A(u);
+    2. on the other half, which the fit has not seen, the distance is the plain mean of
+       ``1{y in A(u)} - mean_u' 1{y in A(u')}``; then the halves swap and the two are
+       averaged. Held-out frequencies cannot be inflated by sampling noise (the
+       plug-in L1 distance of two noisy densities can, by a lot for weak inputs), and
+       an input that does nothing gets zero in expectation;
+    3. an estimated set can only lose distance (any set gives at most the total
+       variation), by an amount the bootstrap sees: each half is resampled on its own
+       (no row in both the fit and the evaluation), ``shift = mean(replicates) -
+       estimate`` and the estimate returned is ``estimate - shift``. Its standard
+       uncertainty is the bootstrap standard deviation and ``|shift|`` in quadrature.
+
+    Measured against the exact delta of Y = x1 + 0.7 x2 + 0.3 x3 with standard
+    normal inputs (quadrature; 0.3811, 0.2131, 0.0788), 80 data sets each: at
+    n = 8000 the bias is -0.7 %, -0.3 %, -5 % of delta (-0.5, -0.3 and -0.4
+    standard deviations) and 95 % intervals cover in 90 %, 97.5 %, 91 % and (a
+    fourth input the model ignores) 95 % of data sets; SALib's estimator on the
+    same data is 4 %, 7 %, 2 % low with bootstrap intervals half as wide as its
+    scatter (benchmarks/interval_coverage.py).
+
     ``first_order`` is ``Var(E[Y|X_i]) / Var(Y)`` by the class-mean
     estimator on all the data
     (:func:`~trapbudget.sensitivity.indices.givendata.first_order_given_data`);
     with correlated inputs it is the *full* first-order index, which counts
     what an input explains through the inputs correlated with it.
 
-    Known bias (measured against the exact delta of a linear Gaussian model,
-    by quadrature, n = 8000, 20 classes): the kernel smoothing pulls delta of
-    strong inputs 3-9 % low and the sampling noise of the class densities
-    pushes weak ones up to 8 % high, bias reduction included; the bootstrap
-    interval does not include this bias, so read delta as a ranking measure,
-    not to better than about 10 %.
-
     References
     ----------
     E. Borgonovo, Reliab. Eng. Syst. Saf. 92, 771 (2007);
-    E. Plischke, E. Borgonovo, C. L. Smith, Eur. J. Oper. Res. 226, 536 (2013).
+    E. Plischke, E. Borgonovo, C. L. Smith, Eur. J. Oper. Res. 226, 536 (2013);
+    D. W. Scott, "Multivariate Density Estimation" (Wiley 1992), ch. 6;
+    V. Chernozhukov et al., Econom. J. 21, C1 (2018) (cross-fitting).
     """
     from SALib.analyze import delta as salib_delta
 
