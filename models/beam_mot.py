@@ -340,7 +340,7 @@ class BeamLoadedMOT(VaporCellMOT):
             waist=waist,
             cooling_length=x["cooling_length"],
             output_velocity=x["output_velocity"],
-            loss_coefficient=x["vapor_loss_coefficient"],
+            loss_coefficient=x["source_loss_coefficient"],
             transverse_acceleration=accel,
         )
         # transfer: Doppler-temperature divergence from the exit hole, gravity on the way
@@ -372,6 +372,17 @@ def _two_d_inputs(sp: Species) -> list[InputSpec]:
         InputSpec("source_distance", "m", 0.3, 0.01, 3.0, "2D-MOT exit to trap centre"),
         InputSpec("exit_radius", "m", 5e-4, 1e-5, 0.01, "radius of the differential-pumping hole"),
         InputSpec("differential_pumping", "", 1e-3, 0.0, 1.0, "chamber over source vapor density"),
+        # a slow, untrapped beam atom is lost by any deflection: the total cross-section, of
+        # order 1e-12 cm^2 for Rb-Rb at thermal energies (from memory), times ~300 m/s
+        InputSpec(
+            "source_loss_coefficient",
+            "m**3/s",
+            3e-14,
+            0.0,
+            1e-11,
+            "<sigma v> removing a slow beam atom (any deflection: the total cross-section)",
+            constant=True,
+        ),
     ]
 
 

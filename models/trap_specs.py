@@ -118,7 +118,9 @@ def inputs(
         InputSpec(
             "two_body_coefficient",
             "m**3/s",
-            1e-17,
+            # 1e-11 cm^3/s for the alkalis; 1e-10 cm^3/s for a Sr blue MOT (the order of
+            # Dinneen et al., PRA 59, 1216 (1999); from memory)
+            1e-16 if sp.element == "Sr" else 1e-17,
             0.0,
             1e-13,
             "light-assisted two-body loss coefficient beta",
