@@ -239,3 +239,22 @@ def test_transfer_follows_the_blue_cloud_distribution():
 def test_narrow_line_model_refuses_a_broad_line():
     with pytest.raises(ModelError, match="'Sr88' is a broad line"):
         NarrowLineMOT("Sr88")
+
+
+# --------------------------------------------------------------- cautions
+
+
+def test_cautions_fit_the_species_and_the_source():
+    # the safety text of a report names the hazards present (rules: cautions fitted to the
+    # species and source, deferring to the laser-safety officer and local codes)
+    from trapbudget.reports.cautions import safety_cautions
+
+    sr = " ".join(safety_cautions("Sr88", "BeamLoadedMOT", {"source": "zeeman-slower"}))
+    assert "461 nm" in sr and "visible" in sr and "near-infrared light" not in sr
+    assert "Strontium" in sr and "oven" in sr and "Zeeman slower" in sr
+    assert "707 nm" in sr  # the default two-laser repumping
+    rb = " ".join(safety_cautions("Rb87", "VaporCellMOT", {}))
+    assert "780 nm" in rb and "near-infrared" in rb and "oven runs" not in rb
+    assert "Rubidium" in rb and "Strontium" not in rb
+    for text in (sr, rb):
+        assert "laser-safety officer" in text and "local codes" in text
