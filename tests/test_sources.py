@@ -421,3 +421,49 @@ def test_rank_spec_and_compare_run_on_the_new_models(model, options, name, drive
     assert allocation.feasible
     same = compare(scenario, scenario, n_samples=256, rng=1)
     assert float(same["mean_change"].sel(output="atom_number")) == 0.0
+
+
+# --------------------------------------------------------------- demo and cross-source compare
+
+
+@pytest.mark.parametrize(
+    "name", ["harrier-rb87-2dmot.toml", "harrier-sr88-blue.toml", "harrier-sr88-red.toml"]
+)
+def test_invented_demo_scenarios_load_and_predict(name):
+    from importlib import resources
+
+    from trapbudget.sensitivity import load_scenario
+
+    path = resources.files("trapbudget.examples") / name
+    text = path.read_text(encoding="utf-8")
+    assert "INVENTED DEMO" in text  # demo data is labelled as invented (house rules)
+    scenario = load_scenario(path)
+    result = scenario.model.evaluate({})
+    assert float(result["atom_number"]) > 0
+    assert int(result["validity"]) & ~int(scenario.model.advisory_flags) == 0
+
+
+def test_compare_across_sources_keeps_the_shared_outputs_and_names_the_rest():
+    from importlib import resources
+
+    from trapbudget.reports.compare import plain_summary
+    from trapbudget.sensitivity import compare, load_scenario
+
+    folder = resources.files("trapbudget.examples")
+    cell = load_scenario(folder / "harrier-rb87.toml")
+    source = load_scenario(folder / "harrier-rb87-2dmot.toml")
+    ds = compare(cell, source, n_samples=256, rng=2)
+    assert list(ds["output"].values) == list(cell.outputs)
+    assert ds.attrs["model_before"] == "VaporCellMOT"
+    assert ds.attrs["model_after"] == "BeamLoadedMOT"
+    assert ds.attrs["outputs_left_out"] == ""
+    # the other way round, the source's own output has no counterpart in the vapor cell
+    back = compare(source, cell, n_samples=256, rng=2)
+    assert back.attrs["outputs_left_out"] == "source_flux"
+    assert "source_flux" not in list(back["output"].values)
+    summary = plain_summary(back)
+    assert "different models" in summary and "source_flux" in summary
+    # UHV and a 2D-MOT: more atoms, a longer loading time (background loss a hundredfold lower)
+    change = ds["mean_change"]
+    assert float(change.sel(output="atom_number")) > 0
+    assert float(change.sel(output="loading_time")) > 0
