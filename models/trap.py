@@ -355,9 +355,11 @@ class VaporCellMOT:
         s_total = trap["s_total"]
         rate = light.scattering_rate(s_total, detuning, gamma)
 
-        def repump_rate(name: str) -> NDArray:
+        def repump_rate(name: str, detuning_name: str = "") -> NDArray:
             intensity = light.beam_intensity(x[name], waist, c, aperture_radius=aperture)
-            return mot.repump_rate(intensity / i_sat, gamma)
+            # a detuned repumper: (Gamma/2) s / (1 + s + x^2) = the resonant form at s/(1 + x^2)
+            off = (4.0 * math.pi * x[detuning_name] / gamma) ** 2 if detuning_name else 0.0
+            return mot.repump_rate(intensity / i_sat / (1.0 + off), gamma)
 
         if self.repump is None:
             leak = sp.leak_probability(detuning, saturation=s_total)
@@ -368,8 +370,16 @@ class VaporCellMOT:
             bright, leak_loss = strontium.shelving(
                 rate,
                 self.repump,
-                rate_3p2=repump_rate("repump_power") if self.repump != "none" else 0.0,
-                rate_3p0=repump_rate("repump_679_power") if self.repump == "707+679" else 0.0,
+                rate_3p2=(
+                    repump_rate("repump_power", "repump_detuning")
+                    if self.repump != "none"
+                    else 0.0
+                ),
+                rate_3p0=(
+                    repump_rate("repump_679_power", "repump_679_detuning")
+                    if self.repump == "707+679"
+                    else 0.0
+                ),
                 escape_rate=x["shelved_escape_rate"],
             )
         # the largest push of one beam against gravity (issue: flag under ten g)

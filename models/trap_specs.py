@@ -178,6 +178,11 @@ def inputs(
     return {s.name: s for s in specs}
 
 
+def _repump_detuning(name: str, line: str) -> InputSpec:
+    # the repump line's width is taken as the cooling line's (as for the alkali repumper)
+    return InputSpec(name, "Hz", 0.0, -1e9, 1e9, f"{line} repumper detuning from its line")
+
+
 def _repump_inputs(repump: str | None) -> list[InputSpec]:
     if repump is None:
         return [
@@ -190,6 +195,8 @@ def _repump_inputs(repump: str | None) -> list[InputSpec]:
             InputSpec(
                 "repump_679_power", "W", 2e-3, 0.0, 0.5, "679 nm (3P0 -> 3S1) repumper power"
             ),
+            _repump_detuning("repump_detuning", "707 nm"),
+            _repump_detuning("repump_679_detuning", "679 nm"),
         ]
     elif repump == "481":
         specs.append(
@@ -197,6 +204,7 @@ def _repump_inputs(repump: str | None) -> list[InputSpec]:
                 "repump_power", "W", 2e-3, 0.0, 0.5, "481 nm (3P2 -> 5p2 3P2) repumper power"
             )
         )
+        specs.append(_repump_detuning("repump_detuning", "481 nm"))
     specs.append(
         InputSpec(
             "shelved_escape_rate",

@@ -122,6 +122,7 @@ def test_repump_inputs_follow_the_scheme():
     assert "repump_power" not in VaporCellMOT("Sr88", vapor_source="density", repump="none").inputs
     both = VaporCellMOT("Sr88", vapor_source="density").inputs
     assert {"repump_power", "repump_679_power", "shelved_escape_rate"} <= set(both)
+    assert {"repump_detuning", "repump_679_detuning"} <= set(both)
     assert "sub_doppler_coefficient" not in both  # J = 0 ground state: Doppler cooling only
 
 
@@ -258,3 +259,17 @@ def test_cautions_fit_the_species_and_the_source():
     assert "Rubidium" in rb and "Strontium" not in rb
     for text in (sr, rb):
         assert "laser-safety officer" in text and "local codes" in text
+
+
+def test_a_detuned_repumper_returns_fewer_atoms():
+    # Lorentzian response of the repump rate (Metcalf & van der Straten ch. 2): detuned by
+    # hundreds of linewidths (5 GHz), the 707 nm laser no longer returns the 3P2 atoms
+    _, none = _blue("none", two_body_coefficient=0.0, vapor_density=0.0)
+    tuned = _blue("707+679", two_body_coefficient=0.0, vapor_density=0.0)[1]
+    far = _blue("707+679", two_body_coefficient=0.0, vapor_density=0.0, repump_detuning=5e9)[1]
+    p2, p0 = strontium.leak_paths()
+    assert float(tuned["loss_rate"]) < 0.01 * float(none["loss_rate"])
+    # 3P0 still repumped at 679 nm: the far-detuned loss approaches the 3P2 share p2/(p2+p0)
+    share = float(far["loss_rate"]) / float(none["loss_rate"])
+    rates = float(far["scattering_rate"]) / float(none["scattering_rate"])
+    assert share / rates == pytest.approx(p2 / (p2 + p0), rel=0.05)
