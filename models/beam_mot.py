@@ -28,7 +28,6 @@ from trapbudget.models.protocol import InputSpec, ModelError, OutputSpec
 from trapbudget.models.species import Species
 from trapbudget.models.trap import ASSUMPTIONS as _VAPOR_ASSUMPTIONS
 from trapbudget.models.trap import VaporCellMOT
-from trapbudget.models.trap_specs import OUTPUTS
 from trapbudget.models.validity import Validity
 
 __all__ = ["SOURCES", "BeamLoadedMOT", "oven_temperature_for"]
@@ -142,7 +141,8 @@ class BeamLoadedMOT(VaporCellMOT):
         )
 
     def _output_specs(self) -> list[OutputSpec]:
-        return [*OUTPUTS[:-1], *SOURCE_OUTPUTS, OUTPUTS[-1]]
+        base = super()._output_specs()
+        return [*base[:-1], *SOURCE_OUTPUTS, base[-1]]
 
     def _build_inputs(self) -> dict[str, InputSpec]:
         base = super()._build_inputs()

@@ -21,20 +21,26 @@ returns it (rate ``rho``): the lost fraction is ``escape / (escape + rho)``.
 
 from __future__ import annotations
 
+import math
 from typing import Literal
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
+from scipy import constants
 
+from trapbudget.models.protocol import OutputSpec
 from trapbudget.models.species import SPECIES
 
 __all__ = [
+    "METASTABLE_LIFETIME",
     "REPUMP_SCHEMES",
+    "RESERVOIR_OUTPUT",
     "SHELVED_ESCAPE_RATE",
     "SINGLE_REPUMP_GAIN",
     "TO_3P2",
     "RepumpScheme",
     "leak_paths",
+    "reservoir_atoms",
     "shelving",
 ]
 
@@ -47,6 +53,14 @@ TO_3P2 = 0.177
 #: Largest lifetime gain of any single 3P2 repumper, 26.9(2): Okamoto, Aoki & Torii,
 #: arXiv:2406.18942 (2024). It fixes the 3P0 path relative to the 3P2 one.
 SINGLE_REPUMP_GAIN = 26.9
+#: Radiative lifetime of 3P2, s: about 17 min (as quoted by arXiv:2007.10465; from memory
+#: its source, Yasuda & Katori, PRL 92, 153004 (2004)).
+METASTABLE_LIFETIME = 17 * 60.0
+#: Lande g_J of 3P2 (LS coupling, common practice).
+_G_3P2 = 1.5
+RESERVOIR_OUTPUT = OutputSpec(
+    "reservoir_atoms", "", "atoms shelved in 3P2 and held by the quadrupole field (repump none)"
+)
 #: Rate at which an atom shelved in 3P2 or 3P0 leaves the MOT region, 1/s (a calibratable
 #: constant): a few-mK atom crossing a millimetre-sized cloud (common practice).
 SHELVED_ESCAPE_RATE = 1.0e3
@@ -111,3 +125,55 @@ def shelving(
         loss = r * p2 * esc / (esc + rho2) + r * p0 * esc / (esc + rho0)
     bright = 1.0 / (1.0 + np.where(np.isfinite(dark), dark, 0.0))
     return bright, np.nan_to_num(loss, nan=0.0)
+
+
+def reservoir_atoms(
+    atom_number: ArrayLike,
+    bright_scattering_rate: ArrayLike,
+    gradient: ArrayLike,
+    loss_rate: ArrayLike,
+    duration: ArrayLike,
+) -> NDArray[np.float64]:
+    """Atoms accumulated in 3P2 and held by the MOT's quadrupole field (no repumpers).
+
+    Parameters
+    ----------
+    atom_number : array_like
+        Atoms in the blue MOT.
+    bright_scattering_rate : array_like, 1/s
+        461 nm photons per atom (scattering rate times bright fraction).
+    gradient : array_like, T/m
+        Axial (vertical) gradient of the quadrupole.
+    loss_rate : array_like, 1/s
+        One-body loss of a held atom other than the leak (background, vapor).
+    duration : array_like, s
+        How long the MOT has run (the reservoir fills for that time before a repump pulse).
+
+    Returns
+    -------
+    ndarray
+        ``N R p_2 f (1 - exp(-gamma' t)) / gamma'``, ``gamma' = gamma + 1 / tau_3P2``:
+        shelving into 3P2 at ``R p_2`` per atom, the held share ``f`` of the five m_J
+        states (equally populated, an assumption),
+        ``m_J = 1, 2`` held where ``mu_B g_J m_J A`` exceeds ``m g`` (a smoothstep from 1 to
+        2 times m g), lost at the background rate and by the 17 min radiative decay, over the
+        time t (collisions among the held atoms, which limit a long accumulation, are not
+        modelled). A later repump pulse returns them to the ground state.
+
+    References
+    ----------
+    S. B. Nagel et al., Phys. Rev. A 67, 011401 (2003) (the magnetically trapped 3P2
+    reservoir of a Sr blue MOT; from memory); arXiv:2007.10465 (3P2 lifetime).
+    """
+    sp = SPECIES["Sr88"]
+    mu_b = constants.physical_constants["Bohr magneton"][0]
+    force = mu_b * _G_3P2 * np.abs(np.asarray(gradient, dtype=float)) / (sp.mass * constants.g)
+    held = np.zeros_like(force)
+    for m_j in (1, 2):
+        x = np.clip(m_j * force - 1.0, 0.0, 1.0)
+        held = held + 0.2 * x * x * (3.0 - 2.0 * x)
+    p2, _ = leak_paths()
+    loss = np.asarray(loss_rate, dtype=float) + 1.0 / METASTABLE_LIFETIME
+    rate = np.asarray(atom_number, dtype=float) * np.asarray(bright_scattering_rate, float) * p2
+    filled = -np.expm1(-loss * np.asarray(duration, dtype=float)) / loss
+    return rate * held * filled if not math.isnan(p2) else np.zeros_like(rate)

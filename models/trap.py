@@ -218,7 +218,9 @@ class VaporCellMOT:
         )
 
     def _output_specs(self) -> list[OutputSpec]:
-        return list(_OUTPUTS)
+        if self.repump != "none":
+            return list(_OUTPUTS)
+        return [*_OUTPUTS[:-1], strontium.RESERVOIR_OUTPUT, _OUTPUTS[-1]]
 
     def __repr__(self) -> str:
         repump = "" if self.repump is None else f", repump={self.repump!r}"
@@ -467,6 +469,13 @@ class VaporCellMOT:
         unbounded = ~no_trap & np.isinf(state.atom_number)
         radius = np.where(no_trap, 0.0, np.where(unbounded, np.inf, state.cloud_radius))
         nbar = np.where(unbounded, 0.0, np.nan_to_num(nbar, nan=0.0))
+        if self.repump == "none":
+            extra = {
+                **extra,
+                "reservoir_atoms": strontium.reservoir_atoms(
+                    atoms, rate * bright, axial, one_body - leak_loss, x["reservoir_time"]
+                ),
+            }
         return {
             "atom_number": atoms,
             "loading_time": np.where(no_trap, empty_time, state.loading_time),

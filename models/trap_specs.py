@@ -205,6 +205,10 @@ def _repump_inputs(repump: str | None) -> list[InputSpec]:
             )
         )
         specs.append(_repump_detuning("repump_detuning", "481 nm"))
+    else:
+        specs.append(
+            InputSpec("reservoir_time", "s", 1.0, 0.0, 1e3, "time the MOT fills the 3P2 reservoir")
+        )
     specs.append(
         InputSpec(
             "shelved_escape_rate",

@@ -279,3 +279,19 @@ def test_a_detuned_repumper_returns_fewer_atoms():
     share = float(far["loss_rate"]) / float(none["loss_rate"])
     rates = float(far["scattering_rate"]) / float(none["scattering_rate"])
     assert share / rates == pytest.approx(p2 / (p2 + p0), rel=0.05)
+
+
+def test_without_repumpers_a_magnetic_reservoir_fills():
+    # with no repumper the shelved 3P2 atoms in low-field-seeking m_J states are held by the
+    # quadrupole (Nagel et al., PRA 67, 011401 (2003), from memory): for a short time t the
+    # reservoir is the shelving rate N R p2 times the held share times t (closed form)
+    model = BeamLoadedMOT("Sr88", source="zeeman-slower", repump="none")
+    assert "reservoir_atoms" in model.outputs
+    assert "reservoir_atoms" not in BeamLoadedMOT("Sr88").outputs
+    out = model.evaluate({"gradient": [0.05, 0.5], "reservoir_time": 1e-3})
+    p2, _ = strontium.leak_paths()
+    shelving = out["atom_number"] * out["scattering_rate"] * out["bright_fraction"] * p2
+    # 50 G/cm: m_J = 1 and 2 both hold against gravity (g_J = 3/2): two of five states
+    assert out["reservoir_atoms"][1] == pytest.approx(0.4 * shelving[1] * 1e-3, rel=1e-3)
+    # 5 G/cm: mu_B g_J m_J A < m g for m_J = 1 (needs 10 G/cm), m_J = 2 just above: little
+    assert out["reservoir_atoms"][0] < 0.2 * shelving[0] * 1e-3
