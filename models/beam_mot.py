@@ -29,6 +29,7 @@ from trapbudget.models.species import Species
 from trapbudget.models.trap import ASSUMPTIONS as _VAPOR_ASSUMPTIONS
 from trapbudget.models.trap import VaporCellMOT
 from trapbudget.models.validity import Validity
+from trapbudget.models.vapor_pressure import ALCOCK_LOWEST
 
 __all__ = ["SOURCES", "BeamLoadedMOT", "oven_temperature_for"]
 
@@ -221,13 +222,18 @@ class BeamLoadedMOT(VaporCellMOT):
         if self.source == "2d-mot":
             flux, captured, loss = self._two_d(x, vc, flags)
         else:
-            flux, captured, loss = self._oven_beam(x, vc)
-        flags[~(flux > 0)] |= Validity.NO_SOURCE
+            flux, captured, loss = self._oven_beam(x, vc, flags)
+        flags[~(flux > 0) & ~(captured > 0)] |= Validity.NO_SOURCE
         return captured, loss, {"source_flux": flux, "captured_flux": captured}
 
-    def _oven_beam(self, x: Mapping[str, NDArray], vc: NDArray) -> tuple[NDArray, ...]:
+    def _oven_beam(
+        self, x: Mapping[str, NDArray], vc: NDArray, flags: NDArray
+    ) -> tuple[NDArray, ...]:
         sp = self.species
         t_oven, radius = x["oven_temperature"], x["nozzle_radius"]
+        melting = sp.vapor.melting_point  # type: ignore[union-attr]
+        extrapolated = (t_oven < ALCOCK_LOWEST) | ((sp.element == "Sr") & (t_oven > melting))
+        flags[extrapolated] |= Validity.EXTRAPOLATING
         density = vapor.saturated_density(sp.vapor, t_oven)  # type: ignore[arg-type]
         vp = vapor.most_probable_speed(sp.mass, t_oven)
         w = sources.clausing_factor(x["nozzle_length"], radius)
@@ -310,7 +316,7 @@ class BeamLoadedMOT(VaporCellMOT):
         sp = self.species
         t_src = x["source_temperature"]
         density = self._source_density(x)
-        flags[t_src < 298.0] |= Validity.EXTRAPOLATING
+        flags[t_src < ALCOCK_LOWEST] |= Validity.EXTRAPOLATING
         vp = vapor.most_probable_speed(sp.mass, t_src)
         waist = x["source_beam_waist"]
         s0 = light.peak_intensity(x["source_beam_power"], waist) / (

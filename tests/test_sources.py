@@ -287,6 +287,9 @@ def test_oven_source_flux_from_kinetic_theory():
     # a colder oven gives fewer atoms; a cold oven none, flagged
     cold = model.evaluate({"oven_temperature": [350.0, 250.0]})
     assert cold["atom_number"][0] < float(result["atom_number"])
+    # below Alcock's 298 K the pressure is extrapolated: flagged, still computed
+    assert cold["validity"][1] & Validity.EXTRAPOLATING
+    assert not cold["validity"][0] & Validity.EXTRAPOLATING
 
 
 def test_slower_power_enters_smoothly_and_saturates():
@@ -295,7 +298,9 @@ def test_slower_power_enters_smoothly_and_saturates():
     p_threshold = RB.saturation_intensity * math.pi * 5e-3**2 / 2
     powers = p_threshold * np.array([0.5, 1.0, 1.0 + 1e-6, 1.1, 3.0, 30.0, 300.0])
     flux = model.evaluate({"slower_beam_power": powers})["captured_flux"]
-    direct = flux[0]  # below threshold only the oven's slow tail arrives
+    direct = flux[0]  # below threshold only the oven's slow tail arrives, and loads the trap
+    dark = model.evaluate({"slower_beam_power": 0.0})
+    assert float(dark["atom_number"]) > 0 and not dark["validity"] & Validity.NO_SOURCE
     assert flux[1] == pytest.approx(direct, rel=1e-12)
     assert flux[2] - direct < 1e-4 * (flux[-1] - direct)  # no knife edge at the threshold
     assert np.all(np.diff(flux[:6]) >= 0)
