@@ -472,3 +472,53 @@ def test_compare_across_sources_keeps_the_shared_outputs_and_names_the_rest():
     change = ds["mean_change"]
     assert float(change.sel(output="atom_number")) > 0
     assert float(change.sel(output="loading_time")) > 0
+
+
+def _slower_exit_speeds(v0, s, eta, length, v_f, steps=4000):
+    """Exit speeds through an ideal slower, by RK4 on the local force law (independent oracle).
+
+    The field is designed for the deceleration eta a_max: an atom at v, z sees the detuning
+    k (v - v_res(z)), v_res = sqrt(v_c^2 - 2 eta a_max z), and decelerates by
+    a_max s / (1 + s + (2 k (v - v_res) / Gamma)^2) (Metcalf & van der Straten ch. 6).
+    """
+    a_max, k, gamma = RB.max_acceleration, RB.wavenumber, RB.linewidth
+    v_c2 = v_f**2 + 2 * eta * a_max * length
+
+    def slope(z, v):
+        v_res = np.sqrt(np.maximum(v_c2 - 2 * eta * a_max * z, 0.0))
+        x = 2 * k * (v - v_res) / gamma
+        return -a_max * s / (1 + s + x * x) / np.maximum(v, 1.0)
+
+    v, h = np.array(v0, dtype=float), length / steps
+    for i in range(steps):
+        z = i * h
+        k1 = slope(z, v)
+        k2 = slope(z + h / 2, v + h / 2 * k1)
+        k3 = slope(z + h / 2, v + h / 2 * k2)
+        k4 = slope(z + h, v + h * k3)
+        v = v + h / 6 * (k1 + 2 * k2 + 2 * k3 + k4)
+    return v
+
+
+def test_slower_capture_velocity_against_trajectories():
+    # Phillips & Metcalf 1982: atoms below sqrt(v_f^2 + 2 eta a_max L) follow the field to v_f;
+    # checked by integrating the force law (RK4), capture within the resonance width
+    # Gamma sqrt(1 + s) / k of the closed form
+    eta, length, v_f = 0.5, 0.5, 20.0
+    v0 = np.arange(100.0, 320.0, 0.5)
+    for s in (3.0, 10.0):
+        exits = _slower_exit_speeds(v0, s, eta, length, v_f)
+        width = RB.linewidth * math.sqrt(1 + s) / RB.wavenumber
+        followed = v0[np.abs(exits - v_f) < width]
+        closed = float(
+            sources.slower_capture_velocity(
+                length=length,
+                design_fraction=eta,
+                final_velocity=v_f,
+                max_acceleration=RB.max_acceleration,
+            )
+        )
+        assert abs(followed.max() - closed) < width
+    # below the threshold s / (1 + s) = eta the atoms cannot follow the designed field
+    weak = _slower_exit_speeds(v0, 0.6, eta, length, v_f)
+    assert not np.any(np.abs(weak - v_f) < 2 * RB.linewidth / RB.wavenumber)
