@@ -325,6 +325,12 @@ def comparison_rich_tables(ds: xr.Dataset) -> list[Any]:
             table.add_column(column, overflow="fold")
         for row in _output_rows(ds, option):
             table.add_row(*row)
+        if ds.attrs.get("outputs_left_out"):
+            table.caption = (
+                f"{ds.attrs.get('model_before', '')} before, {ds.attrs.get('model_after', '')} "
+                f"after; left out (only one side gives them): {ds.attrs['outputs_left_out']}"
+            )
+            table.caption_justify = "left"
         tables.append(table)
     rows = _requirement_rows(ds)
     if rows:

@@ -451,7 +451,7 @@ def test_invented_demo_scenarios_load_and_predict(name):
 def test_compare_across_sources_keeps_the_shared_outputs_and_names_the_rest():
     from importlib import resources
 
-    from trapbudget.reports.compare import plain_summary
+    from trapbudget.reports.compare import comparison_rich_tables, plain_summary
     from trapbudget.sensitivity import compare, load_scenario
 
     folder = resources.files("trapbudget.examples")
@@ -468,6 +468,7 @@ def test_compare_across_sources_keeps_the_shared_outputs_and_names_the_rest():
     assert "source_flux" not in list(back["output"].values)
     summary = plain_summary(back)
     assert "different models" in summary and "source_flux" in summary
+    assert "left out" in str(comparison_rich_tables(back)[0].caption)
     # UHV and a 2D-MOT: more atoms, a longer loading time (background loss a hundredfold lower)
     change = ds["mean_change"]
     assert float(change.sel(output="atom_number")) > 0
