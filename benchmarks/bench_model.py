@@ -5,7 +5,10 @@ Run by hand (not in CI), on an otherwise quiet machine::
     python benchmarks/bench_model.py [--samples 300] [--trajectories 8] [--seed 1]
 
 1. Full evaluations per second of ``VaporCellMOT().evaluate`` on 10^5 and 10^6 parameter
-   sets drawn around the nominal cell (every uncertain input varied at once), one core.
+   sets drawn around the nominal cell (every uncertain input varied at once), one core;
+   then of ``BeamLoadedMOT`` (each source) and ``NarrowLineMOT`` on 10^5 sets around their
+   defaults (every input spread by 2 %), side by side in the same run, with the
+   NarrowLineMOT sag (bisection) against scipy's brentq on the same points (slow reference).
 2. Loading-rate error of the fast capture (shipped table + smooth corrections) on
    ``--samples`` random traps (Rb-87: waist, power, detuning, gradient, offset, stray
    field, imbalance, aperture, vapor temperature all varied) against the straight-line
@@ -36,6 +39,8 @@ import numpy as np  # noqa: E402
 from scipy import special  # noqa: E402
 
 from trapbudget.models import (  # noqa: E402
+    BeamLoadedMOT,
+    NarrowLineMOT,
     VaporCellMOT,
     _kernels,
     capture,
@@ -63,6 +68,44 @@ def draw(model: VaporCellMOT, n: int, rng: np.random.Generator) -> dict[str, np.
         "vapor_fraction": rng.uniform(0.05, 0.2, n),
         "background_pressure": rng.lognormal(np.log(d["background_pressure"]), 0.3, n),
     }
+
+
+def spread(model, n: int, rng: np.random.Generator) -> dict[str, np.ndarray]:
+    """Every non-zero input of a model spread by 2 % (normal) around its default."""
+    return {
+        name: rng.normal(spec.default, 0.02 * abs(spec.default), n)
+        for name, spec in model.inputs.items()
+        if spec.default != 0 and not spec.constant
+    }
+
+
+def sag_error(rng: np.random.Generator, n: int = 200) -> float:
+    """NarrowLineMOT's bisected sag against scipy's brentq on the same force balance."""
+    from scipy import constants, optimize
+
+    from trapbudget.models.narrow import sag_and_rates
+
+    red = species("Sr88-689")
+    s = np.exp(rng.uniform(np.log(0.5), np.log(500.0), n))
+    det = -rng.uniform(20e3, 1e6, n)
+    grad = rng.uniform(0.01, 0.1, n)
+    fast, *_ = sag_and_rates(s, det, grad, red)
+    worst = 0.0
+    hk, gamma = constants.hbar * red.wavenumber, red.linewidth
+    for si, di, gi, zi in zip(s, det, grad, fast, strict=True):
+        if not np.isfinite(zi):
+            continue
+        zeta = abs(red.zeeman_coefficient) * gi / constants.hbar
+        delta = 2 * math.pi * di
+
+        def balance(z, si=si, delta=delta, zeta=zeta):
+            up = 0.5 * gamma * si / (1 + si + 4 * (delta + zeta * z) ** 2 / gamma**2)
+            down = 0.5 * gamma * si / (1 + si + 4 * (delta - zeta * z) ** 2 / gamma**2)
+            return hk * (up - down) - red.mass * constants.g
+
+        ref = optimize.brentq(balance, 0.0, -delta / zeta, xtol=1e-15, rtol=1e-13)
+        worst = max(worst, abs(zi / ref - 1))
+    return worst
 
 
 def traps(n: int, rng: np.random.Generator) -> list[dict[str, float]]:
@@ -186,6 +229,18 @@ def main() -> None:
             best = min(best, time.perf_counter() - start)
         rates[n] = n / best
         print(f"VaporCellMOT.evaluate, n = {n:>7}: {best:7.3f} s, {rates[n]:,.0f} evaluations/s")
+
+    others = [BeamLoadedMOT(source=s) for s in ("oven", "zeeman-slower", "2d-mot")]
+    for other in [*others, NarrowLineMOT()]:
+        values = spread(other, 10**5, rng)
+        other.evaluate({k: v[:16] for k, v in values.items()})
+        best = math.inf
+        for _ in range(3):
+            start = time.perf_counter()
+            other.evaluate(values)
+            best = min(best, time.perf_counter() - start)
+        print(f"{other!r}.evaluate, n = 100000: {best:7.3f} s, {1e5 / best:,.0f} evaluations/s")
+    print(f"NarrowLineMOT sag, bisection vs brentq: max relative error {sag_error(rng):.1e}")
 
     cases = traps(args.samples, rng)
     fast = fast_rates(cases)

@@ -1,6 +1,7 @@
 """Physics of laser-cooled atom sources: pure, vectorized NumPy functions in SI.
 
-The composed model is :class:`VaporCellMOT`; the kernel modules (``species``,
+The composed models are :class:`VaporCellMOT`, :class:`BeamLoadedMOT` and
+:class:`NarrowLineMOT`; the kernel modules (``species``,
 ``light``, ``field``, ``vapor``, ``capture``, ``cooling``, ``mot``, ``cloud``,
 ``observables``; the slow 3-D reference in ``capture_reference``) hold the published
 formulas it is built from, each usable on its own.
@@ -15,13 +16,15 @@ import importlib
 from typing import TYPE_CHECKING, Any
 
 _LOCATIONS: dict[str, str] = {
+    "BeamLoadedMOT": "trapbudget.models.beam_mot",
+    "NarrowLineMOT": "trapbudget.models.narrow",
     "InputSpec": "trapbudget.models.protocol",
     "ModelError": "trapbudget.models.protocol",
     "OutputSpec": "trapbudget.models.protocol",
     "SPECIES": "trapbudget.models.species",
     "Species": "trapbudget.models.species",
     "VaporPressure": "trapbudget.models.vapor_pressure",
-    "Validity": "trapbudget.models.trap",
+    "Validity": "trapbudget.models.validity",
     "VaporCellMOT": "trapbudget.models.trap",
 }
 # The lookup function shadows the module of the same name, so it is bound eagerly (after
@@ -36,13 +39,17 @@ _SUBMODULES = (
     "light",
     "mot",
     "observables",
+    "sources",
+    "strontium",
     "vapor",
 )
 
 __all__ = [
     "SPECIES",
+    "BeamLoadedMOT",
     "InputSpec",
     "ModelError",
+    "NarrowLineMOT",
     "OutputSpec",
     "Species",
     "Validity",
@@ -55,8 +62,10 @@ __all__ = [
     "light",
     "mot",
     "observables",
+    "sources",
     "species",
     "species_table",
+    "strontium",
     "vapor",
 ]
 
@@ -77,8 +86,22 @@ def __dir__() -> list[str]:
 
 
 if TYPE_CHECKING:  # the same names, eagerly, for type checkers and IDEs
-    from trapbudget.models import capture, cloud, cooling, field, light, mot, observables, vapor
+    from trapbudget.models import (
+        capture,
+        cloud,
+        cooling,
+        field,
+        light,
+        mot,
+        observables,
+        sources,
+        strontium,
+        vapor,
+    )
+    from trapbudget.models.beam_mot import BeamLoadedMOT
+    from trapbudget.models.narrow import NarrowLineMOT
     from trapbudget.models.protocol import InputSpec, ModelError, OutputSpec
     from trapbudget.models.species import SPECIES, Species
-    from trapbudget.models.trap import Validity, VaporCellMOT
+    from trapbudget.models.trap import VaporCellMOT
+    from trapbudget.models.validity import Validity
     from trapbudget.models.vapor_pressure import VaporPressure

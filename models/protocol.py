@@ -7,11 +7,21 @@ engine. The two records here are what ``inputs`` and ``outputs`` map names to.
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from typing import Any
 
-__all__ = ["InputSpec", "ModelError", "OutputSpec", "is_quantity", "to_si", "values_in_si"]
+import numpy as np
+
+__all__ = [
+    "InputSpec",
+    "ModelError",
+    "OutputSpec",
+    "evaluate_flat_in_chunks",
+    "is_quantity",
+    "to_si",
+    "values_in_si",
+]
 
 
 class ModelError(ValueError):
@@ -113,3 +123,42 @@ def values_in_si(values: Mapping[str, Any], inputs: Mapping[str, InputSpec]) -> 
         name: to_si(name, value, inputs[name].unit) if name in inputs else value
         for name, value in values.items()
     }
+
+
+def evaluate_flat_in_chunks(
+    model: Any,
+    values: Mapping[str, Any],
+    kernel: Callable[[Mapping[str, np.ndarray]], Mapping[str, np.ndarray]],
+    *,
+    chunk: int = 1 << 14,
+) -> dict[str, np.ndarray]:
+    """The shared ``evaluate`` of the trap models: check names, convert, broadcast, chunk.
+
+    ``model`` has ``inputs`` and ``outputs`` (with an int ``validity`` output);
+    ``kernel(flat_inputs) -> outputs`` works on 1-D arrays of one chunk. Extreme but valid
+    inputs may overflow to inf inside a kernel; the kernels handle every such inf as a
+    limit, so floating-point warnings are silenced here.
+    """
+    unknown = [name for name in values if name not in model.inputs]
+    if unknown:
+        raise ModelError(
+            f"{type(model).__name__}: unknown input {unknown[0]!r}; valid inputs: "
+            + ", ".join(model.inputs)
+        )
+    values = values_in_si(values, model.inputs)
+    arrays = {
+        name: np.asarray(values.get(name, spec.default), dtype=float)
+        for name, spec in model.inputs.items()
+    }
+    shape = np.broadcast_shapes(*(a.shape for a in arrays.values()))
+    n = math.prod(shape)
+    flat = {k: np.broadcast_to(a, shape).reshape(-1) for k, a in arrays.items()}
+    out = {name: np.empty(n, dtype=float) for name in model.outputs if name != "validity"}
+    out["validity"] = np.empty(n, dtype=np.int64)
+    for start in range(0, n, chunk):
+        stop = min(n, start + chunk)
+        with np.errstate(over="ignore", under="ignore", divide="ignore", invalid="ignore"):
+            part = kernel({k: a[start:stop] for k, a in flat.items()})
+        for key, value in part.items():
+            out[key][start:stop] = value
+    return {key: value.reshape(shape) for key, value in out.items()}

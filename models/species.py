@@ -28,7 +28,7 @@ from trapbudget.models.vapor_pressure import (
     VaporPressure,
 )
 
-__all__ = ["SPECIES", "Citations", "Species", "VaporPressure"]
+__all__ = ["SPECIES", "SR_1D2_DECAY_RATE", "Citations", "Species", "VaporPressure"]
 
 _HBAR = constants.hbar
 _C = constants.c
@@ -444,6 +444,22 @@ _RECORDS: list[Species] = [
 ]
 
 _SR_TAU_1P1 = 5.216e-9
+# Alcock, Itkin & Horrigan 1984, Table 1 form log10(P/atm) = A + B/T + C log10 T, solid Sr
+# (298 K to the melting point, 1050 K); the same coefficients as the arc library quotes. The
+# solid branch is continued above the melting point (ovens stay below it).
+_SR_VAPOR = VaporPressure(
+    9.226,
+    -8572.0,
+    9.226,
+    -8572.0,
+    1050.15,
+    ALCOCK_SOURCE + " (Table 1, solid Sr)",
+    -1.1926,
+    -1.1926,
+)
+#: 1P1 -> 1D2 decay rate, 1/s: 5.3(5)e3 (Okamoto, Aoki & Torii, arXiv:2510.22184 (2025), direct
+#: measurement, as read in the abstract), consistent with Hunter et al., PRL 56, 823 (1986).
+SR_1D2_DECAY_RATE = 5.3e3
 _SR_MASS_U = 87.9056125
 _PULJIC = "Puljic et al., arXiv:2501.07395 (2025): 1P1 lifetime 5.216 ns"
 _RECORDS.append(
@@ -459,19 +475,22 @@ _RECORDS.append(
         m_lower=0.0,
         g_upper=1.0,
         m_upper=1.0,
-        vapor=None,
+        vapor=_SR_VAPOR,
         upper_hyperfine_splitting=math.nan,
         leak_branching=0.0,
         leak_relative_strength=0.0,
-        leak_probability_floor=2.0e-5,
+        leak_probability_floor=SR_1D2_DECAY_RATE * _SR_TAU_1P1,
         sources={
             "wavelength": "460.862 nm vacuum (from memory), checked against arc",
             "linewidth": _PULJIC,
             "saturation_intensity": _FORMULA_ISAT,
             "mass": _NIST_MASS + " (from memory)",
             "g_upper": "1P1 g_J = 1 (LS coupling, common practice)",
-            "leak_probability_floor": "1P1 -> 1D2 about 1 in 50 000 (from memory)",
-            "vapor": "no Alcock row used: give the density directly",
+            "leak_probability_floor": (
+                "1P1 -> 1D2 decay rate 5.3(5)e3 /s times the 1P1 lifetime: 2.8e-5 per photon "
+                "(Okamoto, Aoki & Torii, arXiv:2510.22184 (2025))"
+            ),
+            "vapor": ALCOCK_SOURCE + " (Table 1, solid Sr)",
         },
     )
 )
@@ -489,7 +508,7 @@ _RECORDS.append(
         m_lower=0.0,
         g_upper=1.5,
         m_upper=1.0,
-        vapor=None,
+        vapor=_SR_VAPOR,
         upper_hyperfine_splitting=math.nan,
         leak_branching=0.0,
         leak_relative_strength=0.0,
@@ -501,7 +520,7 @@ _RECORDS.append(
             "mass": _NIST_MASS + " (from memory)",
             "g_upper": "3P1 g_J = 3/2 (LS coupling, common practice)",
             "leak_probability_floor": "3P1 decays only to 1S0 (closed line)",
-            "vapor": "no Alcock row used: give the density directly",
+            "vapor": ALCOCK_SOURCE + " (Table 1, solid Sr)",
         },
     )
 )

@@ -22,87 +22,32 @@ a bit of the ``validity`` output (:class:`Validity`).
 
 from __future__ import annotations
 
-import enum
 import math
 from collections.abc import Mapping
 from typing import Literal
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
-from scipy import special
+from scipy import constants, special
 
-from trapbudget.models import capture, cloud, cooling, field, light, mot, vapor
+from trapbudget.models import capture, cloud, cooling, field, light, mot, strontium, vapor
 from trapbudget.models.catalog import species as lookup_species
-from trapbudget.models.protocol import InputSpec, ModelError, OutputSpec, values_in_si
+from trapbudget.models.protocol import (
+    InputSpec,
+    ModelError,
+    OutputSpec,
+    evaluate_flat_in_chunks,
+)
 from trapbudget.models.species import Species
 from trapbudget.models.trap_specs import OUTPUTS as _OUTPUTS
 from trapbudget.models.trap_specs import inputs as _inputs
+from trapbudget.models.validity import NO_TRAP as _NO_TRAP
+from trapbudget.models.validity import Validity
 from trapbudget.models.vapor_pressure import ALCOCK_LOWEST
 
 __all__ = ["Validity", "VaporCellMOT"]
 
 _CHUNK = 1 << 14
-
-
-class Validity(enum.IntFlag):
-    """Reasons why a sample lies outside the model's region of validity (bit mask).
-
-    Each member carries its own one-line ``__doc__`` (set from ``_FLAG_DOCS``).
-
-    0 (``OK``) means every condition holds. Where a flag says there is no
-    trap, the model returns zero atoms, zero fluorescence, zero loading rate,
-    zero peak density and cloud radius, and the loss-limited loading time.
-    """
-
-    OK = 0
-    NO_POWER = enum.auto()
-    BLUE_DETUNING = enum.auto()
-    NO_GRADIENT = enum.auto()
-    NO_CAPTURE = enum.auto()
-    NO_VAPOR = enum.auto()
-    CENTRE_IN_DARK = enum.auto()
-    NO_REPUMP = enum.auto()
-    NO_LOSS = enum.auto()
-    OUTSIDE_RANGE = enum.auto()
-    EXTRAPOLATING = enum.auto()
-    OPTICALLY_THICK = enum.auto()
-
-
-_FLAG_DOCS = {
-    "OK": "Every condition of validity holds.",
-    "NO_POWER": "No cooling light (beam power or saturation is zero): no atoms.",
-    "BLUE_DETUNING": "Detuning >= 0 (or within 1e-6 Gamma of 0): no cooling, no atoms, T = inf.",
-    "NO_GRADIENT": "Zero gradient: a molasses slows atoms but does not trap them; no atoms.",
-    "NO_CAPTURE": "No atom is slowed inside the trap region (no loading): no atoms.",
-    "NO_VAPOR": "Zero vapor density: nothing to load; no atoms.",
-    "CENTRE_IN_DARK": (
-        "The field zero sits where the weakest beam pair has less than 1e-3 of its peak light "
-        "(large offset or stray field): no atoms (reached smoothly)."
-    ),
-    "NO_REPUMP": "The cycling line leaks and there is no repump light: atoms go dark; no atoms.",
-    "NO_LOSS": "No loss process at all: the atom number grows without bound (inf).",
-    "OUTSIDE_RANGE": "An input lies outside its valid range (the result is extrapolated).",
-    "EXTRAPOLATING": (
-        "Inside the declared ranges but outside a fitted one (vapor pressure below Alcock's "
-        "298 K, or the capture table): outputs computed, less certain."
-    ),
-    "OPTICALLY_THICK": (
-        "The vapor absorbs the beams (optical depth above 1 across the cell at the MOT "
-        "detuning): attenuation included, outputs computed."
-    ),
-}
-for _name, _doc in _FLAG_DOCS.items():
-    Validity[_name].__doc__ = _doc
-
-_NO_TRAP = (
-    Validity.NO_POWER
-    | Validity.BLUE_DETUNING
-    | Validity.NO_GRADIENT
-    | Validity.NO_CAPTURE
-    | Validity.NO_VAPOR
-    | Validity.CENTRE_IN_DARK
-    | Validity.NO_REPUMP
-)
 
 
 #: Reference trap of the density limit: s0 = 2 per beam, delta = -2 Gamma, 10 G/cm, balanced.
@@ -174,8 +119,9 @@ class VaporCellMOT:
     vapor_source : {"fraction", "density"}
         ``"fraction"``: ``vapor_fraction`` of the saturated density at the cell
         temperature (needs vapor-pressure data); ``"density"``: ``vapor_density``.
-    cooling : {"sub-doppler", "doppler"}
-        ``"sub-doppler"`` (default): ``T = T_min + C hbar Omega^2 / (k_B |delta|)``
+    cooling : {"sub-doppler", "doppler"}, optional
+        Default: ``"sub-doppler"`` for the alkalis, ``"doppler"`` for a J = 0 ground state
+        (Sr-88). ``"sub-doppler"``: ``T = T_min + C hbar Omega^2 / (k_B |delta|)``
         capped by Doppler theory, C the calibratable ``sub_doppler_coefficient``
         (:data:`trapbudget.models.cooling.SUB_DOPPLER_COEFFICIENT`), T_min four recoil
         temperatures. ``"doppler"``: Doppler theory alone (Lett et al. 1989).
@@ -222,7 +168,8 @@ class VaporCellMOT:
         *,
         gradient_source: Literal["direct", "coils"] = "direct",
         vapor_source: Literal["fraction", "density"] = "fraction",
-        cooling: Literal["doppler", "sub-doppler"] = "sub-doppler",
+        cooling: Literal["doppler", "sub-doppler"] | None = None,
+        repump: strontium.RepumpScheme | None = None,
     ) -> None:
         if gradient_source not in ("direct", "coils"):
             raise ModelError(
@@ -234,7 +181,7 @@ class VaporCellMOT:
                 f"VaporCellMOT: vapor_source={vapor_source!r} is not valid; "
                 "use 'fraction' or 'density'"
             )
-        if cooling not in ("doppler", "sub-doppler"):
+        if cooling not in ("doppler", "sub-doppler", None):
             raise ModelError(
                 f"VaporCellMOT: cooling={cooling!r} is not valid; use 'doppler' or 'sub-doppler'"
             )
@@ -246,11 +193,13 @@ class VaporCellMOT:
             )
         self.gradient_source = gradient_source
         self.vapor_source = vapor_source
+        if cooling is None:
+            # no sub-Doppler cooling without ground-state structure (J = 0, as Sr-88's 1S0)
+            cooling = "sub-doppler" if self.species.g_lower else "doppler"
         self.cooling = cooling
-        self.inputs: Mapping[str, InputSpec] = _inputs(
-            self.species, gradient_source, vapor_source, cooling
-        )
-        self.outputs: Mapping[str, OutputSpec] = {o.name: o for o in _OUTPUTS}
+        self.repump = _repump_scheme(type(self).__name__, self.species, repump)
+        self.inputs: Mapping[str, InputSpec] = self._build_inputs()
+        self.outputs: Mapping[str, OutputSpec] = {o.name: o for o in self._output_specs()}
         s_ref, det_ref, grad_ref = _REFERENCE_TRAP
         sp = self.species
         ref = self._light_and_trap(
@@ -263,10 +212,21 @@ class VaporCellMOT:
         )
         self._reference_ratio = float(ref["ratio"][0])
 
+    def _build_inputs(self) -> dict[str, InputSpec]:
+        return _inputs(
+            self.species, self.gradient_source, self.vapor_source, self.cooling, self.repump
+        )
+
+    def _output_specs(self) -> list[OutputSpec]:
+        if self.repump != "none":
+            return list(_OUTPUTS)
+        return [*_OUTPUTS[:-1], strontium.RESERVOIR_OUTPUT, _OUTPUTS[-1]]
+
     def __repr__(self) -> str:
+        repump = "" if self.repump is None else f", repump={self.repump!r}"
         return (
             f"VaporCellMOT({self.species.name!r}, gradient_source={self.gradient_source!r}, "
-            f"vapor_source={self.vapor_source!r}, cooling={self.cooling!r})"
+            f"vapor_source={self.vapor_source!r}, cooling={self.cooling!r}{repump})"
         )
 
     def explain(self, validity: ArrayLike) -> dict[str, int]:
@@ -311,31 +271,7 @@ class VaporCellMOT:
         ModelError
             For an input name the model does not have.
         """
-        unknown = [name for name in values if name not in self.inputs]
-        if unknown:
-            raise ModelError(
-                f"VaporCellMOT: unknown input {unknown[0]!r}; valid inputs: "
-                + ", ".join(self.inputs)
-            )
-        values = values_in_si(values, self.inputs)
-        arrays = {
-            name: np.asarray(values.get(name, spec.default), dtype=float)
-            for name, spec in self.inputs.items()
-        }
-        shape = np.broadcast_shapes(*(a.shape for a in arrays.values()))
-        n = math.prod(shape)
-        flat = {k: np.broadcast_to(a, shape).reshape(-1) for k, a in arrays.items()}
-        out = {o.name: np.empty(n, dtype=float) for o in _OUTPUTS if o.name != "validity"}
-        out["validity"] = np.empty(n, dtype=np.int64)
-        for start in range(0, n, _CHUNK):
-            stop = min(n, start + _CHUNK)
-            # extreme but valid inputs may overflow to inf (e.g. a vanishing gradient moves the
-            # trap centre to infinity); every such inf is then handled as a limit below
-            with np.errstate(over="ignore", under="ignore", divide="ignore", invalid="ignore"):
-                part = self._evaluate_flat({k: a[start:stop] for k, a in flat.items()})
-            for key, value in part.items():
-                out[key][start:stop] = value
-        return {key: value.reshape(shape) for key, value in out.items()}
+        return evaluate_flat_in_chunks(self, values, self._evaluate_flat, chunk=_CHUNK)
 
     def _light_and_trap(self, s_x, detuning, axial, g, back, scale):
         """Light at the field zero and the trap it makes (shared saturation).
@@ -400,12 +336,7 @@ class VaporCellMOT:
         peak_saturation = light.peak_intensity(power, waist) / i_sat
 
         # vapor, and its Beer-Lambert attenuation of the beams (Doppler-broadened line)
-        t_cell = x["cell_temperature"]
-        if self.vapor_source == "fraction":
-            density = x["vapor_fraction"] * vapor.saturated_density(sp.vapor, t_cell)  # type: ignore[arg-type]
-            flags[t_cell < ALCOCK_LOWEST] |= Validity.EXTRAPOLATING
-        else:
-            density = x["vapor_density"]
+        density, t_cell = self._vapor(x, flags)
         speed = vapor.most_probable_speed(mass, t_cell)
         kvp = k * speed
         sigma_vapor = (
@@ -413,7 +344,7 @@ class VaporCellMOT:
             * (3 * sp.wavelength**2 / (2 * np.pi) * math.sqrt(math.pi) * gamma / (2 * kvp))
             * np.exp(-((2 * np.pi * detuning / kvp) ** 2))
         )
-        depth = density * sigma_vapor * x["cell_length"]
+        depth = density * sigma_vapor * x.get("cell_length", 0.0)
         flags[depth > 1.0] |= Validity.OPTICALLY_THICK
         s0 = peak_saturation * np.exp(-0.5 * depth)
         back = (1.0 - imbalance) * np.exp(-depth)
@@ -425,11 +356,39 @@ class VaporCellMOT:
         trap = self._light_and_trap(s0, cooling_detuning, axial, g, back, scale)
         s_total = trap["s_total"]
         rate = light.scattering_rate(s_total, detuning, gamma)
-        repump_saturation = (
-            light.beam_intensity(x["repump_power"], waist, c, aperture_radius=aperture) / i_sat
-        )
-        leak = sp.leak_probability(detuning, saturation=s_total)
-        bright = mot.bright_fraction(rate, leak, mot.repump_rate(repump_saturation, gamma))
+
+        def repump_rate(name: str, detuning_name: str = "") -> NDArray:
+            intensity = light.beam_intensity(x[name], waist, c, aperture_radius=aperture)
+            # a detuned repumper: (Gamma/2) s / (1 + s + x^2) = the resonant form at s/(1 + x^2)
+            off = (4.0 * math.pi * x[detuning_name] / gamma) ** 2 if detuning_name else 0.0
+            return mot.repump_rate(intensity / i_sat / (1.0 + off), gamma)
+
+        if self.repump is None:
+            leak = sp.leak_probability(detuning, saturation=s_total)
+            bright = mot.bright_fraction(rate, leak, repump_rate("repump_power"))
+            leak_loss = np.zeros_like(rate)
+            flags[(leak > 0) & ~(x["repump_power"] > 0)] |= Validity.NO_REPUMP
+        else:
+            bright, leak_loss = strontium.shelving(
+                rate,
+                self.repump,
+                rate_3p2=(
+                    repump_rate("repump_power", "repump_detuning")
+                    if self.repump != "none"
+                    else 0.0
+                ),
+                rate_3p0=(
+                    repump_rate("repump_679_power", "repump_679_detuning")
+                    if self.repump == "707+679"
+                    else 0.0
+                ),
+                escape_rate=x["shelved_escape_rate"],
+            )
+        # the largest push of one beam against gravity (issue: flag under ten g)
+        strongest = sp.max_acceleration * peak_saturation / (1.0 + peak_saturation)
+        flags[strongest < 10.0 * constants.g] |= Validity.WEAK_LIGHT_FORCE
+        if constants.hbar * k**2 / (2.0 * mass) > 0.1 * gamma:
+            flags |= Validity.RECOIL_LIMITED
 
         loading = capture.capture(
             s0,
@@ -466,10 +425,16 @@ class VaporCellMOT:
             held = held * special.erf(waist / (math.sqrt(2.0) * sigma_a))
         ramp = np.clip(0.5 * (np.log10(np.maximum(g, 1e-300)) + 3.0), 0.0, 1.0)
         held = held * ramp * ramp * (3.0 - 2.0 * ramp) * cools
-        load = x["loading_prefactor"] * loading.loading_rate * held
-        one_body = mot.vapor_loss_rate(
-            density, x["vapor_loss_coefficient"]
-        ) + vapor.background_loss_rate(x["background_pressure"], x["background_loss_coefficient"])
+        raw, source_loss, extra = self._source(x, loading, flags)
+        load = x["loading_prefactor"] * raw * held
+        one_body = (
+            mot.vapor_loss_rate(density, x["vapor_loss_coefficient"])
+            + vapor.background_loss_rate(
+                x["background_pressure"], x["background_loss_coefficient"]
+            )
+            + leak_loss
+            + source_loss
+        )
         sigma = mot.temperature_limited_radius(finite_t, trap["kappa"])
         n_lim = cloud.limiting_density(
             x["density_limit"],
@@ -489,12 +454,9 @@ class VaporCellMOT:
         flags[~(peak_saturation > 0)] |= Validity.NO_POWER
         flags[~cools] |= Validity.BLUE_DETUNING
         flags[~(axial > 0)] |= Validity.NO_GRADIENT
-        flags[~(density > 0)] |= Validity.NO_VAPOR
-        flags[~(loading.loading_rate > 0) & (peak_saturation > 0) & cools & (density > 0)] |= (
-            Validity.NO_CAPTURE
-        )
+        nothing = (flags & int(Validity.NO_VAPOR | Validity.NO_SOURCE)) != 0
+        flags[~(raw > 0) & (peak_saturation > 0) & cools & ~nothing] |= Validity.NO_CAPTURE
         flags[(g < 1e-3) & (peak_saturation > 0)] |= Validity.CENTRE_IN_DARK
-        flags[(leak > 0) & ~(x["repump_power"] > 0)] |= Validity.NO_REPUMP
         no_trap = (flags & int(_NO_TRAP)) != 0
         flags[~no_trap & np.isinf(state.atom_number)] |= Validity.NO_LOSS
 
@@ -507,6 +469,13 @@ class VaporCellMOT:
         unbounded = ~no_trap & np.isinf(state.atom_number)
         radius = np.where(no_trap, 0.0, np.where(unbounded, np.inf, state.cloud_radius))
         nbar = np.where(unbounded, 0.0, np.nan_to_num(nbar, nan=0.0))
+        if self.repump == "none":
+            extra = {
+                **extra,
+                "reservoir_atoms": strontium.reservoir_atoms(
+                    atoms, rate * bright, axial, one_body - leak_loss, x["reservoir_time"]
+                ),
+            }
         return {
             "atom_number": atoms,
             "loading_time": np.where(no_trap, empty_time, state.loading_time),
@@ -530,5 +499,51 @@ class VaporCellMOT:
             "loss_rate": one_body + x["two_body_coefficient"] * nbar,
             "saturation_parameter": s0 * (1.0 + 2.0 * g) / 3.0,
             "bright_fraction": bright,
+            **extra,
             "validity": flags,
         }
+
+    def _vapor(self, x: Mapping[str, NDArray], flags: NDArray) -> tuple[NDArray, NDArray]:
+        """Vapor density at the trap and its temperature; caps an impossible density."""
+        sp = self.species
+        t_cell = x["cell_temperature"]
+        saturated = None
+        if sp.vapor is not None:
+            saturated = vapor.saturated_density(sp.vapor, t_cell)
+        if self.vapor_source == "fraction":
+            density = x["vapor_fraction"] * saturated
+            flags[t_cell < ALCOCK_LOWEST] |= Validity.EXTRAPOLATING
+        else:
+            density = x["vapor_density"]
+            if saturated is not None:
+                # no cell holds more than the saturated vapor: the excess condenses
+                flags[density > saturated * (1.0 + 1e-9)] |= Validity.SUPERSATURATED
+                density = np.minimum(density, saturated)
+        flags[~(density > 0)] |= Validity.NO_VAPOR
+        return density, t_cell
+
+    def _source(
+        self, x: Mapping[str, NDArray], loading: capture.CaptureResult, flags: NDArray
+    ) -> tuple[NDArray, NDArray | float, dict[str, NDArray]]:
+        """Loading rate before holding and prefactor, extra one-body loss, extra outputs."""
+        return loading.loading_rate, 0.0, {}
+
+
+def _repump_scheme(
+    model: str, sp: Species, repump: strontium.RepumpScheme | None
+) -> strontium.RepumpScheme | None:
+    """The repump scheme: Sr-88's 461 nm line needs one (default '707+679'); others none."""
+    if sp.leak_probability_floor > 0:
+        scheme = repump or "707+679"
+        if scheme not in strontium.REPUMP_SCHEMES:
+            raise ModelError(
+                f"{model}: repump={repump!r} is not valid; use one of "
+                + ", ".join(repr(r) for r in strontium.REPUMP_SCHEMES)
+            )
+        return scheme
+    if repump is not None:
+        raise ModelError(
+            f"{model}: the repump option applies to species with a 1D2-type leak (Sr88), "
+            f"not {sp.name!r}; remove it"
+        )
+    return None

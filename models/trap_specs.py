@@ -4,15 +4,29 @@ from __future__ import annotations
 
 import math
 
-from trapbudget.models import cooling, vapor
+from trapbudget.models import cooling, strontium, vapor
 from trapbudget.models.protocol import InputSpec, OutputSpec
 from trapbudget.models.species import Species
 
-__all__ = ["OUTPUTS", "inputs"]
+__all__ = ["BACKGROUND_LOSS_INPUT", "OUTPUTS", "inputs"]
+
+BACKGROUND_LOSS_INPUT = InputSpec(
+    "background_loss_coefficient",
+    "1/(Pa*s)",
+    float(vapor.ARPORNTHIP_COEFFICIENT),
+    0.0,
+    1e8,
+    "loss rate per background pressure",
+    constant=True,
+)
 
 
 def inputs(
-    sp: Species, gradient_source: str, vapor_source: str, cooling_model: str
+    sp: Species,
+    gradient_source: str,
+    vapor_source: str,
+    cooling_model: str,
+    repump: str | None = None,
 ) -> dict[str, InputSpec]:
     # default detuning -2 Gamma (2 significant digits): -12 MHz for Rb
     detuning = float(f"{-2.0 * sp.linewidth_hz:.2g}")
@@ -57,7 +71,9 @@ def inputs(
         InputSpec(
             "bias_field", "T", 0.0, -1e-3, 1e-3, "stray uniform field (moves the trap centre)"
         ),
-        InputSpec("repump_power", "W", 1e-3, 0.0, 0.5, "repumper power at the cell (total)"),
+    ]
+    specs += _repump_inputs(repump)
+    specs += [
         InputSpec(
             "cell_temperature", "K", 298.15, 250.0, 450.0, "cell wall and vapor temperature"
         ),
@@ -98,19 +114,13 @@ def inputs(
             "<sigma v> for collisions with the hot vapor",
             constant=True,
         ),
-        InputSpec(
-            "background_loss_coefficient",
-            "1/(Pa*s)",
-            float(vapor.ARPORNTHIP_COEFFICIENT),
-            0.0,
-            1e8,
-            "loss rate per background pressure",
-            constant=True,
-        ),
+        BACKGROUND_LOSS_INPUT,
         InputSpec(
             "two_body_coefficient",
             "m**3/s",
-            1e-17,
+            # 1e-11 cm^3/s for the alkalis; 1e-10 cm^3/s for a Sr blue MOT (the order of
+            # Dinneen et al., PRA 59, 1216 (1999); from memory)
+            1e-16 if sp.element == "Sr" else 1e-17,
             0.0,
             1e-13,
             "light-assisted two-body loss coefficient beta",
@@ -166,6 +176,51 @@ def inputs(
             )
         )
     return {s.name: s for s in specs}
+
+
+def _repump_detuning(name: str, line: str) -> InputSpec:
+    # the repump line's width is taken as the cooling line's (as for the alkali repumper)
+    return InputSpec(name, "Hz", 0.0, -1e9, 1e9, f"{line} repumper detuning from its line")
+
+
+def _repump_inputs(repump: str | None) -> list[InputSpec]:
+    if repump is None:
+        return [
+            InputSpec("repump_power", "W", 1e-3, 0.0, 0.5, "repumper power at the cell (total)")
+        ]
+    specs = []
+    if repump == "707+679":
+        specs += [
+            InputSpec("repump_power", "W", 2e-3, 0.0, 0.5, "707 nm (3P2 -> 3S1) repumper power"),
+            InputSpec(
+                "repump_679_power", "W", 2e-3, 0.0, 0.5, "679 nm (3P0 -> 3S1) repumper power"
+            ),
+            _repump_detuning("repump_detuning", "707 nm"),
+            _repump_detuning("repump_679_detuning", "679 nm"),
+        ]
+    elif repump == "481":
+        specs.append(
+            InputSpec(
+                "repump_power", "W", 2e-3, 0.0, 0.5, "481 nm (3P2 -> 5p2 3P2) repumper power"
+            )
+        )
+        specs.append(_repump_detuning("repump_detuning", "481 nm"))
+    else:
+        specs.append(
+            InputSpec("reservoir_time", "s", 1.0, 0.0, 1e3, "time the MOT fills the 3P2 reservoir")
+        )
+    specs.append(
+        InputSpec(
+            "shelved_escape_rate",
+            "1/s",
+            strontium.SHELVED_ESCAPE_RATE,
+            0.0,
+            1e6,
+            "rate at which an atom shelved in 3P2 or 3P0 leaves the MOT region",
+            constant=True,
+        )
+    )
+    return specs
 
 
 OUTPUTS = [

@@ -1,4 +1,4 @@
-"""Saturated vapor pressure of the alkali metals in Alcock's form, continuous at melting."""
+"""Saturated vapor pressure of the metals in Alcock's form, continuous at melting."""
 
 from __future__ import annotations
 
@@ -35,6 +35,9 @@ class VaporPressure:
         Melting temperature, K.
     source : str
         Citation of the coefficients.
+    solid_c, liquid_c : float
+        ``C`` of Alcock's Table 1 form ``log10(P / atm) = A + B / T + C log10(T / K)``
+        (0 for the two-term Table 2 form of the alkalis).
 
     Notes
     -----
@@ -53,6 +56,8 @@ class VaporPressure:
     liquid_b: float
     melting_point: float
     source: str = ALCOCK_SOURCE
+    solid_c: float = 0.0
+    liquid_c: float = 0.0
 
     def pressure(self, temperature: ArrayLike) -> np.ndarray:
         """Saturated vapor pressure, Pa, at ``temperature`` (K, broadcasts).
@@ -68,7 +73,8 @@ class VaporPressure:
         x = np.clip((t - self.melting_point + MELT_BLEND) / (2 * MELT_BLEND), 0.0, 1.0)
         weight = x * x * (3.0 - 2.0 * x)
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-            log_solid = self.solid_a + self.solid_b / t
-            log_liquid = self.liquid_a + self.liquid_b / t
+            log_t = np.log10(t) if (self.solid_c or self.liquid_c) else 0.0
+            log_solid = self.solid_a + self.solid_b / t + self.solid_c * log_t
+            log_liquid = self.liquid_a + self.liquid_b / t + self.liquid_c * log_t
             p = _ATM * 10.0 ** (log_solid + weight * (log_liquid - log_solid))
         return np.where(t > 0, p, 0.0)

@@ -13,6 +13,7 @@ import xarray as xr
 
 from trapbudget.reports import figures
 from trapbudget.reports.blocks import Figure, Section, Table, Text
+from trapbudget.reports.cautions import safety_cautions
 from trapbudget.reports.conclusion import bottom_line_section
 from trapbudget.reports.formatting import (
     format_number,
@@ -45,21 +46,8 @@ __all__ = [
     "validity_section",
 ]
 
-#: The cautions every report carries.
-SAFETY_CAUTIONS: list[str] = [
-    "This report computes numbers; it does not make an apparatus safe.",
-    "Lasers used for cooling and trapping (often class 3B or 4, near-infrared and nearly "
-    "invisible) can blind in a fraction of a second, including by stray reflections: use the "
-    "eyewear, enclosures and interlocks your laser-safety officer specifies.",
-    "Quadrupole coils carry high currents, store magnetic energy and get hot: follow local "
-    "electrical-safety codes; interlock the supplies and cooling.",
-    "Alkali metals (rubidium, caesium, potassium) react violently with water and can ignite in "
-    "air: handle them under the chemical-safety rules of your institution.",
-    "Glass vacuum cells can implode; heated cells, ovens and bake-outs burn: shield and label "
-    "them.",
-    "Defer to your laser-safety officer, local codes and licensed practice; nothing in this "
-    "report replaces them.",
-]
+#: The cautions of a report on a rubidium vapor cell (the others: ``safety_cautions``).
+SAFETY_CAUTIONS: list[str] = safety_cautions("Rb87", "VaporCellMOT", {})
 
 
 # --------------------------------------------------------------------------- checks
@@ -303,7 +291,13 @@ def assumptions_section(datasets: Datasets, study: Mapping[str, Any]) -> Section
 
 
 def safety_section(datasets: Datasets, study: Mapping[str, Any]) -> Section:
-    return Section("Safety", [Text(c, kind="caution") for c in SAFETY_CAUTIONS])
+    """Cautions fitted to the study's species and source (wavelengths, metal, oven, coils)."""
+    cautions = safety_cautions(
+        str(study.get("species", "") or ""),
+        str(study.get("model", "") or ""),
+        study.get("model_options") or {},
+    )
+    return Section("Safety", [Text(c, kind="caution") for c in cautions])
 
 
 CORE_BUILDERS = [

@@ -198,6 +198,16 @@ def plain_summary(ds: xr.Dataset) -> str:
                     f"The share of runs meeting '{label}' goes from {format_percent(pb)} to "
                     f"{format_percent(pa)}."
                 )
+    if ds.attrs.get("model_before") and ds.attrs.get("model_after") != ds.attrs["model_before"]:
+        parts.append(
+            f"The two sides use different models ({ds.attrs['model_before']} before, "
+            f"{ds.attrs['model_after']} after): only the outputs both give are compared."
+        )
+    if ds.attrs.get("outputs_left_out"):
+        parts.append(
+            f"Left out, as only one side gives them: {ds.attrs['outputs_left_out']} "
+            "(with any requirement on them)."
+        )
     parts.append(
         f"How sure: both sides were simulated with the same {n} random runs of a physics "
         "model, so the difference is measured precisely (standard errors in the tables); "
@@ -256,6 +266,9 @@ def comparison_json(ds: xr.Dataset) -> dict[str, Any]:
         "title",
         "title_before",
         "title_after",
+        "model_before",
+        "model_after",
+        "outputs_left_out",
         "n_samples",
         "method",
         "seed",
@@ -312,6 +325,12 @@ def comparison_rich_tables(ds: xr.Dataset) -> list[Any]:
             table.add_column(column, overflow="fold")
         for row in _output_rows(ds, option):
             table.add_row(*row)
+        if ds.attrs.get("outputs_left_out"):
+            table.caption = (
+                f"{ds.attrs.get('model_before', '')} before, {ds.attrs.get('model_after', '')} "
+                f"after; left out (only one side gives them): {ds.attrs['outputs_left_out']}"
+            )
+            table.caption_justify = "left"
         tables.append(table)
     rows = _requirement_rows(ds)
     if rows:

@@ -89,8 +89,10 @@ def test_bad_options_raise():
         VaporCellMOT(gradient_source="current")
     with pytest.raises(ModelError, match="vapor_source='pressure' is not valid"):
         VaporCellMOT(vapor_source="pressure")
-    with pytest.raises(ModelError, match="'Sr88' has no vapor-pressure data"):
-        VaporCellMOT("Sr88")
+    with pytest.raises(ModelError, match="repump='707' is not valid"):
+        VaporCellMOT("Sr88", repump="707")  # type: ignore[arg-type]
+    with pytest.raises(ModelError, match="applies to species with a 1D2-type leak"):
+        VaporCellMOT("Rb87", repump="none")
     with pytest.raises(ModelError, match="is not known; use one of: Rb87"):
         VaporCellMOT("Xx99")
 

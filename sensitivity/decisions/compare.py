@@ -288,6 +288,32 @@ def _same_species(before: Any, after: Any) -> None:
         )
 
 
+def _model_label(scenario: Any) -> str:
+    return str(getattr(scenario, "model_name", "") or type(scenario.model).__name__)
+
+
+def _shared_outputs(before: Any, after: Any, wanted: Sequence[str]) -> tuple[list[str], list[str]]:
+    """The wanted outputs both models give, and those left out (two models, e.g. two sources).
+
+    A model without an ``outputs`` table (a plain callable) is taken to give them all.
+    """
+    names = []
+    for side in (before, after):
+        table = getattr(side.model, "outputs", None)
+        names.append(None if table is None else set(table))
+    shared = [o for o in wanted if all(t is None or o in t for t in names)]
+    if not shared:
+        from trapbudget.sensitivity.errors import ScenarioError
+
+        raise ScenarioError(
+            f"the two models share none of the outputs {', '.join(wanted)}; name an output "
+            "both give in [outputs] names",
+            path=getattr(after, "source", None),
+            key="outputs.names",
+        )
+    return shared, [o for o in wanted if o not in shared]
+
+
 def compare(
     before: Scenario,
     after: Scenario,
@@ -325,7 +351,11 @@ def compare(
     -------
     xarray.Dataset
         As :func:`compare_samples`, judged against the requirements of
-        ``before`` (a change must not move the goalposts).
+        ``before`` (a change must not move the goalposts). The two may use different
+        models of the same species (a vapor cell before, a 2D-MOT source after): the
+        outputs both give are compared, and ``attrs["outputs_left_out"]`` names the rest
+        (requirements on them are left out too); ``model_before`` and ``model_after``
+        name the models.
 
     Raises
     ------
@@ -334,7 +364,9 @@ def compare(
     """
     _same_species(before, after)
     n, m, r, level = _settings(before, n_samples, method, rng)
-    outs = list(outputs) if outputs is not None else _required_outputs(before, None)
+    wanted = list(outputs) if outputs is not None else _required_outputs(before, None)
+    outs, left_out = _shared_outputs(before, after, wanted)
+    requirements = tuple(req for req in before.requirements if req.output in outs)
     unit, blocks = replicated_unit(n, len(_uncertain_names([before, after])), method=m, rng=r)
     samples_before, samples_after = common_random_samples(
         [before, after], n_samples=n, method=m, unit=unit, outputs=outs, progress=progress
@@ -343,7 +375,7 @@ def compare(
         samples_before,
         samples_after,
         outputs=outs,
-        requirements=before.requirements,
+        requirements=requirements,
         confidence_level=level,
         repetition_rate=repetition_rate,
         cost=cost,
@@ -352,6 +384,9 @@ def compare(
     ds.attrs.update(
         title_before=str(getattr(before, "title", "")),
         title_after=str(getattr(after, "title", "")),
+        model_before=_model_label(before),
+        model_after=_model_label(after),
+        outputs_left_out=", ".join(left_out),
         method=m,
         seed=r if isinstance(r, int) else "",
     )

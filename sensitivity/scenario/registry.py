@@ -23,8 +23,22 @@ def _vapor_cell_mot(species: str, **options: Any) -> Any:
     return VaporCellMOT(species, **options)
 
 
+def _beam_loaded_mot(species: str, **options: Any) -> Any:
+    from trapbudget.models import BeamLoadedMOT
+
+    return BeamLoadedMOT(species, **options)
+
+
+def _narrow_line_mot(species: str, **options: Any) -> Any:
+    from trapbudget.models import NarrowLineMOT
+
+    return NarrowLineMOT(species or "Sr88-689", **options)
+
+
 MODELS: dict[str, Callable[..., Any]] = {
     "VaporCellMOT": _vapor_cell_mot,
+    "BeamLoadedMOT": _beam_loaded_mot,
+    "NarrowLineMOT": _narrow_line_mot,
     "ishigami": lambda species, **options: Ishigami(**options),
     "linear": lambda species, **options: LinearModel(**options),
     "g-function": lambda species, **options: GFunction(**options),
