@@ -300,11 +300,17 @@ def comparison_json(ds: xr.Dataset) -> dict[str, Any]:
 
 def comparison_rich_tables(ds: xr.Dataset) -> list[Any]:
     """Rich tables for the terminal: the ranking (upgrades) and each change's outputs."""
+    from rich import box
     from rich.table import Table as RichTable
 
     tables = []
     if "upgrade" in ds.dims:
-        ranking = RichTable(title="Upgrades ranked by improvement per unit cost")
+        ranking = RichTable(
+            title="Upgrades ranked by improvement per unit cost",
+            title_justify="left",
+            box=box.SIMPLE_HEAD,
+            pad_edge=False,
+        )
         for column in upgrade_columns(ds):
             ranking.add_column(column, overflow="fold")
         ranking.caption = benefit_definition(ds)
@@ -313,32 +319,57 @@ def comparison_rich_tables(ds: xr.Dataset) -> list[Any]:
             ranking.add_row(*row)
         tables.append(ranking)
     for option in _options(ds):
-        table = RichTable(title=f"{option}: before → after")
-        for column in (
-            "Output",
-            "Mean",
-            "Std",
-            "Interval before",
-            "Interval after",
-            "Variance removed",
-        ):
-            table.add_column(column, overflow="fold")
-        for row in _output_rows(ds, option):
-            table.add_row(*row)
-        if ds.attrs.get("outputs_left_out"):
-            table.caption = (
-                f"{ds.attrs.get('model_before', '')} before, {ds.attrs.get('model_after', '')} "
-                f"after; left out (only one side gives them): {ds.attrs['outputs_left_out']}"
+        table = RichTable(
+            title=f"{option}: before → after",
+            title_justify="left",
+            box=box.SIMPLE_HEAD,
+            pad_edge=False,
+        )
+        table.add_column("output", no_wrap=True)
+        for column in ("mean", "std"):
+            table.add_column(column, justify="right", no_wrap=True)
+        table.add_column("variance", justify="right", no_wrap=True)
+        item = _pick(ds, option)
+        for output in ds["output"].values:
+            o = item.sel(output=output)
+            unit = _unit(ds, str(output))
+            removed = float(o["variance_removed_fraction"])
+            change = (
+                f"{format_percent(removed)} less"
+                if removed >= 0
+                else f"×{format_number(1.0 - removed)} more"
             )
-            table.caption_justify = "left"
+            table.add_row(
+                str(output),
+                f"{_q(float(o['mean_before']), unit)}\n→ {_q(float(o['mean_after']), unit)}",
+                f"{_q(float(o['std_before']), unit)}\n→ {_q(float(o['std_after']), unit)}",
+                change,
+            )
+        notes = ["95 % intervals in the report and --json"]
+        if ds.attrs.get("outputs_left_out"):
+            notes.insert(
+                0,
+                f"{ds.attrs.get('model_before', '')} before, {ds.attrs.get('model_after', '')} "
+                f"after; left out (only one side gives them): {ds.attrs['outputs_left_out']}",
+            )
+        table.caption = "\n".join(notes)
+        table.caption_justify = "left"
         tables.append(table)
     rows = _requirement_rows(ds)
     if rows:
-        table = RichTable(title="Requirements before → after")
-        for column in ("Change", "Requirement", "Probability met", "Failing runs per day"):
-            table.add_column(column)
+        table = RichTable(
+            title="Requirements before → after",
+            title_justify="left",
+            box=box.SIMPLE_HEAD,
+            pad_edge=False,
+        )
+        per_day = any(row[3] for row in rows)
+        columns = ["change", "requirement", "probability met"]
+        columns += ["failing runs per day"] if per_day else []
+        for column in columns:
+            table.add_column(column, ratio=1 if column == "requirement" else None)
         for row in rows:
-            table.add_row(*row)
+            table.add_row(*(row if per_day else row[:3]))
         tables.append(table)
     return tables
 
