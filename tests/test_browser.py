@@ -60,13 +60,33 @@ def _browser_or_skip():
 @pytest.fixture(scope="module")
 def reports(tmp_path_factory) -> dict[str, Path]:
     folder = tmp_path_factory.mktemp("browser")
-    name = "harrier-rb87.toml"
-    scenario = folder / name
-    scenario.write_bytes((resources.files("trapbudget.examples") / name).read_bytes())
+    package = resources.files("trapbudget.examples")
+    for name in (
+        "harrier-rb87.toml",
+        "harrier-upgrade.toml",
+        "harrier-detuning-scan.csv",
+        "harrier-time-of-flight.csv",
+    ):
+        (folder / name).write_bytes((package / name).read_bytes())
+    scenario = folder / "harrier-rb87.toml"
     study = ["rank", scenario, "--samples", "256", "--no-convergence"]
     scan = ["scan", scenario, "detuning", "--range", "-30MHz", "-2MHz", "--samples", "128"]
+    spec = ["spec", folder / "harrier-upgrade.toml", "--samples", "1024"]
+    calibration = [
+        "calibrate",
+        scenario,
+        folder / "harrier-detuning-scan.csv",
+        folder / "harrier-time-of-flight.csv",
+        "--free",
+        "loading_prefactor,sub_doppler_coefficient",
+    ]
     out = {}
-    for label, argv in (("study", study), ("scan", scan)):
+    for label, argv in (
+        ("study", study),
+        ("scan", scan),
+        ("spec", spec),
+        ("calibration", calibration),
+    ):
         out[label] = folder / label
         assert main([str(a) for a in [*argv, "--out", out[label], "--quiet"]]) == 0
     return out
@@ -78,7 +98,16 @@ def _shots_dir(tmp_path: Path) -> Path:
     return target
 
 
-@pytest.mark.parametrize("label", ["study", "scan"])
+#: A heading each report must show.
+HEADINGS = {
+    "study": "Bottom line",
+    "scan": "Scan of detuning",
+    "spec": "Tolerance allocation",
+    "calibration": "Calibration to measurements",
+}
+
+
+@pytest.mark.parametrize("label", list(HEADINGS))
 def test_report_loads_offline_with_every_figure_visible(reports, label, tmp_path):
     driver = _browser_or_skip()
     try:
@@ -109,8 +138,7 @@ def test_report_loads_offline_with_every_figure_visible(reports, label, tmp_path
             "return Array.from(document.querySelectorAll('h2')).map(function (h) {"
             " return h.textContent.trim(); });"
         )
-        expected = "Bottom line" if label == "study" else "Scan of detuning"
-        assert any(expected in h for h in headings), headings
+        assert any(HEADINGS[label] in h for h in headings), headings
         height = driver.execute_script("return document.documentElement.scrollHeight")
         driver.set_window_size(1280, min(int(height) + 100, 16000))
         shot = _shots_dir(tmp_path) / f"report-{label}.png"
