@@ -169,9 +169,9 @@ def with_default_costs(scenario: Scenario) -> Scenario:
     """
     import dataclasses
 
-    from trapbudget.sensitivity.scenario.costs import SmoothCost
+    from trapbudget.sensitivity.scenario.costs import SmoothCost, TieredCost
 
-    costs = {
+    costs: dict[str, TieredCost | SmoothCost] = {
         name: SmoothCost(tolerance, DEFAULT_REFERENCE_COST, 1.0)
         for name, tolerance in scenario.tolerances.items()
         if name in scenario.inputs and float(tolerance.value) > 0

@@ -179,7 +179,7 @@ def _delta_fast(x, y, *, n_bootstrap, confidence_level, rng, grid_size=256):
     reps = np.array(
         [
             estimate(
-                tuple(  # type: ignore[arg-type]
+                tuple(
                     generator.multinomial(h.size, np.full(h.size, 1.0 / h.size)).astype(float)
                     for h in halves
                 )
