@@ -122,6 +122,13 @@ def _limit_text(item: Mapping[str, Any]) -> str:
 def _span(low: float | None, high: float | None, level: str, digits: int) -> str:
     if low is None or high is None:
         return ""
+    # enough digits that both ends differ where they do (99.98 % to 100 %, not 100 to 100)
+    while (
+        digits < 6
+        and low < high
+        and format_percent(low, digits=digits) == format_percent(high, digits=digits)
+    ):
+        digits += 1
     return (
         f"{level} interval {format_percent(low, digits=digits)}"
         f" to {format_percent(high, digits=digits)}; "

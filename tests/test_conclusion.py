@@ -87,3 +87,15 @@ def test_demo_conclusion_names_the_missed_requirement_and_its_drivers(capsys, tm
     assert math.isfinite(atoms[0]["share"])
     html = (Path(result["report"]) / "report.html").read_text(encoding="utf-8")
     assert "Bottom line" in html and "MISSED" in html
+
+
+def test_interval_ends_keep_the_digits_that_tell_them_apart():
+    # every one of 10^5 runs passes: the Clopper-Pearson interval (scipy.stats.binomtest)
+    # is [0.99996, 1]; printed at two decimals both ends would read 100.00 %
+    from scipy import stats
+
+    from trapbudget.reports.conclusion import _span
+
+    ci = stats.binomtest(100_000, 100_000).proportion_ci(method="exact")
+    text = _span(ci.low, ci.high, "95 %", 2)
+    assert text == "95 % interval 99.996 % to 100.000 %; "
