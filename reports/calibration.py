@@ -31,6 +31,7 @@ __all__ = [
     "constant_rows",
     "fit_figure",
     "residual_figure",
+    "trace_figure",
 ]
 
 
@@ -167,6 +168,60 @@ def fit_figure(ds: xr.Dataset) -> bytes | None:
         return figure_png(fig)
 
 
+def trace_figure(ds: xr.Dataset) -> bytes | None:
+    """Each raw loading curve and time-of-flight expansion with the calibrated model over it.
+
+    None when the Dataset holds no traces.
+    """
+    if "trace" not in ds.dims or ds.sizes["trace"] == 0:
+        return None
+    n = ds.sizes["trace"]
+    columns = min(3, n)
+    rows = math.ceil(n / columns)
+    with matplotlib.rc_context(FIGURE_STYLE):  # type: ignore[arg-type]
+        fig, axes = subplots(rows, columns, figsize=(3.1 * columns, 2.5 * rows), squeeze=False)
+        for k in range(rows * columns):
+            ax = axes[k // columns][k % columns]
+            if k >= n:
+                ax.set_visible(False)
+                continue
+            trace = ds.isel(trace=k)
+            t = np.asarray(trace["trace_time"].values, dtype=float)
+            y = np.asarray(trace["trace_measured"].values, dtype=float)
+            u = np.asarray(trace["trace_uncertainty"].values, dtype=float)
+            keep = np.isfinite(t) & np.isfinite(y)
+            unit = str(trace["trace_unit"].values)
+            y_factor, y_label = display_scale(unit, float(np.nanmax(np.abs(y[keep]))))
+            grid = np.asarray(trace["trace_grid_time"].values, dtype=float)
+            t_factor, t_label = display_scale("s", float(np.nanmax(grid)))
+            ax.errorbar(
+                t[keep] * t_factor,
+                y[keep] * y_factor,
+                yerr=np.where(np.isfinite(u[keep]), u[keep], 0.0) * y_factor,
+                fmt="o",
+                ms=2.5,
+                color=ORANGE,
+                capsize=1.5,
+                label="measured",
+            )
+            ax.plot(
+                grid * t_factor,
+                np.asarray(trace["trace_model"].values) * y_factor,
+                color=BLUE,
+                lw=1.4,
+                label="model, fitted",
+            )
+            signal = str(trace["trace_signal"].values).replace("_", " ")
+            ax.set_xlabel(f"time ({t_label})")
+            ax.set_ylabel(f"{signal} ({y_label})" if y_label else signal)
+            label = str(trace["trace_label"].values)
+            ax.set_title(label.replace(": ", ":\n", 1), fontsize="x-small")
+            if k == 0:
+                ax.legend(loc="lower right", fontsize="x-small")
+        fig.tight_layout()
+        return figure_png(fig)
+
+
 def _correlation_table(ds: xr.Dataset) -> Table | None:
     names = [str(n) for n in ds["constant_fit"].values]
     if len(names) < 2:
@@ -261,6 +316,19 @@ def calibration_section(
                 "(points, standard uncertainty as used in the fit), the model with the fitted "
                 "constants (line) and with the starting ones (dashed); other settings at their "
                 "median over the data set",
+            )
+        )
+    traces = trace_figure(ds)
+    if traces is not None:
+        blocks.append(
+            Figure(
+                "calibration-traces",
+                traces,
+                caption="The raw loading curves and time-of-flight expansions (points, with "
+                "their uncertainties where the file gives them) and the calibrated model at "
+                "each curve's settings: S (1 - exp(-t/tau)) from the model's steady-state "
+                "signal and loading time, sqrt(sigma0^2 + kB T t^2 / m) from its cloud radius "
+                "and temperature",
             )
         )
     blocks.append(

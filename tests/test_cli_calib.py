@@ -116,6 +116,21 @@ def test_fit_curves_pass_through_the_model_at_the_measured_settings(capsys, cali
         )
     # start and fitted constants give different curves (the fit moved the constants)
     assert not np.allclose(curve["curve_start"], curve["curve_fitted"])
+    # the raw traces: 3 loading curves and 2 expansions, each with the calibrated model; the
+    # demo data are the model plus noise of the stated size, so the model must run through
+    # each trace with a reduced chi-square of order one (below 3 for 12 to 40 points)
+    assert list(ds["trace_kind"].values).count("loading-curve") == 3
+    assert list(ds["trace_kind"].values).count("time-of-flight") == 2
+    assert (out / "figures" / "calibration-traces.png").is_file()
+    for k in range(ds.sizes["trace"]):
+        trace = ds.isel(trace=k)
+        t = trace["trace_time"].values
+        keep = np.isfinite(t)
+        model = np.interp(t[keep], trace["trace_grid_time"].values, trace["trace_model"].values)
+        z = (trace["trace_measured"].values[keep] - model) / trace["trace_uncertainty"].values[
+            keep
+        ]
+        assert np.mean(z**2) < 3.0, (str(trace["trace_label"].values), np.mean(z**2))
 
 
 def test_calibrate_is_reproducible(capsys, calibrated, tmp_path):

@@ -27,7 +27,7 @@ from trapbudget.sensitivity.lab.calibration import (
     FlatDirection,
 )
 from trapbudget.sensitivity.lab.datafiles import MeasurementSet, read_measurements
-from trapbudget.sensitivity.lab.fitcurves import fit_curves
+from trapbudget.sensitivity.lab.fitcurves import fit_curves, fit_traces
 from trapbudget.sensitivity.lab.observations import Observations, to_observations
 from trapbudget.sensitivity.scenario.core import Scenario
 
@@ -42,16 +42,18 @@ __all__ = ["MISFIT_P_VALUE", "calibrate"]
 
 def _as_observations(
     datasets: Any, *, model: Any, mass: float | None, two_body: bool, robust: bool
-) -> tuple[Observations, list[str]]:
+) -> tuple[Observations, list[str], list[MeasurementSet]]:
     if isinstance(datasets, Observations | MeasurementSet | str | os.PathLike):
         datasets = [datasets]
     parts: list[Observations] = []
     skipped: list[str] = []
+    read: list[MeasurementSet] = []
     for item in datasets:
         if isinstance(item, Observations):
             parts.append(item)
             continue
         mset = item if isinstance(item, MeasurementSet) else read_measurements(item, model=model)
+        read.append(mset)
         if mset.skipped_rows:
             skipped.append(
                 f"{mset.path.name if mset.path is not None else mset.label}: "
@@ -62,7 +64,7 @@ def _as_observations(
         )
     if not parts:
         raise DataError("no measurement files given; pass at least one")
-    return Observations.concatenate(parts), skipped
+    return Observations.concatenate(parts), skipped, read
 
 
 def _species_mass(scenario: Scenario) -> float | None:
@@ -191,8 +193,9 @@ def calibrate(
         )
     model = scenario.model
     names = _free_constants(scenario, model, free, allow_settings=allow_settings)
-    obs, skipped = _as_observations(
-        datasets, model=model, mass=_species_mass(scenario), two_body=two_body, robust=robust
+    mass = _species_mass(scenario)
+    obs, skipped, measurement_sets = _as_observations(
+        datasets, model=model, mass=mass, two_body=two_body, robust=robust
     )
     nominal = dict(getattr(scenario, "nominal", {}) or {})
     start = {name: float(nominal.get(name, model.inputs[name].default)) for name in names}
@@ -321,6 +324,11 @@ def calibrate(
         {n: float(start[n]) for n in names},
         {n: float(values[n]) for n in names},
     )
+    traces = fit_traces(
+        model, nominal, measurement_sets, {n: float(values[n]) for n in names}, mass=mass
+    )
+    if traces is not None:
+        curves = curves.merge(traces)
     return Calibration(
         free=names,
         fitted=tuple(fitted),

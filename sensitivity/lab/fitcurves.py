@@ -18,7 +18,7 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-__all__ = ["GRID_POINTS", "fit_curves"]
+__all__ = ["GRID_POINTS", "fit_curves", "fit_traces"]
 
 #: Points of each model curve.
 GRID_POINTS = 80
@@ -135,5 +135,110 @@ def fit_curves(
             "curve_start": (("curve", "grid"), np.reshape(rows_of["start"], grid)),
             "observation_curve": ("observation", obs_curve),
             "observation_x": ("observation", obs_x),
+        }
+    )
+
+
+def fit_traces(
+    model: Any,
+    nominal: Mapping[str, float],
+    measurement_sets: Any,
+    constants: Mapping[str, float],
+    *,
+    mass: float | None,
+    n_points: int = GRID_POINTS,
+) -> xr.Dataset | None:
+    """The raw loading curves and time-of-flight expansions beside the calibrated model.
+
+    Each curve of a ``loading-curve`` or ``time-of-flight`` file (its rows with one set of
+    settings) is kept as measured; beside it, the model at that curve's settings with the
+    fitted constants: ``S (1 - exp(-t / tau))`` from the model's steady-state signal and
+    loading time (one-body loading, Monroe et al. 1990), or the ballistic expansion
+    ``sqrt(sigma_0^2 + k_B T t^2 / m)`` from its cloud radius and temperature.
+
+    Returns
+    -------
+    xarray.Dataset or None
+        Dims ``trace``, ``point`` (measured rows, nan-padded) and ``trace_grid``:
+        ``trace_label``, ``trace_kind``, ``trace_signal``, ``trace_unit``,
+        ``trace_time``, ``trace_measured``, ``trace_uncertainty``, ``trace_grid_time``,
+        ``trace_model``; None when no file holds curves.
+    """
+    from trapbudget.models.observables import loading_curve, time_of_flight_radius
+    from trapbudget.sensitivity.lab.datafiles import _signal_of
+    from trapbudget.sensitivity.lab.observations import _setting_groups
+    from trapbudget.sensitivity.scenario.units import format_quantity
+
+    records: list[dict[str, Any]] = []
+    for mset in measurement_sets:
+        if mset.kind not in ("loading-curve", "time-of-flight"):
+            continue
+        if mset.kind == "time-of-flight" and mass is None:
+            continue
+        names = [name for name in mset.columns if name in model.inputs]
+        signal = _signal_of(mset.kind, list(mset.columns), mset.where)
+        given = mset.columns.get(f"{signal}_uncertainty")
+        for k, rows in enumerate(_setting_groups(mset, names), start=1):
+            point = {name: float(value) for name, value in nominal.items() if name in model.inputs}
+            point.update({n: float(v) for n, v in mset.settings.items() if n in model.inputs})
+            point.update({name: float(mset.columns[name][rows[0]]) for name in names})
+            point.update({name: float(value) for name, value in constants.items()})
+            with np.errstate(all="ignore"):
+                out = model.evaluate(point)
+            time = np.asarray(mset.columns["time"][rows], dtype=float)
+            grid = np.linspace(0.0, float(np.max(time)), n_points)
+            if mset.kind == "loading-curve":
+                curve = loading_curve(
+                    grid, float(np.asarray(out[signal])), float(np.asarray(out["loading_time"]))
+                )
+            else:
+                curve = time_of_flight_radius(
+                    grid,
+                    float(np.asarray(out["cloud_radius"])),
+                    float(np.asarray(out["temperature"])),
+                    mass=float(mass),  # type: ignore[arg-type]
+                )
+            shown = ", ".join(
+                f"{name} {format_quantity(float(mset.columns[name][rows[0]]), mset.units[name])}"
+                for name in names
+            )
+            records.append(
+                {
+                    "label": f"{mset.label}: curve {k}" + (f" ({shown})" if shown else ""),
+                    "kind": mset.kind,
+                    "signal": signal,
+                    "unit": str(mset.units.get(signal, "")),
+                    "time": time,
+                    "measured": np.asarray(mset.columns[signal][rows], dtype=float),
+                    "uncertainty": (
+                        np.full(rows.size, math.nan)
+                        if given is None
+                        else np.asarray(given[rows], dtype=float)
+                    ),
+                    "grid": grid,
+                    "model": np.asarray(curve, dtype=float),
+                }
+            )
+    if not records:
+        return None
+    width = max(r["time"].size for r in records)
+
+    def padded(key: str) -> np.ndarray:
+        out = np.full((len(records), width), math.nan)
+        for i, r in enumerate(records):
+            out[i, : r[key].size] = r[key]
+        return out
+
+    return xr.Dataset(
+        {
+            "trace_label": ("trace", np.asarray([r["label"] for r in records], dtype=str)),
+            "trace_kind": ("trace", np.asarray([r["kind"] for r in records], dtype=str)),
+            "trace_signal": ("trace", np.asarray([r["signal"] for r in records], dtype=str)),
+            "trace_unit": ("trace", np.asarray([r["unit"] for r in records], dtype=str)),
+            "trace_time": (("trace", "point"), padded("time")),
+            "trace_measured": (("trace", "point"), padded("measured")),
+            "trace_uncertainty": (("trace", "point"), padded("uncertainty")),
+            "trace_grid_time": (("trace", "trace_grid"), np.stack([r["grid"] for r in records])),
+            "trace_model": (("trace", "trace_grid"), np.stack([r["model"] for r in records])),
         }
     )
