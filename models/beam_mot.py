@@ -17,7 +17,7 @@ from __future__ import annotations
 import dataclasses
 import math
 from collections.abc import Mapping
-from typing import Literal
+from typing import Any, Literal
 
 import numpy as np
 from numpy.typing import NDArray
@@ -41,6 +41,7 @@ _CELL_INPUTS = ("cell_temperature", "cell_length", "vapor_fraction", "vapor_dens
 SOURCE_OUTPUTS = [
     OutputSpec("source_flux", "1/s", "atoms per second the source delivers towards the trap"),
     OutputSpec("captured_flux", "1/s", "part of that flux slow enough for the trap to capture"),
+    OutputSpec("source_velocity", "m/s", "mean speed of the atoms the source delivers"),
 ]
 
 _SOURCE_ASSUMPTIONS = {
@@ -61,8 +62,10 @@ _SOURCE_ASSUMPTIONS = {
         "A 2D-MOT source captures vapor atoms through the side of its beams below the "
         "transverse capture velocity of the same six-beam capture treatment, slow enough "
         "along the axis to be cooled within the cooling length; collisions with the vapor "
-        "saturate the flux with density and length; the beam leaves at the output velocity "
-        "(rms spread half of it), spreads at the Doppler temperature and falls under gravity.",
+        "saturate the flux with density and length; a push beam (rate-equation force with "
+        "its Doppler shift) accelerates the cooled atoms over its path and turns round the "
+        "backward ones it can stop; the beam leaves at that speed (rms spread half of it), "
+        "spreads at the Doppler temperature and falls under gravity.",
     ),
 }
 
@@ -220,11 +223,19 @@ class BeamLoadedMOT(VaporCellMOT):
     ) -> tuple[NDArray, NDArray | float, dict[str, NDArray]]:
         vc = loading.capture_velocity
         if self.source == "2d-mot":
-            flux, captured, loss = self._two_d(x, vc, flags)
+            flux, captured, loss, speed = self._two_d(x, vc, flags)
         else:
             flux, captured, loss = self._oven_beam(x, vc, flags)
+            if self.source == "oven":  # the flux-weighted mean speed of the effusive beam
+                speed = sources.beam_mean_speed(
+                    vapor.most_probable_speed(self.species.mass, x["oven_temperature"])
+                )
+            else:
+                speed = x["slower_final_velocity"]
         flags[~(flux > 0) & ~(captured > 0)] |= Validity.NO_SOURCE
-        return captured, loss, {"source_flux": flux, "captured_flux": captured}
+        speed = np.broadcast_to(speed, np.shape(flux)).astype(float)
+        outputs = {"source_flux": flux, "captured_flux": captured, "source_velocity": speed}
+        return captured, loss, outputs
 
     def _oven_beam(
         self, x: Mapping[str, NDArray], vc: NDArray, flags: NDArray
@@ -311,7 +322,7 @@ class BeamLoadedMOT(VaporCellMOT):
 
     def _two_d(
         self, x: Mapping[str, NDArray], vc: NDArray, flags: NDArray
-    ) -> tuple[NDArray, NDArray, NDArray]:
+    ) -> tuple[NDArray, NDArray, NDArray, NDArray]:
         """2D-MOT flux, captured flux and the chamber's extra loss (in the vapor term)."""
         sp = self.species
         t_src = x["source_temperature"]
@@ -339,18 +350,19 @@ class BeamLoadedMOT(VaporCellMOT):
         flags[transverse.extrapolating] |= Validity.EXTRAPOLATING
         s_all = 4.0 * s0
         accel = 0.5 * sp.max_acceleration * s_all / (1.0 + s_all)
+        v_out, turned = self._push(x, vp, transverse.capture_velocity, accel, s_all, detuning)
         flux, _ = sources.transverse_source_flux(
             density,
             most_probable_speed=vp,
             capture_velocity=transverse.capture_velocity,
             waist=waist,
             cooling_length=x["cooling_length"],
-            output_velocity=x["output_velocity"],
+            output_velocity=v_out,
             loss_coefficient=x["source_loss_coefficient"],
             transverse_acceleration=accel,
+            turned_fraction=turned,
         )
         # transfer: Doppler-temperature divergence from the exit hole, gravity on the way
-        v_out = x["output_velocity"]
         flight = x["source_distance"] / v_out
         sigma_v = np.sqrt(constants.k * sp.doppler_temperature / sp.mass)
         spread2 = x["exit_radius"] ** 2 / 4.0 + (sigma_v * flight) ** 2
@@ -358,7 +370,54 @@ class BeamLoadedMOT(VaporCellMOT):
         r2 = x["beam_waist"] ** 2
         inside = -np.expm1(-r2 / (2.0 * spread2)) * np.exp(-(drop**2) / (2.0 * spread2 + r2))
         slow_enough = _gaussian_cdf((vc - v_out) / (0.5 * v_out))
-        return flux, flux * inside * slow_enough, np.zeros_like(flux)
+        return flux, flux * inside * slow_enough, np.zeros_like(flux), v_out
+
+    def _push(
+        self,
+        x: Mapping[str, NDArray],
+        vp: NDArray,
+        vc: NDArray,
+        accel: NDArray,
+        s_all: NDArray,
+        detuning: NDArray,
+    ) -> tuple[NDArray, NDArray]:
+        """Exit velocity of the 2D-MOT beam and the share of backward atoms turned round.
+
+        The cooled atoms leave with the mean forward axial speed of the class the 2D-MOT
+        cools, ``v0 = vp (1 - exp(-x^2)) / (sqrt(pi) erf(x))`` with ``x = v_max / vp``
+        (``v_max = L a / v_c``, slow enough to be cooled within the length); the push
+        beam accelerates them over ``push_length`` (:func:`sources.push_exit_velocity`)
+        and turns round the backward ones it can stop there.
+        """
+        sp = self.species
+        with np.errstate(divide="ignore", invalid="ignore"):
+            v_max = np.where(vc > 0, x["cooling_length"] * accel / vc, 0.0)
+            ratio = v_max / vp
+            v0 = np.where(
+                ratio > 0,
+                vp * -np.expm1(-(ratio**2)) / (math.sqrt(math.pi) * special.erf(ratio)),
+                0.0,
+            )
+        s_push = light.peak_intensity(x["push_power"], x["push_waist"]) / (
+            sp.saturation_intensity * x["saturation_scale"]
+        )
+        lorentz = 1.0 / (1.0 + 4.0 * (2.0 * math.pi * detuning) ** 2 / sp.linewidth**2)
+        common: dict[str, Any] = {
+            "saturation": s_push,
+            "detuning": x["push_detuning"],
+            "other_saturation": s_all * lorentz,
+            "max_acceleration": sp.max_acceleration,
+            "wavenumber": sp.wavenumber,
+            "linewidth": sp.linewidth,
+            # 16 steps: within 0.1 % of 200 steps from rest, 1e-8 from the thermal start
+            "n_steps": 16,
+        }
+        v_out = sources.push_exit_velocity(x["push_length"], start_velocity=v0, **common)
+        # a backward atom is stopped if the push removes its speed over the path: the speed
+        # the push gives an atom starting at rest over the same path
+        v_stop = sources.push_exit_velocity(x["push_length"], **common)
+        turned = sources.push_stopped_fraction(v_stop, v_max, vp)
+        return np.maximum(v_out, 1e-3), turned
 
 
 def _two_d_inputs(sp: Species) -> list[InputSpec]:
@@ -374,7 +433,10 @@ def _two_d_inputs(sp: Species) -> list[InputSpec]:
         InputSpec("cooling_length", "m", 0.03, 1e-3, 0.3, "length of the 2D cooling region"),
         InputSpec("source_detuning", "Hz", detuning, -200e6, 50e6, "2D-MOT light detuning"),
         InputSpec("source_gradient", "T/m", 0.15, 0.0, 1.0, "2D quadrupole gradient"),
-        InputSpec("output_velocity", "m/s", 12.0, 0.5, 100.0, "mean velocity of the atom beam"),
+        InputSpec("push_power", "W", 5e-4, 0.0, 0.1, "push-beam power (0: no push beam)"),
+        InputSpec("push_waist", "m", 1e-3, 1e-4, 0.02, "push-beam 1/e^2 radius"),
+        InputSpec("push_detuning", "Hz", 0.0, -100e6, 100e6, "push-beam detuning"),
+        InputSpec("push_length", "m", 0.015, 0.0, 0.3, "path on which the push beam acts alone"),
         InputSpec("source_distance", "m", 0.3, 0.01, 3.0, "2D-MOT exit to trap centre"),
         InputSpec("exit_radius", "m", 5e-4, 1e-5, 0.01, "radius of the differential-pumping hole"),
         InputSpec("differential_pumping", "", 1e-3, 0.0, 1.0, "chamber over source vapor density"),

@@ -28,6 +28,8 @@ __all__ = [
     "clausing_factor",
     "effusive_flux",
     "forward_intensity",
+    "push_exit_velocity",
+    "push_stopped_fraction",
     "slower_capture_velocity",
     "slower_light_fraction",
     "soft_minimum",
@@ -284,6 +286,7 @@ def transverse_source_flux(
     output_velocity: ArrayLike,
     loss_coefficient: ArrayLike,
     transverse_acceleration: ArrayLike,
+    turned_fraction: ArrayLike = 0.0,
 ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
     """Flux of a 2D-MOT source, atoms/s, and its saturation length, m.
 
@@ -305,6 +308,9 @@ def transverse_source_flux(
         <sigma v> of collisions of a cooled atom with the vapor.
     transverse_acceleration : array_like, m/s^2
         Deceleration of the transverse light (sets the cooling time).
+    turned_fraction : array_like
+        Share of the atoms moving away from the exit that a push beam turns round
+        (:func:`push_stopped_fraction`; 0 without one: half the cooled atoms leave).
 
     Returns
     -------
@@ -336,7 +342,9 @@ def transverse_source_flux(
     vc = _f(capture_velocity)
     with np.errstate(divide="ignore", invalid="ignore"):
         vz_max = length * _f(transverse_acceleration) / vc
-        longitudinal = 0.5 * special.erf(np.where(vc > 0, vz_max, 0.0) / vp)
+        longitudinal = (
+            0.5 * (1.0 + _f(turned_fraction)) * special.erf(np.where(vc > 0, vz_max, 0.0) / vp)
+        )
         per_length = (
             n * vp / (2.0 * math.sqrt(math.pi)) * 2.0 * math.pi * _f(waist)
         ) * fraction_slower(vc, vp)
@@ -346,3 +354,93 @@ def transverse_source_flux(
         # lambda L_c (1 - exp(-L / L_c)) -> lambda L for L << L_c (no collisions)
         effective = np.where(decay > 0, -np.expm1(-length * decay) / decay, length)
     return per_length * effective, saturation_length
+
+
+def _push_acceleration(v, saturation, detuning, other, *, max_acceleration, wavenumber, linewidth):
+    """Push-beam acceleration of an atom moving at v along the beam (rate-equation form)."""
+    delta = 2.0 * math.pi * detuning - wavenumber * v  # the atom recedes: Doppler shift -k v
+    lorentz = 1.0 / (1.0 + 4.0 * delta**2 / linewidth**2)
+    return max_acceleration * saturation * lorentz / (1.0 + saturation * lorentz + other)
+
+
+def push_exit_velocity(
+    distance: ArrayLike,
+    *,
+    saturation: ArrayLike,
+    detuning: ArrayLike,
+    other_saturation: ArrayLike,
+    max_acceleration: float,
+    wavenumber: float,
+    linewidth: float,
+    start_velocity: ArrayLike = 0.0,
+    n_steps: int = 48,
+) -> NDArray[np.float64]:
+    """Speed of an atom after a push beam has accelerated it over ``distance``, m/s.
+
+    Parameters
+    ----------
+    distance : array_like, m
+        Path along the push beam (in a 2D-MOT, where the axial molasses leaves the push
+        beam alone: the shadow of the hole in the retarding mirror).
+    saturation : array_like
+        Peak saturation parameter s of the push beam.
+    detuning : array_like, Hz
+        Push-beam detuning from the cycling line (cyclic frequency; red < 0).
+    other_saturation : array_like
+        Saturation the other light adds to the rate-equation denominator (the 2D-MOT beams).
+    max_acceleration, wavenumber, linewidth : float
+        hbar k Gamma / 2m (m/s^2), k (1/m) and Gamma (1/s) of the cycling line.
+    start_velocity : array_like, m/s
+        Axial velocity where the push takes over (0: axially cooled atoms).
+    n_steps : int
+        Fourth-order Runge-Kutta steps in ``v^2`` along the path.
+
+    Returns
+    -------
+    ndarray, m/s
+
+    Notes
+    -----
+    ``d(v^2)/dz = 2 a(v)``, ``a(v) = a_max s L / (1 + s L + s_other)``,
+    ``L = 1 / (1 + 4 (2 pi delta - k v)^2 / Gamma^2)`` (the rate-equation light force of
+    Metcalf & van der Straten 1999, ch. 7, with the Doppler shift of a receding atom).
+    Far in the wing the force falls as ``C / v^2``, ``C = a_max s Gamma^2 / 4 k^2``, and
+    ``v^4 - v0^4 = 4 C z`` (for s << 1 at large k v): the exit speed is
+    set by the push intensity and detuning, the published way of tuning a 2D-MOT beam
+    (Dieckmann et al. 1998; Schoser et al. 2002).
+    """
+    z = np.maximum(_f(distance), 0.0)
+    s, det, other = _f(saturation), _f(detuning), _f(other_saturation)
+    shape = np.broadcast_shapes(z.shape, s.shape, det.shape, other.shape, np.shape(start_velocity))
+    u = np.broadcast_to(_f(start_velocity) ** 2, shape).astype(float)
+    h = np.broadcast_to(z / n_steps, shape)
+    kw = {"max_acceleration": max_acceleration, "wavenumber": wavenumber, "linewidth": linewidth}
+
+    def slope(u2: NDArray) -> NDArray:
+        return 2.0 * _push_acceleration(np.sqrt(np.maximum(u2, 0.0)), s, det, other, **kw)
+
+    for _ in range(n_steps):
+        k1 = slope(u)
+        k2 = slope(u + 0.5 * h * k1)
+        k3 = slope(u + 0.5 * h * k2)
+        k4 = slope(u + h * k3)
+        u = u + h * (k1 + 2.0 * k2 + 2.0 * k3 + k4) / 6.0
+    return np.sqrt(np.maximum(u, 0.0))
+
+
+def push_stopped_fraction(
+    stop_speed: ArrayLike, axial_limit: ArrayLike, most_probable_speed: ArrayLike
+) -> NDArray[np.float64]:
+    """Share of the captured atoms moving away from the exit that the push turns round.
+
+    Of the atoms cooled transversely (axial speeds below ``axial_limit``, a Maxwellian
+    of ``most_probable_speed`` in one dimension), those moving backwards slower than
+    ``stop_speed`` (the speed the push beam removes over its path) leave through the
+    exit too: ``erf(min(v_stop, v_max) / vp) / erf(v_max / vp)``, a smooth soft minimum.
+    """
+    vp = _f(most_probable_speed)
+    limit = np.maximum(_f(axial_limit), 0.0)
+    stop = soft_minimum(stop_speed, limit)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out = special.erf(stop / vp) / special.erf(limit / vp)
+    return np.where(limit > 0, np.clip(out, 0.0, 1.0), 0.0)
