@@ -426,3 +426,29 @@ def test_predict_at_blue_detuning_explains_instead_of_raw_warnings(capsys, tmp_p
     assert "RuntimeWarning" not in err
     assert "ModelValidityWarning: the nominal point is outside the model's validity: " in err
     assert "BLUE_DETUNING" in err
+
+
+def test_rank_at_blue_detuning_names_what_cannot_be_ranked(capsys, tmp_path, monkeypatch):
+    # Blue of resonance a MOT does not trap (common practice): zero atoms and no temperature
+    # in every run. rank says so per output, in the terminal and the JSON, with no table of
+    # nan and no raw numpy RuntimeWarning; the loading time (vapor loss) is still ranked.
+    from importlib import resources
+
+    monkeypatch.setenv("COLUMNS", "80")
+    text = (resources.files("trapbudget.examples") / "harrier-rb87.toml").read_text("utf-8")
+    path = tmp_path / "blue.toml"
+    path.write_text(text.replace('nominal = "-12 MHz"', 'nominal = "+12 MHz"', 1), "utf-8")
+    argv = ["rank", str(path), "--samples", "64", "--no-convergence"]
+    code, out, err = _run(capsys, *argv, "--out", str(tmp_path / "text"))
+    assert code == 0, err
+    assert "RuntimeWarning" not in err and "nan" not in out
+    assert "atom_number: not ranked, the same in every run (0)" in out
+    assert "temperature: not ranked, undefined in every run" in out
+    assert "loading_time:" in out
+    code, out, err = _run(capsys, *argv, "--json", "--out", str(tmp_path / "json"))
+    result = json.loads(out)
+    unranked = {f["output"]: f["reason"] for f in result["findings"] if f["kind"] == "unranked"}
+    assert set(unranked) == {"atom_number", "temperature", "fluorescence"}
+    assert all("BLUE_DETUNING" in why for why in unranked.values())
+    nxt = [f for f in result["findings"] if f["kind"] == "next"]
+    assert nxt and nxt[0]["command"].startswith("trapbudget predict")
