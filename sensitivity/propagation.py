@@ -28,6 +28,7 @@ from numpy.typing import ArrayLike
 
 from trapbudget.models.protocol import ModelError
 from trapbudget.sensitivity.errors import ConvergenceWarning, ScenarioError, TrapbudgetWarning
+from trapbudget.sensitivity.executors import Workers, running_on
 from trapbudget.sensitivity.guard import check_memory
 from trapbudget.sensitivity.protocol import (
     BoundModel,
@@ -104,6 +105,8 @@ def propagate(
     chunk_size: int = 65536,
     progress: Callable[[int, int], None] | None = None,
     nominal: Mapping[str, float] | None = None,
+    executor: Any = None,
+    workers: Workers = None,
 ) -> xr.Dataset:
     """Propagate input distributions through a model by Monte Carlo.
 
@@ -133,6 +136,14 @@ def propagate(
         Nominal input values (SI) at which the model is evaluated once for the
         ``nominal_outputs`` attr; default the bound values of a scenario's
         model (``BoundModel.nominal``), else the medians of the distributions.
+    executor : Executor-like, optional
+        Runs the model evaluations (anything with ``submit``: a process pool,
+        ``dask.distributed.Client.get_executor()``); the result is bit for bit
+        the same on any executor and any number of workers.
+    workers : int or "auto", optional
+        Local processes instead of an executor (``"auto"``: every core for
+        large evaluations); default one, this process
+        (see :func:`~trapbudget.sensitivity.executors.running_on`).
 
     Returns
     -------
@@ -150,71 +161,74 @@ def propagate(
     ModelValidityWarning
         When some samples fall outside the model's region of validity.
     """
-    model = as_model(model, input_names=inputs)
-    uncertain, fixed = _split_inputs(model, inputs)
-    n_outputs = len(outputs) if outputs is not None else len(getattr(model, "outputs", {}) or {})
-    check_memory(
-        "propagate", int(n_samples), len(uncertain), n_outputs, power_of_two=method == "sobol"
-    )
-    columns = sample_inputs(
-        uncertain, n_samples=n_samples, method=method, correlation=correlation, rng=rng
-    )
-    # fixed values are bound as scalars: the model broadcasts them (bounded memory)
-    runner = BoundModel(model, fixed) if fixed else model
-    results = _evaluate(
-        runner, columns, n_samples=n_samples, chunk_size=chunk_size, progress=progress
-    )
-    keep = select_outputs(model, results, outputs)
-    if "validity" in results and "validity" not in keep:
-        keep.append("validity")
+    with running_on(executor, workers):
+        model = as_model(model, input_names=inputs)
+        uncertain, fixed = _split_inputs(model, inputs)
+        n_outputs = (
+            len(outputs) if outputs is not None else len(getattr(model, "outputs", {}) or {})
+        )
+        check_memory(
+            "propagate", int(n_samples), len(uncertain), n_outputs, power_of_two=method == "sobol"
+        )
+        columns = sample_inputs(
+            uncertain, n_samples=n_samples, method=method, correlation=correlation, rng=rng
+        )
+        # fixed values are bound as scalars: the model broadcasts them (bounded memory)
+        runner = BoundModel(model, fixed) if fixed else model
+        results = _evaluate(
+            runner, columns, n_samples=n_samples, chunk_size=chunk_size, progress=progress
+        )
+        keep = select_outputs(model, results, outputs)
+        if "validity" in results and "validity" not in keep:
+            keep.append("validity")
 
-    point = {**_nominal_point(model, uncertain, nominal), **fixed}
-    nominal_results = _evaluate(
-        model,
-        {k: np.array([v]) for k, v in point.items()},
-        n_samples=1,
-        chunk_size=1,
-        progress=None,
-    )
-    data_vars: dict[str, xr.DataArray] = {}
-    for name, values in columns.items():
-        spec = model.inputs[name]
-        data_vars[name] = xr.DataArray(
-            values,
-            dims="sample",
-            attrs={"units": spec.unit, "long_name": spec.description, "role": "input"},
+        point = {**_nominal_point(model, uncertain, nominal), **fixed}
+        nominal_results = _evaluate(
+            model,
+            {k: np.array([v]) for k, v in point.items()},
+            n_samples=1,
+            chunk_size=1,
+            progress=None,
         )
-    for name in keep:
-        spec = model.outputs.get(name)
-        role = "validity" if name == "validity" else "output"
-        data_vars[name] = xr.DataArray(
-            results[name],
-            dims="sample",
-            attrs={
-                "units": spec.unit if spec is not None else "",
-                "long_name": spec.description if spec is not None else name,
-                "role": role,
+        data_vars: dict[str, xr.DataArray] = {}
+        for name, values in columns.items():
+            spec = model.inputs[name]
+            data_vars[name] = xr.DataArray(
+                values,
+                dims="sample",
+                attrs={"units": spec.unit, "long_name": spec.description, "role": "input"},
+            )
+        for name in keep:
+            spec = model.outputs.get(name)
+            role = "validity" if name == "validity" else "output"
+            data_vars[name] = xr.DataArray(
+                results[name],
+                dims="sample",
+                attrs={
+                    "units": spec.unit if spec is not None else "",
+                    "long_name": spec.description if spec is not None else name,
+                    "role": role,
+                },
+            )
+        attrs: dict[str, Any] = {
+            "method": method,
+            "n_samples": int(n_samples),
+            "seed": _seed_attr(rng),
+            "model": model_name(model),
+            "trapbudget_version": _version(),
+            "fixed_inputs": dict(fixed),
+            "nominal_inputs": point,
+            "nominal_outputs": {
+                name: float(np.asarray(nominal_results[name]).ravel()[0])
+                for name in keep
+                if name != "validity"
             },
-        )
-    attrs: dict[str, Any] = {
-        "method": method,
-        "n_samples": int(n_samples),
-        "seed": _seed_attr(rng),
-        "model": model_name(model),
-        "trapbudget_version": _version(),
-        "fixed_inputs": dict(fixed),
-        "nominal_inputs": point,
-        "nominal_outputs": {
-            name: float(np.asarray(nominal_results[name]).ravel()[0])
-            for name in keep
-            if name != "validity"
-        },
-        "correlation": None if correlation is None else np.asarray(correlation).tolist(),
-    }
-    ds = xr.Dataset(data_vars, coords={"sample": np.arange(int(n_samples))}, attrs=attrs)
-    if "validity" in results:
-        _report_validity(ds, model, stacklevel=3)
-    return ds
+            "correlation": None if correlation is None else np.asarray(correlation).tolist(),
+        }
+        ds = xr.Dataset(data_vars, coords={"sample": np.arange(int(n_samples))}, attrs=attrs)
+        if "validity" in results:
+            _report_validity(ds, model, stacklevel=3)
+        return ds
 
 
 def _report_validity(ds: xr.Dataset, model: Any, *, stacklevel: int) -> None:
@@ -265,6 +279,8 @@ def propagate_adaptive(
     chunk_size: int = 65536,
     progress: Callable[[int, int], None] | None = None,
     nominal: Mapping[str, float] | None = None,
+    executor: Any = None,
+    workers: Workers = None,
 ) -> xr.Dataset:
     """Adaptive Monte Carlo propagation (JCGM 101:2008, section 7.9).
 
@@ -289,6 +305,8 @@ def propagate_adaptive(
         One child stream per batch is spawned from it.
     progress : callable(done, total), optional
         Called after each batch with (trials so far, max_samples).
+    executor, workers : optional
+        Where the model runs, as for :func:`~trapbudget.sensitivity.propagate`.
 
     Returns
     -------
@@ -298,78 +316,79 @@ def propagate_adaptive(
         ``achieved_tolerance`` (output -> [mean, std, low, high], 2 s of the
         batch means), ``confidence_level`` and ``significant_digits``.
     """
-    if not 0 < confidence_level < 1:
-        raise ValueError(f"confidence_level must lie in (0, 1), got {confidence_level}")
-    batch = max(math.ceil(100.0 / (1.0 - confidence_level)), 10_000)
-    if method == "sobol":
-        batch = 1 << (batch - 1).bit_length()
-    parent = np.random.default_rng(rng)
-    batches: list[xr.Dataset] = []
-    stats: list[np.ndarray] = []
-    names: list[str] = []
-    converged = False
-    delta: dict[str, float] = {}
-    achieved: dict[str, list[float]] = {}
-    while (len(batches) + 1) * batch <= max(max_samples, batch):
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", ModelValidityWarning)
-            ds = propagate(
-                model,
-                inputs,
-                n_samples=batch,
-                method=method,
-                correlation=correlation,
-                rng=parent.spawn(1)[0],
-                outputs=outputs,
-                chunk_size=chunk_size,
-                nominal=nominal,
-            )
-        if not names:
-            names = _output_names(ds, outputs)
-        batches.append(ds)
-        stats.append(_batch_statistics(ds, names, confidence_level))
-        if progress is not None:
-            progress(len(batches) * batch, max_samples)
-        if len(batches) < 2:
-            continue
-        table = np.stack(stats)  # (h, outputs, 4)
-        h = table.shape[0]
-        spread = 2.0 * table.std(axis=0, ddof=1) / math.sqrt(h)
-        done = True
-        for i, name in enumerate(names):
-            y = np.concatenate([np.asarray(b[name].values, dtype=float) for b in batches])
-            u = float(np.std(y[np.isfinite(y)], ddof=1))
-            tol = numerical_tolerance(u, significant_digits=significant_digits)
-            delta[name] = tol
-            achieved[name] = [float(v) for v in spread[i]]
-            if math.isfinite(tol) and not np.all(spread[i] <= tol):
-                done = False
-        if done:
-            converged = True
-            break
-    result = xr.concat(batches, dim="sample", combine_attrs="override")
-    result = result.assign_coords(sample=np.arange(result.sizes["sample"]))
-    n_total = int(result.sizes["sample"])
-    result.attrs.update(
-        {
-            "n_samples": n_total,
-            "seed": _seed_attr(rng),
-            "converged": bool(converged),
-            "n_batches": len(batches),
-            "batch_size": int(batch),
-            "numerical_tolerance": delta,
-            "achieved_tolerance": achieved,
-            "confidence_level": float(confidence_level),
-            "significant_digits": int(significant_digits),
-        }
-    )
-    if "validity" in result:
-        _report_validity(result, as_model(model), stacklevel=3)
-    if not converged:
-        warnings.warn(
-            f"adaptive Monte Carlo did not converge within max_samples={max_samples}; "
-            "raise max_samples or lower significant_digits",
-            ConvergenceWarning,
-            stacklevel=2,
+    with running_on(executor, workers):
+        if not 0 < confidence_level < 1:
+            raise ValueError(f"confidence_level must lie in (0, 1), got {confidence_level}")
+        batch = max(math.ceil(100.0 / (1.0 - confidence_level)), 10_000)
+        if method == "sobol":
+            batch = 1 << (batch - 1).bit_length()
+        parent = np.random.default_rng(rng)
+        batches: list[xr.Dataset] = []
+        stats: list[np.ndarray] = []
+        names: list[str] = []
+        converged = False
+        delta: dict[str, float] = {}
+        achieved: dict[str, list[float]] = {}
+        while (len(batches) + 1) * batch <= max(max_samples, batch):
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", ModelValidityWarning)
+                ds = propagate(
+                    model,
+                    inputs,
+                    n_samples=batch,
+                    method=method,
+                    correlation=correlation,
+                    rng=parent.spawn(1)[0],
+                    outputs=outputs,
+                    chunk_size=chunk_size,
+                    nominal=nominal,
+                )
+            if not names:
+                names = _output_names(ds, outputs)
+            batches.append(ds)
+            stats.append(_batch_statistics(ds, names, confidence_level))
+            if progress is not None:
+                progress(len(batches) * batch, max_samples)
+            if len(batches) < 2:
+                continue
+            table = np.stack(stats)  # (h, outputs, 4)
+            h = table.shape[0]
+            spread = 2.0 * table.std(axis=0, ddof=1) / math.sqrt(h)
+            done = True
+            for i, name in enumerate(names):
+                y = np.concatenate([np.asarray(b[name].values, dtype=float) for b in batches])
+                u = float(np.std(y[np.isfinite(y)], ddof=1))
+                tol = numerical_tolerance(u, significant_digits=significant_digits)
+                delta[name] = tol
+                achieved[name] = [float(v) for v in spread[i]]
+                if math.isfinite(tol) and not np.all(spread[i] <= tol):
+                    done = False
+            if done:
+                converged = True
+                break
+        result = xr.concat(batches, dim="sample", combine_attrs="override")
+        result = result.assign_coords(sample=np.arange(result.sizes["sample"]))
+        n_total = int(result.sizes["sample"])
+        result.attrs.update(
+            {
+                "n_samples": n_total,
+                "seed": _seed_attr(rng),
+                "converged": bool(converged),
+                "n_batches": len(batches),
+                "batch_size": int(batch),
+                "numerical_tolerance": delta,
+                "achieved_tolerance": achieved,
+                "confidence_level": float(confidence_level),
+                "significant_digits": int(significant_digits),
+            }
         )
-    return result
+        if "validity" in result:
+            _report_validity(result, as_model(model), stacklevel=3)
+        if not converged:
+            warnings.warn(
+                f"adaptive Monte Carlo did not converge within max_samples={max_samples}; "
+                "raise max_samples or lower significant_digits",
+                ConvergenceWarning,
+                stacklevel=2,
+            )
+        return result

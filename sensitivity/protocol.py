@@ -17,6 +17,7 @@ from numpy.typing import ArrayLike
 
 from trapbudget.models.protocol import InputSpec, ModelError, OutputSpec
 from trapbudget.sensitivity.errors import ScenarioError
+from trapbudget.sensitivity.executors import check_picklable, current_executor, map_chunks
 
 __all__ = [
     "BoundModel",
@@ -207,6 +208,17 @@ class BoundModel:
         return f"BoundModel({model_name(self.base)}, fixed={self.fixed!r})"
 
 
+def _evaluate_chunk(model: Any, chunk: Mapping[str, np.ndarray], size: int):
+    """One chunk's outputs, each as an array of ``size`` rows (runs in a worker too)."""
+    out = {}
+    for name, value in model.evaluate(chunk).items():
+        value = np.asarray(value)
+        if value.ndim == 0 or value.shape[0] != size:
+            value = np.broadcast_to(value, (size, *value.shape[value.ndim > 0 :]))
+        out[name] = np.array(value)
+    return out
+
+
 def evaluate_in_chunks(
     model: Any,
     columns: Mapping[str, np.ndarray],
@@ -214,6 +226,7 @@ def evaluate_in_chunks(
     chunk_size: int = 65536,
     progress: Callable[[int, int], None] | None = None,
     n_samples: int | None = None,
+    executor: Any = None,
 ) -> dict[str, np.ndarray]:
     """Evaluate ``model`` on 1-D sample columns in chunks of bounded memory.
 
@@ -224,16 +237,25 @@ def evaluate_in_chunks(
     columns : mapping name -> 1-D array
         One column per varied input, all of the same length n.
     chunk_size : int
-        Samples per model call (default 65536).
+        Samples per model call (default 65536). The chunks are the same whatever
+        runs them, so the result is bit for bit the same on any executor.
     progress : callable(done, total), optional
         Called after each chunk.
     n_samples : int, optional
         Number of samples when ``columns`` is empty (every input fixed).
+    executor : Executor-like, optional
+        Runs the chunks (``submit``); default the executor of the enclosing
+        :func:`~trapbudget.sensitivity.executors.running_on` block, else this process.
 
     Returns
     -------
     dict name -> 1-D array
         Each output over the n samples (scalars broadcast to n).
+
+    Raises
+    ------
+    UsageError
+        When the chunks go to other processes and the model cannot be pickled.
     """
     model = as_model(model, input_names=columns)
     arrays = {name: np.asarray(col) for name, col in columns.items()}
@@ -245,20 +267,28 @@ def evaluate_in_chunks(
         raise ValueError("evaluate_in_chunks: no samples (give columns or n_samples)")
     if chunk_size < 1:
         raise ValueError(f"chunk_size must be >= 1, got {chunk_size}")
+    starts = range(0, total, chunk_size)
+    if executor is None:
+        executor = current_executor(total, len(starts))
+    if executor is not None:
+        check_picklable(model, model_name(model))
+    # Every chunk is a fresh contiguous copy, here as in a worker: same arrays, same bits.
+    work = (
+        (
+            model,
+            {name: np.array(a[start : start + chunk_size]) for name, a in arrays.items()},
+            min(start + chunk_size, total) - start,
+        )
+        for start in starts
+    )
     pieces: dict[str, list[np.ndarray]] = {}
-    for start in range(0, total, chunk_size):
-        stop = min(start + chunk_size, total)
-        chunk = {name: a[start:stop] for name, a in arrays.items()}
-        if not chunk:
-            chunk = {}
-        result = model.evaluate(chunk)
+    done = 0
+    for result in map_chunks(_evaluate_chunk, work, executor):
         for name, value in result.items():
-            value = np.asarray(value)
-            if value.ndim == 0 or value.shape[0] != stop - start:
-                value = np.broadcast_to(value, (stop - start, *value.shape[value.ndim > 0 :]))
-            pieces.setdefault(name, []).append(np.array(value))
+            pieces.setdefault(name, []).append(value)
+        done = min(done + chunk_size, total)
         if progress is not None:
-            progress(stop, total)
+            progress(done, total)
     return {name: np.concatenate(parts) for name, parts in pieces.items()}
 
 
