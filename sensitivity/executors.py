@@ -49,32 +49,40 @@ Workers = Union[int, Literal["auto"], None]  # noqa: UP007 - a runtime alias on 
 #: about 0.3 s of trap evaluations on one core, several times a process pool's start-up.
 AUTO_MIN_SAMPLES = 2**18
 
+#: How long to wait for a dask scheduler to answer.
+SCHEDULER_TIMEOUT = "10s"
+
+
+def _no_op() -> None:
+    return None
+
 
 class _LocalPool:
-    """A process pool of ``workers`` processes, started on first use."""
+    """A process pool of ``workers`` processes.
+
+    On Linux the processes are forked, and forked at once when the pool opens: before
+    any progress-bar thread starts and before the run's arrays fill the memory, and
+    without re-running the caller's script. Elsewhere they are spawned (the platform's
+    default), which needs the usual ``if __name__ == "__main__":`` guard in a script.
+    """
 
     def __init__(self, workers: int) -> None:
+        import multiprocessing
+        import sys
+        from concurrent.futures import ProcessPoolExecutor
+
         self.workers = workers
-        self._pool: Any = None
+        method = "fork" if sys.platform.startswith("linux") else None
+        self._pool = ProcessPoolExecutor(
+            max_workers=workers, mp_context=multiprocessing.get_context(method)
+        )
+        self._pool.submit(_no_op).result()  # start every process now
 
     def submit(self, function: Callable[..., Any], *args: Any) -> Any:
-        if self._pool is None:
-            import multiprocessing
-            from concurrent.futures import ProcessPoolExecutor
-
-            # forkserver: safe beside threads (progress bars, dask), and the children
-            # import only what they unpickle; spawn where there is no fork.
-            methods = multiprocessing.get_all_start_methods()
-            context = multiprocessing.get_context(
-                "forkserver" if "forkserver" in methods else "spawn"
-            )
-            self._pool = ProcessPoolExecutor(max_workers=self.workers, mp_context=context)
         return self._pool.submit(function, *args)
 
     def shutdown(self) -> None:
-        if self._pool is not None:
-            self._pool.shutdown(wait=True, cancel_futures=True)
-            self._pool = None
+        self._pool.shutdown(wait=True, cancel_futures=True)
 
 
 class _Plan:
@@ -109,7 +117,9 @@ def _slots(executor: Any) -> int:
 
 
 @contextlib.contextmanager
-def running_on(executor: Any = None, workers: Workers = None) -> Iterator[None]:
+def running_on(
+    executor: Any = None, workers: Workers = None, *, scheduler: str | None = None
+) -> Iterator[None]:
     """Run the model evaluations inside the block on ``executor`` or ``workers`` processes.
 
     Parameters
@@ -121,6 +131,16 @@ def running_on(executor: Any = None, workers: Workers = None) -> Iterator[None]:
         Local processes: 1 runs here, N > 1 starts a pool of N processes on first
         use and shuts it down at the end of the block, ``"auto"`` uses every core
         for evaluations of at least :data:`AUTO_MIN_SAMPLES` samples.
+    scheduler : str, optional
+        Address of a ``dask.distributed`` scheduler (``tcp://host:8786``): the
+        block runs on that cluster (its workers need trapbudget installed).
+        Needs the ``dask`` extra. Takes precedence over ``workers``.
+
+    Raises
+    ------
+    UsageError
+        For a bad ``workers``, a ``scheduler`` without dask installed, or one
+        that does not answer.
 
     Notes
     -----
@@ -128,6 +148,11 @@ def running_on(executor: Any = None, workers: Workers = None) -> Iterator[None]:
     runs here), so a study that opens one pool shares it with every stage.
     """
     _check_workers(workers)
+    if executor is None and scheduler is not None:
+        with _cluster(scheduler) as remote:
+            with running_on(remote):
+                yield
+        return
     if executor is None and workers is None:
         yield
         return
@@ -149,6 +174,29 @@ def running_on(executor: Any = None, workers: Workers = None) -> Iterator[None]:
         _CURRENT.reset(token)
         if pool is not None:
             pool.shutdown()
+
+
+@contextlib.contextmanager
+def _cluster(address: str) -> Iterator[Any]:
+    try:
+        from distributed import Client
+    except ImportError:
+        raise UsageError(
+            f"--scheduler {address}: dask.distributed is not installed; "
+            "pip install 'trapbudget[dask]'"
+        ) from None
+    try:
+        client = Client(address, timeout=SCHEDULER_TIMEOUT)
+    except (OSError, ValueError) as error:
+        reason = str(error).splitlines()[0] if str(error) else type(error).__name__
+        raise UsageError(
+            f"--scheduler {address}: no dask scheduler answers there ({reason}); "
+            "give the address it prints, e.g. tcp://10.0.0.5:8786"
+        ) from error
+    try:
+        yield client.get_executor()
+    finally:
+        client.close()
 
 
 def current_executor(n_samples: int, n_chunks: int) -> Any:

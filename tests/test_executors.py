@@ -9,6 +9,7 @@ chunks. Small chunks make every run below span several chunks.
 from __future__ import annotations
 
 import dataclasses
+import json
 import multiprocessing
 from concurrent.futures import ProcessPoolExecutor
 from importlib import resources
@@ -145,3 +146,68 @@ def test_auto_runs_small_evaluations_here_and_large_ones_on_the_pool():
         assert (large is None) == ((multiprocessing.cpu_count() or 1) < 2)
         assert current_executor(AUTO_MIN_SAMPLES, 1) is None  # one chunk: nothing to share
     assert current_executor(AUTO_MIN_SAMPLES, 8) is None  # outside the block: this process
+
+
+# ---------------------------------------------------------------- the command line
+
+ISHIGAMI = """
+[scenario]
+title = "Ishigami on two processes"
+model = "ishigami"
+[inputs.x1]
+nominal = "0"
+tolerance = "3"
+[inputs.x2]
+nominal = "0"
+tolerance = "3"
+[inputs.x3]
+nominal = "0"
+tolerance = "3"
+[settings]
+n_samples = 256
+seed = 12
+chunk_size = 1024
+"""
+
+
+def _cli(capsys, *argv):
+    from trapbudget.cli.main import main
+
+    code = main([str(a) for a in argv])
+    captured = capsys.readouterr()
+    return code, captured.out, captured.err
+
+
+def test_cli_workers_give_the_same_json(capsys, tmp_path):
+    path = tmp_path / "ishigami.toml"
+    path.write_text(ISHIGAMI, encoding="utf-8")
+    results = []
+    for workers in ("1", "2"):
+        code, out, err = _cli(
+            capsys, "rank", path, "--json", "--workers", workers, "--out", tmp_path / workers
+        )
+        assert code == 0, err
+        result = json.loads(out)
+        result.pop("report")
+        results.append(result)
+    assert results[0] == results[1]
+
+
+@pytest.mark.parametrize(
+    ("argv", "code", "message"),
+    [
+        (("--workers", "0"), 2, "give 1 or more processes, or 'auto'"),
+        (("--workers", "many"), 2, "not a number of processes or 'auto'"),
+        (("--scheduler", "tcp://127.0.0.1:9"), 2, "no dask scheduler answers there"),
+    ],
+)
+def test_cli_bad_workers_or_scheduler_is_one_line(
+    capsys, tmp_path, monkeypatch, argv, code, message
+):
+    monkeypatch.setattr("trapbudget.sensitivity.executors.SCHEDULER_TIMEOUT", "1s")
+    path = tmp_path / "ishigami.toml"
+    path.write_text(ISHIGAMI, encoding="utf-8")
+    got, out, err = _cli(capsys, "rank", path, "--out", tmp_path / "r", *argv)
+    assert got == code and out == ""
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and message in lines[0] and "Traceback" not in err, err
