@@ -39,7 +39,13 @@ from trapbudget.sensitivity.protocol import (
     validity_counts,
     validity_flags,
 )
-from trapbudget.sensitivity.sampling import SamplingMethod, sample_inputs, split_inputs
+from trapbudget.sensitivity.sampling import (
+    SamplingMethod,
+    is_distribution,
+    sample_inputs,
+    split_inputs,
+)
+from trapbudget.sensitivity.streaming import Keep, choose_keep, merge_moments, propagate_outputs
 from trapbudget.sensitivity.summary import _output_names, coverage_interval, numerical_tolerance
 
 __all__ = ["ModelValidityWarning", "propagate", "propagate_adaptive", "select_outputs"]
@@ -105,6 +111,7 @@ def propagate(
     chunk_size: int = 65536,
     progress: Callable[[int, int], None] | None = None,
     nominal: Mapping[str, float] | None = None,
+    keep: Keep | None = None,
     executor: Any = None,
     workers: Workers = None,
 ) -> xr.Dataset:
@@ -136,6 +143,13 @@ def propagate(
         Nominal input values (SI) at which the model is evaluated once for the
         ``nominal_outputs`` attr; default the bound values of a scenario's
         model (``BoundModel.nominal``), else the medians of the distributions.
+    keep : {"all", "outputs"}, optional
+        ``"all"``: every input and output sample in float64. ``"outputs"``
+        (summary-only, bounded memory): the requested outputs as float32 and
+        ``validity``, no inputs, mean and std streamed in float64 into
+        ``attrs["moments"]`` (see :mod:`~trapbudget.sensitivity.streaming`).
+        Default: ``"outputs"`` from ``streaming.SUMMARY_ONLY_SAMPLES`` (2^22)
+        samples on or when the full run would not fit in memory, else ``"all"``.
     executor : Executor-like, optional
         Runs the model evaluations (anything with ``submit``: a process pool,
         ``dask.distributed.Client.get_executor()``); the result is bit for bit
@@ -154,7 +168,8 @@ def propagate(
         ``method``, ``n_samples``, ``seed``, ``model``, ``trapbudget_version``,
         ``fixed_inputs`` (name -> SI value), ``nominal_inputs``,
         ``nominal_outputs``, ``correlation`` (or None), and
-        ``validity_counts`` when the model reports validity.
+        ``validity_counts`` when the model reports validity, ``kept`` ("all" or
+        "outputs") and, summary-only, ``moments``.
 
     Warns
     -----
@@ -167,20 +182,43 @@ def propagate(
         n_outputs = (
             len(outputs) if outputs is not None else len(getattr(model, "outputs", {}) or {})
         )
+        keep = choose_keep(keep, int(n_samples), len(uncertain), n_outputs)
         check_memory(
-            "propagate", int(n_samples), len(uncertain), n_outputs, power_of_two=method == "sobol"
-        )
-        columns = sample_inputs(
-            uncertain, n_samples=n_samples, method=method, correlation=correlation, rng=rng
+            "propagate" if keep == "all" else "propagate-outputs",
+            int(n_samples),
+            len(uncertain),
+            n_outputs,
+            power_of_two=method == "sobol",
         )
         # fixed values are bound as scalars: the model broadcasts them (bounded memory)
         runner = BoundModel(model, fixed) if fixed else model
-        results = _evaluate(
-            runner, columns, n_samples=n_samples, chunk_size=chunk_size, progress=progress
-        )
-        keep = select_outputs(model, results, outputs)
-        if "validity" in results and "validity" not in keep:
-            keep.append("validity")
+        moments = None
+        if keep == "outputs":
+            columns: dict[str, np.ndarray] = {}
+            try:
+                results, moments = propagate_outputs(
+                    runner,
+                    uncertain,
+                    n_samples=int(n_samples),
+                    method=method,
+                    correlation=correlation,
+                    rng=rng,
+                    outputs=outputs,
+                    chunk_size=chunk_size,
+                    progress=progress,
+                )
+            except ModelError as error:
+                raise ScenarioError(f"model {model_name(model)}: {error}") from error
+        else:
+            columns = sample_inputs(
+                uncertain, n_samples=n_samples, method=method, correlation=correlation, rng=rng
+            )
+            results = _evaluate(
+                runner, columns, n_samples=n_samples, chunk_size=chunk_size, progress=progress
+            )
+        kept = select_outputs(model, results, outputs)
+        if "validity" in results and "validity" not in kept:
+            kept.append("validity")
 
         point = {**_nominal_point(model, uncertain, nominal), **fixed}
         nominal_results = _evaluate(
@@ -198,7 +236,7 @@ def propagate(
                 dims="sample",
                 attrs={"units": spec.unit, "long_name": spec.description, "role": "input"},
             )
-        for name in keep:
+        for name in kept:
             spec = model.outputs.get(name)
             role = "validity" if name == "validity" else "output"
             data_vars[name] = xr.DataArray(
@@ -220,12 +258,17 @@ def propagate(
             "nominal_inputs": point,
             "nominal_outputs": {
                 name: float(np.asarray(nominal_results[name]).ravel()[0])
-                for name in keep
+                for name in kept
                 if name != "validity"
             },
             "correlation": None if correlation is None else np.asarray(correlation).tolist(),
         }
-        ds = xr.Dataset(data_vars, coords={"sample": np.arange(int(n_samples))}, attrs=attrs)
+        attrs["kept"] = keep
+        if moments is not None:
+            attrs["moments"] = moments  # output -> [finite count, mean, std], float64
+        # a summary-only run carries no sample coordinate (8 bytes a sample)
+        coords = {"sample": np.arange(int(n_samples))} if keep == "all" else {}
+        ds = xr.Dataset(data_vars, coords=coords, attrs=attrs)
         if "validity" in results:
             _report_validity(ds, model, stacklevel=3)
         return ds
@@ -323,6 +366,9 @@ def propagate_adaptive(
         if method == "sobol":
             batch = 1 << (batch - 1).bit_length()
         parent = np.random.default_rng(rng)
+        # The whole run decides what is kept: summary-only if max_samples samples would be.
+        n_inputs = sum(1 for value in inputs.values() if is_distribution(value))
+        keep = choose_keep(None, max(max_samples, batch), n_inputs, len(outputs or ()) or 8)
         batches: list[xr.Dataset] = []
         stats: list[np.ndarray] = []
         names: list[str] = []
@@ -342,6 +388,7 @@ def propagate_adaptive(
                     outputs=outputs,
                     chunk_size=chunk_size,
                     nominal=nominal,
+                    keep=keep,
                 )
             if not names:
                 names = _output_names(ds, outputs)
@@ -367,7 +414,10 @@ def propagate_adaptive(
                 converged = True
                 break
         result = xr.concat(batches, dim="sample", combine_attrs="override")
-        result = result.assign_coords(sample=np.arange(result.sizes["sample"]))
+        if keep == "all":
+            result = result.assign_coords(sample=np.arange(result.sizes["sample"]))
+        else:
+            result.attrs["moments"] = merge_moments([b.attrs["moments"] for b in batches])
         n_total = int(result.sizes["sample"])
         result.attrs.update(
             {

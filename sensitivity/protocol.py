@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
-from collections.abc import Callable, Iterable, Mapping, Sequence
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from typing import Any, Protocol, runtime_checkable
 
 import numpy as np
@@ -24,6 +24,7 @@ __all__ = [
     "CallableModel",
     "Model",
     "as_model",
+    "evaluate_chunks",
     "evaluate_in_chunks",
     "model_name",
     "nominal_validity",
@@ -268,28 +269,45 @@ def evaluate_in_chunks(
     if chunk_size < 1:
         raise ValueError(f"chunk_size must be >= 1, got {chunk_size}")
     starts = range(0, total, chunk_size)
-    if executor is None:
-        executor = current_executor(total, len(starts))
-    if executor is not None:
-        check_picklable(model, model_name(model))
     # Every chunk is a fresh contiguous copy, here as in a worker: same arrays, same bits.
-    work = (
-        (
-            model,
-            {name: np.array(a[start : start + chunk_size]) for name, a in arrays.items()},
-            min(start + chunk_size, total) - start,
-        )
+    chunks = (
+        {name: np.array(a[start : start + chunk_size]) for name, a in arrays.items()}
         for start in starts
     )
+    sizes = [min(start + chunk_size, total) - start for start in starts]
     pieces: dict[str, list[np.ndarray]] = {}
     done = 0
-    for result in map_chunks(_evaluate_chunk, work, executor):
+    for size, result in zip(
+        sizes, evaluate_chunks(model, chunks, sizes, executor=executor), strict=True
+    ):
         for name, value in result.items():
             pieces.setdefault(name, []).append(value)
-        done = min(done + chunk_size, total)
+        done += size
         if progress is not None:
             progress(done, total)
     return {name: np.concatenate(parts) for name, parts in pieces.items()}
+
+
+def evaluate_chunks(
+    model: Any,
+    chunks: Iterable[Mapping[str, np.ndarray]],
+    sizes: Sequence[int],
+    *,
+    executor: Any = None,
+) -> Iterator[dict[str, np.ndarray]]:
+    """Each chunk's outputs, in order, evaluated here or on the executor.
+
+    ``chunks`` may be a generator (drawn as they are sent, so memory stays bounded);
+    ``sizes`` gives the rows of each. Without ``executor``, the one of the enclosing
+    :func:`~trapbudget.sensitivity.executors.running_on` block, if the run is large
+    enough to share. This is the loop :func:`evaluate_in_chunks` runs.
+    """
+    if executor is None:
+        executor = current_executor(int(sum(sizes)), len(sizes))
+    if executor is not None:
+        check_picklable(model, model_name(model))
+    work = ((model, chunk, size) for chunk, size in zip(chunks, sizes, strict=True))
+    return map_chunks(_evaluate_chunk, work, executor)
 
 
 def select_outputs(
