@@ -143,6 +143,9 @@ def as_model(obj: Any, *, input_names: Iterable[str] = (), units=None) -> Any:
 
 def model_name(model: Any) -> str:
     """A short name for a model (class name; the wrapped one for bound models)."""
+    wrapped = getattr(model, "wrapped_model", None)
+    if wrapped is not None:
+        return model_name(wrapped)
     base = getattr(model, "base", None)
     if base is not None and isinstance(model, BoundModel):
         return model_name(base)

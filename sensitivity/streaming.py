@@ -31,7 +31,7 @@ import numpy as np
 
 from trapbudget.sensitivity.guard import available_memory, memory_needed
 from trapbudget.sensitivity.protocol import evaluate_chunks, select_outputs
-from trapbudget.sensitivity.sampling import _EDGE, _engine, transform, unit_design
+from trapbudget.sensitivity.sampling import _EDGE, UnitCubeModel, _engine, unit_design
 
 __all__ = ["SUMMARY_ONLY_SAMPLES", "Keep", "choose_keep", "merge_moments", "propagate_outputs"]
 
@@ -67,8 +67,12 @@ def _unit_chunks(
     from scipy.stats import qmc
 
     generator = np.random.default_rng(rng)
-    power_of_two = n_samples & (n_samples - 1) == 0
-    if method not in ("random", "sobol") or dimension == 0 or not power_of_two:
+    power_of_two = (n_samples & (n_samples - 1)) == 0
+    if (
+        method not in ("random", "sobol")
+        or dimension == 0
+        or not (power_of_two or method == "random")
+    ):
         # A Latin design permutes over all n: drawn whole (n x d float64), then cut;
         # unit_design also refuses an unknown method or a Sobol' n that is no power of 2.
         points = unit_design(n_samples, dimension, method=method, rng=generator)  # type: ignore[arg-type]
@@ -141,11 +145,12 @@ def propagate_outputs(
     ``[finite count, mean, standard deviation (ddof 1)]`` accumulated in float64.
     The model must be bound to its fixed inputs already.
     """
-    distributions = list(uncertain.values())
     names = list(uncertain)
     sizes = [min(chunk_size, n_samples - start) for start in range(0, n_samples, chunk_size)]
+    # unit points go out; the quantile functions run where each chunk is evaluated
+    runner = UnitCubeModel(model, uncertain, correlation=correlation)
     chunks = (
-        dict(zip(names, transform(unit, distributions, correlation=correlation).T, strict=True))
+        dict(zip(names, unit.T, strict=True))
         for unit in _unit_chunks(
             n_samples, len(names), method=method, rng=rng, chunk_size=chunk_size
         )
@@ -153,7 +158,7 @@ def propagate_outputs(
     kept: dict[str, np.ndarray] = {}
     moments: dict[str, _Moments] = {}
     start = 0
-    for size, result in zip(sizes, evaluate_chunks(model, chunks, sizes), strict=True):
+    for size, result in zip(sizes, evaluate_chunks(runner, chunks, sizes), strict=True):
         if not kept:
             keep = select_outputs(model, result, outputs)
             for name in keep:

@@ -116,3 +116,14 @@ def test_adaptive_run_joins_the_moments_of_its_batches():
     # the float64 moments of the batches joined agree with the float32 values kept
     assert mean == pytest.approx(float(np.mean(y)), rel=8 * FLOAT32_ROUNDING)
     assert std == pytest.approx(float(np.std(y, ddof=1)), rel=8 * FLOAT32_ROUNDING)
+
+
+@pytest.mark.parametrize(("method", "n"), [("random", 1000), ("sobol", 1024), ("latin", 100)])
+def test_points_drawn_chunk_by_chunk_are_those_of_one_draw(method, n):
+    from trapbudget.sensitivity.sampling import unit_design
+    from trapbudget.sensitivity.streaming import _unit_chunks
+
+    whole = unit_design(n, 3, method=method, rng=17)
+    chunks = list(_unit_chunks(n, 3, method=method, rng=17, chunk_size=256))
+    assert [len(c) for c in chunks] == [min(256, n - s) for s in range(0, n, 256)]
+    np.testing.assert_array_equal(np.concatenate(chunks), whole)
