@@ -63,26 +63,35 @@ class _LocalPool:
     On Linux the processes are forked, and forked at once when the pool opens: before
     any progress-bar thread starts and before the run's arrays fill the memory, and
     without re-running the caller's script. Elsewhere they are spawned (the platform's
-    default), which needs the usual ``if __name__ == "__main__":`` guard in a script.
+    default) on first use, which needs the usual ``if __name__ == "__main__":`` guard
+    in a script.
     """
 
     def __init__(self, workers: int) -> None:
-        import multiprocessing
         import sys
-        from concurrent.futures import ProcessPoolExecutor
 
         self.workers = workers
-        method = "fork" if sys.platform.startswith("linux") else None
-        self._pool = ProcessPoolExecutor(
-            max_workers=workers, mp_context=multiprocessing.get_context(method)
-        )
-        self._pool.submit(_no_op).result()  # start every process now
+        self._method = "fork" if sys.platform.startswith("linux") else None
+        self._pool: Any = None
+        if self._method == "fork":
+            self.submit(_no_op).result()  # every process forked now
+
+    def _start(self) -> None:
+        import multiprocessing
+        from concurrent.futures import ProcessPoolExecutor
+
+        context = multiprocessing.get_context(self._method)
+        self._pool = ProcessPoolExecutor(max_workers=self.workers, mp_context=context)
 
     def submit(self, function: Callable[..., Any], *args: Any) -> Any:
+        if self._pool is None:
+            self._start()
         return self._pool.submit(function, *args)
 
     def shutdown(self) -> None:
-        self._pool.shutdown(wait=True, cancel_futures=True)
+        if self._pool is not None:
+            self._pool.shutdown(wait=True, cancel_futures=True)
+            self._pool = None
 
 
 class _Plan:

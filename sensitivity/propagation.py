@@ -79,10 +79,15 @@ def _split_inputs(model: Any, inputs: Mapping[str, Any]):
     return split_inputs(inputs, model)
 
 
-def _evaluate(model, columns, *, n_samples, chunk_size, progress):
+def _evaluate(model, columns, *, n_samples, chunk_size, progress, outputs=None):
     try:
         return evaluate_in_chunks(
-            model, columns, chunk_size=chunk_size, progress=progress, n_samples=n_samples
+            model,
+            columns,
+            chunk_size=chunk_size,
+            progress=progress,
+            n_samples=n_samples,
+            outputs=outputs,
         )
     except ModelError as error:
         raise ScenarioError(f"model {model_name(model)}: {error}") from error
@@ -214,7 +219,12 @@ def propagate(
                 uncertain, n_samples=n_samples, method=method, correlation=correlation, rng=rng
             )
             results = _evaluate(
-                runner, columns, n_samples=n_samples, chunk_size=chunk_size, progress=progress
+                runner,
+                columns,
+                n_samples=n_samples,
+                chunk_size=chunk_size,
+                progress=progress,
+                outputs=outputs,
             )
         kept = select_outputs(model, results, outputs)
         if "validity" in results and "validity" not in kept:

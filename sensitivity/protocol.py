@@ -212,10 +212,19 @@ class BoundModel:
         return f"BoundModel({model_name(self.base)}, fixed={self.fixed!r})"
 
 
-def _evaluate_chunk(model: Any, chunk: Mapping[str, np.ndarray], size: int):
-    """One chunk's outputs, each as an array of ``size`` rows (runs in a worker too)."""
+def _evaluate_chunk(
+    model: Any, chunk: Mapping[str, np.ndarray], size: int, outputs: Sequence[str] | None = None
+):
+    """One chunk's outputs, each as an array of ``size`` rows (runs in a worker too).
+
+    With ``outputs``, only those and ``validity`` come back (less to send), unless one
+    is missing: then all do, for the caller to name the missing one.
+    """
     out = {}
-    for name, value in model.evaluate(chunk).items():
+    result = model.evaluate(chunk)
+    if outputs is not None and all(name in result for name in outputs):
+        result = {k: v for k, v in result.items() if k in outputs or k == "validity"}
+    for name, value in result.items():
         value = np.asarray(value)
         if value.ndim == 0 or value.shape[0] != size:
             value = np.broadcast_to(value, (size, *value.shape[value.ndim > 0 :]))
@@ -231,6 +240,7 @@ def evaluate_in_chunks(
     progress: Callable[[int, int], None] | None = None,
     n_samples: int | None = None,
     executor: Any = None,
+    outputs: Sequence[str] | None = None,
 ) -> dict[str, np.ndarray]:
     """Evaluate ``model`` on 1-D sample columns in chunks of bounded memory.
 
@@ -250,6 +260,8 @@ def evaluate_in_chunks(
     executor : Executor-like, optional
         Runs the chunks (``submit``); default the executor of the enclosing
         :func:`~trapbudget.sensitivity.executors.running_on` block, else this process.
+    outputs : sequence of str, optional
+        Return only these outputs and ``validity`` (default every output).
 
     Returns
     -------
@@ -281,7 +293,9 @@ def evaluate_in_chunks(
     pieces: dict[str, list[np.ndarray]] = {}
     done = 0
     for size, result in zip(
-        sizes, evaluate_chunks(model, chunks, sizes, executor=executor), strict=True
+        sizes,
+        evaluate_chunks(model, chunks, sizes, executor=executor, outputs=outputs),
+        strict=True,
     ):
         for name, value in result.items():
             pieces.setdefault(name, []).append(value)
@@ -297,11 +311,13 @@ def evaluate_chunks(
     sizes: Sequence[int],
     *,
     executor: Any = None,
+    outputs: Sequence[str] | None = None,
 ) -> Iterator[dict[str, np.ndarray]]:
     """Each chunk's outputs, in order, evaluated here or on the executor.
 
     ``chunks`` may be a generator (drawn as they are sent, so memory stays bounded);
-    ``sizes`` gives the rows of each. Without ``executor``, the one of the enclosing
+    ``sizes`` gives the rows of each; ``outputs`` as for :func:`evaluate_in_chunks`.
+    Without ``executor``, the one of the enclosing
     :func:`~trapbudget.sensitivity.executors.running_on` block, if the run is large
     enough to share. This is the loop :func:`evaluate_in_chunks` runs.
     """
@@ -309,7 +325,8 @@ def evaluate_chunks(
         executor = current_executor(int(sum(sizes)), len(sizes))
     if executor is not None:
         check_picklable(model, model_name(model))
-    work = ((model, chunk, size) for chunk, size in zip(chunks, sizes, strict=True))
+    keep = None if outputs is None else list(outputs)
+    work = ((model, chunk, size, keep) for chunk, size in zip(chunks, sizes, strict=True))
     return map_chunks(_evaluate_chunk, work, executor)
 
 

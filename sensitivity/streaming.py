@@ -158,7 +158,9 @@ def propagate_outputs(
     kept: dict[str, np.ndarray] = {}
     moments: dict[str, _Moments] = {}
     start = 0
-    for size, result in zip(sizes, evaluate_chunks(runner, chunks, sizes), strict=True):
+    for size, result in zip(
+        sizes, evaluate_chunks(runner, chunks, sizes, outputs=outputs), strict=True
+    ):
         if not kept:
             keep = select_outputs(model, result, outputs)
             for name in keep:

@@ -144,7 +144,9 @@ class _Runner:
             def report(done: int, total: int) -> None:
                 self.progress(done_before + done, done_before + total)
 
-        result = evaluate_in_chunks(model, columns, chunk_size=self.chunk_size, progress=report)
+        result = evaluate_in_chunks(
+            model, columns, chunk_size=self.chunk_size, progress=report, outputs=self.requested
+        )
         result = {k: np.asarray(v) for k, v in result.items()}
         if self.outputs is None:
             self.outputs = select_outputs(self.model, result, self.requested)
