@@ -2,19 +2,20 @@
 
 Run by hand (not in CI), on an otherwise quiet machine::
 
-    python benchmarks/bench_scale.py speed  [--samples 2048] [--rounds 2]
+    python benchmarks/bench_scale.py speed  [--samples 2048] [--mc-samples 8388608] [--rounds 1]
     python benchmarks/bench_scale.py memory [--samples 10000000] [--full]
 
-``speed``: the same study (``rank`` of the invented demo scenario harrier-rb87.toml,
-correlated inputs, its four outputs, base size ``--samples``) run in this process
-(``workers=1``), on a local pool of two processes (``workers=2``, start-up included)
-and on a local ``dask.distributed`` cluster of two single-threaded worker processes
+``speed``: two studies of the invented demo scenario harrier-rb87.toml (correlated
+inputs, its four outputs): ``rank`` at base size ``--samples`` and a summary-only Monte
+Carlo of ``--mc-samples`` samples (propagate + summarize), each run in this process
+(``workers=1``), on a local pool of two processes (``workers=2``, start-up included) and
+on a local ``dask.distributed`` cluster of two single-threaded worker processes
 (``executor=client.get_executor()``; the cluster's start-up is printed apart), side by
-side, ``--rounds`` times interleaved; the best time of each. Also the model-evaluation
-phase alone (``evaluate_in_chunks`` on 2^21 trap samples), and a control: a pure-Python
-loop on one process and on two, which shows how much of the two cores this machine
-gives right now (on a shared machine it is below 2, and so is every ratio above it).
-Every parallel result is checked identical to the one-process one.
+side, ``--rounds`` times; the best wall time of each, and the CPU time all processes
+spent (the overhead of sending chunks, which contention on a shared machine does not
+change). A control, a pure-Python loop on one process and on two, shows how much of the
+two cores the machine gives right now (on a shared machine it is below 2, and so is
+every ratio above it). Every parallel result is checked identical to the one-process one.
 
 ``memory``: peak resident memory (``ru_maxrss`` of a fresh child process) of a Monte
 Carlo study of the trap's four default outputs: ``propagate`` of ``--samples`` random
@@ -63,17 +64,27 @@ def _scenario():
     return load_scenario(resources.files("trapbudget.examples") / SCENARIO)
 
 
+def _cpu_seconds(client=None) -> float:
+    """CPU time of this process, its reaped children and (with a client) the dask workers."""
+    import resource
+
+    own = resource.getrusage(resource.RUSAGE_SELF)
+    children = resource.getrusage(resource.RUSAGE_CHILDREN)
+    total = own.ru_utime + own.ru_stime + children.ru_utime + children.ru_stime
+    if client is not None:
+        total += sum(client.run(time.process_time).values())
+    return total
+
+
 def speed(args: argparse.Namespace) -> None:
     from distributed import Client, LocalCluster
 
-    from trapbudget.sensitivity import rank
-    from trapbudget.sensitivity.protocol import evaluate_in_chunks
-    from trapbudget.sensitivity.sampling import sample_inputs
+    from trapbudget.sensitivity import propagate, rank, summarize
 
     scenario = _scenario()
     outputs = list(scenario.outputs)
 
-    def study(**where):
+    def ranking(**where):
         return rank(
             scenario.model,
             scenario.inputs,
@@ -85,18 +96,31 @@ def speed(args: argparse.Namespace) -> None:
             **where,
         )
 
-    columns = sample_inputs(
-        scenario.inputs, n_samples=2**21, correlation=scenario.correlation, rng=1
-    )
+    def monte_carlo(**where):
+        samples = propagate(
+            scenario.model,
+            scenario.inputs,
+            n_samples=args.mc_samples,
+            outputs=outputs,
+            correlation=scenario.correlation,
+            nominal=scenario.nominal,
+            rng=20261203,
+            keep="outputs",
+            **where,
+        )
+        return summarize(samples)
 
-    def evaluations(**where):
-        from trapbudget.sensitivity.executors import running_on
-
-        with running_on(**where):
-            return evaluate_in_chunks(scenario.model, columns)
-
-    evaluations(workers=1)  # compile (or load) the kernels here first
+    ranking(workers=1)  # compile (or load) the kernels here first
     start = time.perf_counter()
+    # dask's nanny sets MALLOC_TRIM_THRESHOLD_=65536 in its workers by default, which also
+    # turns off glibc's adaptive mmap threshold: every temporary array of more than 128 kB
+    # is then mapped and unmapped, and the trap model runs about 3.5 times slower. Workers
+    # started with the platform's malloc settings:
+    import dask
+
+    environ = dict(dask.config.get("distributed.nanny.pre-spawn-environ"))
+    environ.pop("MALLOC_TRIM_THRESHOLD_", None)
+    dask.config.set({"distributed.nanny.pre-spawn-environ": environ})
     cluster = LocalCluster(
         n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None
     )
@@ -105,41 +129,51 @@ def speed(args: argparse.Namespace) -> None:
     print(
         f"dask LocalCluster of 2 worker processes started in {time.perf_counter() - start:.1f} s"
     )
-    executor = client.get_executor()
     ways = {
-        "1 process": {"workers": 1},
-        "2 local processes": {"workers": 2},
-        "dask, 2 workers": {"executor": executor},
+        "1 process": ({"workers": 1}, None),
+        "2 local processes": ({"workers": 2}, None),
+        "dask, 2 workers": ({"executor": client.get_executor()}, client),
     }
-    best: dict[str, dict[str, float]] = {"study": {}, "evaluations": {}}
-    reference = None
+    studies = {"rank": ranking, "Monte Carlo": monte_carlo}
+    wall: dict[tuple[str, str], float] = {}
+    cpu: dict[tuple[str, str], float] = {}
+    reference: dict[str, object] = {}
     for round_ in range(args.rounds):
-        for name, where in ways.items():
-            for label, run in (("study", study), ("evaluations", evaluations)):
+        for label, run in studies.items():
+            for name, (where, watch) in ways.items():
+                cpu_start = _cpu_seconds(watch)
                 start = time.perf_counter()
                 result = run(**where)
                 elapsed = time.perf_counter() - start
-                best[label][name] = min(best[label].get(name, float("inf")), elapsed)
-                print(f"round {round_ + 1} {label:11s} {name:18s} {elapsed:7.2f} s", flush=True)
-                if label == "study":
-                    if reference is None:
-                        reference = result
-                    elif not result.identical(reference):
-                        raise SystemExit(f"{name}: result differs from one process")
+                used = _cpu_seconds(watch) - cpu_start
+                if elapsed < wall.get((label, name), float("inf")):
+                    wall[label, name], cpu[label, name] = elapsed, used
+                print(
+                    f"round {round_ + 1} {label:11s} {name:18s} {elapsed:7.2f} s wall "
+                    f"{used:7.2f} s CPU",
+                    flush=True,
+                )
+                if label not in reference:
+                    reference[label] = result
+                elif not result.identical(reference[label]):  # type: ignore[attr-defined]
+                    raise SystemExit(f"{label} on {name}: result differs from one process")
     client.close()
     cluster.close()
     serial, parallel = _control()
-    n_eval = int(reference.attrs["n_evaluations"]) if reference is not None else 0
     print()
     print(
-        f"study: rank of {SCENARIO}, N = {args.samples}, {n_eval} model runs; "
-        f"best of {args.rounds}"
+        f"rank: {SCENARIO}, N = {args.samples}; Monte Carlo: {args.mc_samples} samples, "
+        f"summary-only; best of {args.rounds}"
     )
-    for label in ("study", "evaluations"):
-        one = best[label]["1 process"]
+    for label in studies:
+        one = wall[label, "1 process"]
         for name in ways:
-            t = best[label][name]
-            print(f"  {label:11s} {name:18s} {t:7.2f} s   speed-up {one / t:4.2f}x")
+            t = wall[label, name]
+            overhead = cpu[label, name] / cpu[label, "1 process"] - 1
+            print(
+                f"  {label:11s} {name:18s} {t:7.2f} s   speed-up {one / t:4.2f}x   "
+                f"CPU overhead {100 * overhead:+5.1f} %"
+            )
     print(
         f"control, pure Python on 2 processes: speed-up {serial / parallel:4.2f}x "
         "(what the machine's two cores give now)"
@@ -217,7 +251,8 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("what", choices=["speed", "memory", "memory-child"])
     parser.add_argument("--samples", type=float, default=None)
-    parser.add_argument("--rounds", type=int, default=2)
+    parser.add_argument("--rounds", type=int, default=1)
+    parser.add_argument("--mc-samples", type=int, default=2**23)
     parser.add_argument("--full", action="store_true")
     parser.add_argument("--keep", default="auto")
     args = parser.parse_args()

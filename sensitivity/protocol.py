@@ -221,6 +221,9 @@ def _evaluate_chunk(
     is missing: then all do, for the caller to name the missing one.
     """
     out = {}
+    # Arrays that arrive read-only (dask hands out views on its message buffers) are
+    # copied: compiled kernels would otherwise be compiled again for read-only arrays.
+    chunk = {k: v if v.flags.writeable else np.array(v) for k, v in chunk.items()}
     result = model.evaluate(chunk)
     if outputs is not None and all(name in result for name in outputs):
         result = {k: v for k, v in result.items() if k in outputs or k == "validity"}

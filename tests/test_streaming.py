@@ -127,3 +127,27 @@ def test_points_drawn_chunk_by_chunk_are_those_of_one_draw(method, n):
     chunks = list(_unit_chunks(n, 3, method=method, rng=17, chunk_size=256))
     assert [len(c) for c in chunks] == [min(256, n - s) for s in range(0, n, 256)]
     np.testing.assert_array_equal(np.concatenate(chunks), whole)
+
+
+def test_a_summary_only_study_is_saved_and_reported(monkeypatch, tmp_path):
+    from trapbudget.reports.render import write_report
+    from trapbudget.reports.results import study_json
+    from trapbudget.sensitivity import load_dataset, run_study
+
+    # every Monte Carlo of the study summary-only, as a run of 2^22 samples would be
+    monkeypatch.setattr("trapbudget.sensitivity.streaming.SUMMARY_ONLY_SAMPLES", 1)
+    scenario = load_scenario(resources.files("trapbudget.examples") / "harrier-rb87.toml")
+    study = run_study(scenario, n_samples=16, rng=3, convergence=False)
+    samples = study["samples"]
+    assert samples.attrs["kept"] == "outputs"
+    assert not any(name in samples for name in scenario.inputs)
+    datasets = dict(study.datasets)
+    out = write_report(
+        tmp_path / "report",
+        datasets=datasets,
+        study=dict(study.record),
+        result=study_json(datasets, dict(study.record)),
+    )
+    saved = load_dataset(out / "samples.nc")
+    assert saved.attrs["moments"] == samples.attrs["moments"]
+    assert "Output against its top drifts" not in (out / "report.md").read_text(encoding="utf-8")
