@@ -79,7 +79,7 @@ def jacobian(
         columns[name][1 + 2 * j] += h
         columns[name][2 + 2 * j] -= h
     try:
-        result = evaluate_in_chunks(model, columns)
+        result = evaluate_in_chunks(model, columns, n_samples=2 * d + 1)
     except ModelError as error:
         raise ScenarioError(f"model {model_name(model)}: {error}") from error
     keep = select_outputs(model, result, outputs)
