@@ -27,7 +27,7 @@ import contextvars
 import functools
 import os
 import pickle
-from collections.abc import Callable, Iterable, Iterator
+from collections.abc import Callable, Generator, Iterable, Iterator
 from typing import Any, Literal, ParamSpec, TypeVar, Union
 
 from trapbudget.sensitivity.errors import UsageError
@@ -71,6 +71,7 @@ class _LocalPool:
         import sys
 
         self.workers = workers
+        self.owner = os.getpid()  # a forked worker must not use its parent's pool
         self._method = "fork" if sys.platform.startswith("linux") else None
         self._pool: Any = None
         if self._method == "fork":
@@ -215,6 +216,8 @@ def current_executor(n_samples: int, n_chunks: int) -> Any:
         return None
     if plan.auto and n_samples < AUTO_MIN_SAMPLES:
         return None
+    if getattr(plan.executor, "owner", os.getpid()) != os.getpid():
+        return None
     return plan.executor
 
 
@@ -233,7 +236,7 @@ def check_picklable(model: Any, name: str) -> None:
 
 def map_chunks(
     function: Callable[..., Any], arguments: Iterable[tuple[Any, ...]], executor: Any
-) -> Iterator[Any]:
+) -> Generator[Any, None, None]:
     """``function(*args)`` for each tuple of ``arguments``, in order, on ``executor``.
 
     At most a few chunks per worker are in flight, so the samples waiting to be sent

@@ -28,7 +28,13 @@ from numpy.typing import ArrayLike
 
 from trapbudget.models.protocol import ModelError
 from trapbudget.sensitivity.errors import ConvergenceWarning, ScenarioError, TrapbudgetWarning
-from trapbudget.sensitivity.executors import Workers, running_on
+from trapbudget.sensitivity.executors import (
+    Workers,
+    check_picklable,
+    current_executor,
+    map_chunks,
+    running_on,
+)
 from trapbudget.sensitivity.guard import check_memory
 from trapbudget.sensitivity.protocol import (
     BoundModel,
@@ -308,6 +314,13 @@ def _report_validity(ds: xr.Dataset, model: Any, *, stacklevel: int) -> None:
         )
 
 
+def _propagate_batch(model: Any, inputs: Mapping[str, Any], options: dict) -> xr.Dataset:
+    """One batch of an adaptive run (in a worker, too); validity is reported at the end."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ModelValidityWarning)
+        return propagate(model, inputs, **options)
+
+
 def _batch_statistics(ds: xr.Dataset, names: Sequence[str], confidence_level: float):
     out = np.empty((len(names), 4))
     for i, name in enumerate(names):
@@ -385,21 +398,28 @@ def propagate_adaptive(
         converged = False
         delta: dict[str, float] = {}
         achieved: dict[str, list[float]] = {}
-        while (len(batches) + 1) * batch <= max(max_samples, batch):
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore", ModelValidityWarning)
-                ds = propagate(
-                    model,
-                    inputs,
-                    n_samples=batch,
-                    method=method,
-                    correlation=correlation,
-                    rng=parent.spawn(1)[0],
-                    outputs=outputs,
-                    chunk_size=chunk_size,
-                    nominal=nominal,
-                    keep=keep,
-                )
+        n_batches = max(max_samples, batch) // batch
+        options = {
+            "n_samples": batch,
+            "method": method,
+            "correlation": correlation,
+            "outputs": outputs,
+            "chunk_size": chunk_size,
+            "nominal": nominal,
+            "keep": keep,
+        }
+        # Batches go out a few at a time to the executor, if any (each a whole propagate
+        # with its own child stream, spawned in order); those drawn past the batch at
+        # which the run converges are dropped, so the result is the sequential one.
+        runner = current_executor(max(max_samples, batch), n_batches)
+        if runner is not None:
+            check_picklable(model, model_name(model))
+        stream = map_chunks(
+            _propagate_batch,
+            ((model, inputs, {**options, "rng": parent.spawn(1)[0]}) for _ in range(n_batches)),
+            runner,
+        )
+        for ds in stream:
             if not names:
                 names = _output_names(ds, outputs)
             batches.append(ds)
@@ -423,6 +443,7 @@ def propagate_adaptive(
             if done:
                 converged = True
                 break
+        stream.close()  # batches still out are cancelled
         result = xr.concat(batches, dim="sample", combine_attrs="override")
         if keep == "all":
             result = result.assign_coords(sample=np.arange(result.sizes["sample"]))

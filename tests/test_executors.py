@@ -19,9 +19,9 @@ import pytest
 from distributed import Client, LocalCluster
 from scipy import stats
 
-from trapbudget.sensitivity import load_scenario, propagate, rank
+from trapbudget.sensitivity import load_scenario, propagate, propagate_adaptive, rank
 from trapbudget.sensitivity.decisions.compare import compare
-from trapbudget.sensitivity.errors import UsageError
+from trapbudget.sensitivity.errors import ConvergenceWarning, UsageError
 from trapbudget.sensitivity.executors import AUTO_MIN_SAMPLES, current_executor, running_on
 
 CHUNK = 512
@@ -82,6 +82,26 @@ def test_propagate_is_identical_on_a_pool_and_a_cluster(scenario, pool, cluster_
     assert ds.sizes["sample"] == 4096
     # workers=2 starts (and shuts down) its own pool of two processes
     assert run(executor=None, workers=2).identical(ds)
+
+
+def test_adaptive_monte_carlo_is_identical_on_a_pool_and_a_cluster(
+    scenario, pool, cluster_executor
+):
+    def run(**where):
+        return propagate_adaptive(
+            scenario.model,
+            scenario.inputs,
+            max_samples=30_000,  # three batches of 10^4
+            significant_digits=3,  # does not converge: every batch runs
+            rng=6,
+            outputs=OUTPUTS[:2],
+            nominal=scenario.nominal,
+            **where,
+        )
+
+    with pytest.warns(ConvergenceWarning, match="did not converge"):
+        ds = _each_way(run, pool, cluster_executor)
+    assert ds.attrs["n_batches"] == 3
 
 
 def test_rank_is_identical_on_a_pool_and_a_cluster(scenario, pool, cluster_executor):
