@@ -11,6 +11,7 @@ from trapbudget.cli.options import (
     PROG,
     add_common_options,
     add_samples_option,
+    add_workers_options,
     non_negative_amount,
     positive_rate,
 )
@@ -21,6 +22,7 @@ from trapbudget.cli.output import (
     progress_reporter,
     report_dir,
     stdout_console,
+    where_to_run,
 )
 from trapbudget.sensitivity.errors import ScenarioError, UsageError
 
@@ -44,6 +46,7 @@ def add_spec(subparsers: argparse._SubParsersAction) -> None:
         help="verify the linear allocation by Monte Carlo without refining it",
     )
     add_common_options(p)
+    add_workers_options(p)
     p.set_defaults(run=_run_spec)
 
 
@@ -82,6 +85,7 @@ def add_compare(subparsers: argparse._SubParsersAction) -> None:
     )
     add_samples_option(p)
     add_common_options(p)
+    add_workers_options(p)
     p.set_defaults(run=_run_compare)
 
 
@@ -105,7 +109,7 @@ def _run_spec(args: argparse.Namespace) -> int:
     check_samples_fit(args, scenario, kind="propagate", copies=4)
     seed = scenario.settings.seed if args.seed is None else args.seed
     n = scenario.settings.n_samples if args.samples is None else args.samples
-    with progress_reporter(args) as task:
+    with where_to_run(args), progress_reporter(args) as task:
         allocation = allocate(
             scenario, n_samples=n, rng=seed, refine=args.refine, progress=task("Allocation")
         )
@@ -171,7 +175,7 @@ def _run_compare(args: argparse.Namespace) -> int:
     check_samples_fit(args, before, kind="propagate", copies=copies)
     seed = before.settings.seed if args.seed is None else args.seed
     n = before.settings.n_samples if args.samples is None else args.samples
-    with progress_reporter(args) as task:
+    with where_to_run(args), progress_reporter(args) as task:
         if after is not None:
             ds = compare(
                 before,

@@ -6,8 +6,13 @@ import argparse
 from pathlib import Path
 from typing import Any
 
-from trapbudget.cli.options import add_common_options, false_alarm_rate, reference_period
-from trapbudget.cli.output import emit_json, load, report_dir, stdout_console
+from trapbudget.cli.options import (
+    add_common_options,
+    add_workers_options,
+    false_alarm_rate,
+    reference_period,
+)
+from trapbudget.cli.output import emit_json, load, report_dir, stdout_console, where_to_run
 from trapbudget.sensitivity.errors import UsageError
 
 __all__ = []
@@ -67,6 +72,7 @@ def add_diagnose(subparsers: argparse._SubParsersAction) -> None:
         help="probability per day of flagging a day with nothing unmonitored (default 0.01)",
     )
     add_common_options(p, seed=False)
+    add_workers_options(p)
     p.set_defaults(run=_run_diagnose)
 
 
@@ -142,13 +148,14 @@ def _run_diagnose(args: argparse.Namespace) -> int:
 
     out = report_dir(args, f"{Path(args.log).stem}-diagnosis")
     reference = args.reference.split(":") if ":" in args.reference else args.reference
-    diag = diagnose(
-        scenario,
-        args.log,
-        reference=reference,
-        mapping=args.mapping,
-        false_alarm_rate=args.false_alarm_rate,
-    )
+    with where_to_run(args):
+        diag = diagnose(
+            scenario,
+            args.log,
+            reference=reference,
+            mapping=args.mapping,
+            false_alarm_rate=args.false_alarm_rate,
+        )
     ds = diag.to_dataset()
     study = describe_study(scenario, seed=None, n_samples=0, datasets={})
     result = diagnosis_json(ds)

@@ -19,6 +19,7 @@ __all__ = [
     "add_common_options",
     "add_max_samples_option",
     "add_samples_option",
+    "add_workers_options",
     "false_alarm_rate",
     "non_negative_amount",
     "positive_rate",
@@ -103,6 +104,39 @@ def add_common_options(
             metavar="DIR",
             help=f"folder to write to (default: a new folder under ./{DEFAULT_REPORT_ROOT}/)",
         )
+
+
+def _workers(text: str) -> int | str:
+    if text == "auto":
+        return text
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(
+            f"{text!r} is not a number of processes or 'auto'"
+        ) from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"{text!r}: give 1 or more processes, or 'auto'")
+    return value
+
+
+def add_workers_options(parser: argparse.ArgumentParser) -> None:
+    """Add ``--workers N`` (local processes; default auto) and ``--scheduler ADDRESS`` (dask)."""
+    parser.add_argument(
+        "--workers",
+        type=_workers,
+        default="auto",
+        metavar="N",
+        help="local processes for the model runs: 1 runs in this process; default 'auto', "
+        "every core for runs of 2^18 samples or more (the same numbers either way)",
+    )
+    parser.add_argument(
+        "--scheduler",
+        default=None,
+        metavar="ADDRESS",
+        help="run the model on a dask.distributed cluster (e.g. tcp://10.0.0.5:8786; "
+        "needs pip install 'trapbudget[dask]')",
+    )
 
 
 def add_samples_option(parser: argparse.ArgumentParser) -> None:

@@ -25,6 +25,7 @@ __all__ = [
     "report_dir",
     "stage_progress",
     "stdout_console",
+    "where_to_run",
 ]
 
 
@@ -122,6 +123,15 @@ def stage_progress(
             bar(done, total)
 
     return progress
+
+
+def where_to_run(args: argparse.Namespace) -> contextlib.AbstractContextManager[None]:
+    """The model runs of the block on ``--workers`` local processes or the ``--scheduler``."""
+    from trapbudget.sensitivity.executors import running_on
+
+    return running_on(
+        workers=getattr(args, "workers", None), scheduler=getattr(args, "scheduler", None)
+    )
 
 
 def check_out(out: Path) -> Path:

@@ -7,13 +7,14 @@ import math
 from pathlib import Path
 from typing import Any
 
-from trapbudget.cli.options import PROG, add_common_options
+from trapbudget.cli.options import PROG, add_common_options, add_workers_options
 from trapbudget.cli.output import (
     emit_json,
     load,
     progress_reporter,
     report_dir,
     stdout_console,
+    where_to_run,
 )
 from trapbudget.sensitivity.errors import ScenarioError, UsageError
 
@@ -95,6 +96,7 @@ def add_scan(subparsers: argparse._SubParsersAction) -> None:
         help="output to show (repeat for more; default: the scenario's outputs)",
     )
     add_common_options(p)
+    add_workers_options(p)
     p.set_defaults(run=_run_scan)
 
 
@@ -154,7 +156,7 @@ def _run_scan(args: argparse.Namespace) -> int:
         )
     seed = scenario.settings.seed if args.seed is None else args.seed
     out = report_dir(args, f"{Path(args.scenario).stem}-scan-{'-'.join(names)}")
-    with progress_reporter(args) as task:
+    with where_to_run(args), progress_reporter(args) as task:
         ds = scan(
             scenario,
             names,

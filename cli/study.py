@@ -16,6 +16,7 @@ from trapbudget.cli.options import (
     add_common_options,
     add_max_samples_option,
     add_samples_option,
+    add_workers_options,
 )
 from trapbudget.cli.output import (
     check_samples_fit,
@@ -25,6 +26,7 @@ from trapbudget.cli.output import (
     report_dir,
     stage_progress,
     stdout_console,
+    where_to_run,
 )
 from trapbudget.sensitivity.errors import ScenarioError, UsageError
 
@@ -71,6 +73,7 @@ def add_rank(subparsers: argparse._SubParsersAction) -> None:
         "--second-order", action="store_true", help="also estimate pairwise interactions"
     )
     add_common_options(p)
+    add_workers_options(p)
     p.set_defaults(run=_run_rank)
 
 
@@ -134,6 +137,7 @@ def add_demo(subparsers: argparse._SubParsersAction) -> None:
     add_samples_option(p)
     add_max_samples_option(p)
     add_common_options(p)
+    add_workers_options(p)
     p.set_defaults(run=_run_demo)
 
 
@@ -211,7 +215,7 @@ def _rank_and_report(scenario: Any, args: argparse.Namespace, *, stem: str) -> i
     out = report_dir(args, stem)
     second = bool(args.second_order or scenario.settings.second_order)
     check_samples_fit(args, scenario, kind="rank", second_order=second)
-    with progress_reporter(args) as task:
+    with where_to_run(args), progress_reporter(args) as task:
         study = run_study(
             scenario,
             n_samples=args.samples,

@@ -50,7 +50,7 @@ def _along(p0, p1, p2, u0, u1, u2, v, s0, d, zx, zz, c0, back, clip):  # pragma:
     return num / total
 
 
-@numba.njit(cache=True, fastmath=False)
+@numba.njit(cache=True, fastmath=False, nogil=True)
 def line_speeds(
     eta, s0, d, zz, c0, back, clip, directions, impacts, n_steps, out
 ):  # pragma: no cover
@@ -152,7 +152,7 @@ def line_speeds(
         out[j] = math.sqrt(2.0 * u)
 
 
-@numba.njit(cache=True, fastmath=False)
+@numba.njit(cache=True, fastmath=False, nogil=True)
 def line_moments(
     eta, s0, d, zz, c0, back, clip, directions, impacts, weights, n_steps, moments
 ):  # pragma: no cover
@@ -187,7 +187,7 @@ def _cubic_weights(t, w, mode):  # pragma: no cover
     w[3] = 0.5 * t3 - 0.5 * t2
 
 
-@numba.njit(cache=True, fastmath=False)
+@numba.njit(cache=True, fastmath=False, nogil=True)
 def interpolate(table, lows, steps, coords, modes, out):  # pragma: no cover
     """Tensor-product interpolation of a 4-D table (last axis: quantities).
 

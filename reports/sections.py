@@ -431,6 +431,8 @@ def scatter_section(datasets: Datasets, study: Mapping[str, Any]) -> Section | N
     samples, budget = datasets.get("samples"), datasets.get("budget")
     if samples is None or budget is None:
         return None
+    if not any(str(name) in samples for name in budget["input"].values):
+        return None  # a summary-only Monte Carlo keeps no input samples
     blocks: list[Any] = []
     for name in _outputs({"budget": budget}):
         if name in samples:

@@ -52,8 +52,12 @@ def memory_needed(
 
     ``rank`` evaluates N (d + 2) rows (N (2 d + 2) with second order), d the number of
     uncertain inputs plus the dummy input. ``copies`` scenarios evaluated on one design
-    (a comparison of several upgrades) multiply it.
+    (a comparison of several upgrades) multiply it. ``"propagate-outputs"`` is a
+    summary-only Monte Carlo (``propagate(keep="outputs")``): float32 outputs, int32
+    validity and the float64 sorted copy of one output that the summary makes.
     """
+    if kind == "propagate-outputs":
+        return int(copies * n_samples * (4 * n_outputs + 4 + 16))
     width = n_inputs + n_outputs + 1
     if kind == "rank":
         d = n_inputs + 1

@@ -33,8 +33,9 @@ from scipy import stats
 
 from trapbudget.models.protocol import ModelError
 from trapbudget.sensitivity.errors import ScenarioError
+from trapbudget.sensitivity.executors import Workers, running_on
 from trapbudget.sensitivity.propagation import select_outputs
-from trapbudget.sensitivity.protocol import BoundModel, as_model, model_name
+from trapbudget.sensitivity.protocol import BoundModel, as_model, evaluate_in_chunks, model_name
 from trapbudget.sensitivity.sampling import check_correlation, copula_to_pearson, split_inputs
 from trapbudget.sensitivity.summary import numerical_tolerance
 
@@ -78,7 +79,7 @@ def jacobian(
         columns[name][1 + 2 * j] += h
         columns[name][2 + 2 * j] -= h
     try:
-        result = model.evaluate(columns)
+        result = evaluate_in_chunks(model, columns, n_samples=2 * d + 1)
     except ModelError as error:
         raise ScenarioError(f"model {model_name(model)}: {error}") from error
     keep = select_outputs(model, result, outputs)
@@ -102,6 +103,8 @@ def linear_propagation(
     outputs: Sequence[str] | None = None,
     confidence_level: float = 0.95,
     copula: bool = True,
+    executor: Any = None,
+    workers: Workers = None,
 ) -> xr.Dataset:
     """First-order (GUM) propagation of the input uncertainties.
 
@@ -125,6 +128,8 @@ def linear_propagation(
         Default every output except ``validity``.
     confidence_level : float
         p for the expanded uncertainty ``U_p = k_p u`` (normal ``k_p``).
+    executor, workers : optional
+        Where the model runs, as for :func:`~trapbudget.sensitivity.propagate`.
 
     Returns
     -------
@@ -137,86 +142,93 @@ def linear_propagation(
         (dims ``output``, ``output_b``); attrs ``confidence_level``,
         ``coverage_factor``, ``units_<output>``, ``units_<input>``.
     """
-    model = as_model(model, input_names=inputs)
-    uncertain, fixed = split_inputs(inputs, model)
-    names = list(uncertain)
-    u = np.array([float(dist.std()) for dist in uncertain.values()])
-    x0 = {k: float(dist.mean()) for k, dist in uncertain.items()}
-    if nominal is None and isinstance(model, BoundModel):
-        nominal = model.nominal  # the scenario's stated estimates
-    if nominal is not None:
-        x0.update({k: float(v) for k, v in nominal.items() if k in uncertain})
-    steps = {k: _STEP_FRACTION * ui if ui > 0 else 1e-12 for k, ui in zip(names, u, strict=True)}
-    y0, jac, keep = jacobian(model, {**fixed, **x0}, steps, outputs=outputs)
-    if correlation is None:
-        matrix = np.eye(len(names))
-    else:
-        matrix = check_correlation(correlation, names)
-        if copula:
-            matrix = copula_to_pearson(matrix, list(uncertain.values()))
-    covariance = matrix * np.outer(u, u)
-    # JCGM 100:2008 eq. (13) in matrix form (JCGM 102:2011 eq. (3)): U_y = J U_x J^T.
-    # Plain matrix algebra, so the result is the same in every process (the
-    # `uncertainties` package, the tests' oracle, sums in an order that varies).
-    out_cov = jac @ covariance @ jac.T if names else np.zeros((len(keep), len(keep)))
-    std_linear = np.sqrt(np.clip(np.diag(out_cov), 0.0, None))
-    scale = np.outer(std_linear, std_linear)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        out_corr = np.where(scale > 0, out_cov / scale, 0.0)
-    np.fill_diagonal(out_corr, np.where(std_linear > 0, 1.0, 0.0))
-    out_corr = np.clip(out_corr, -1.0, 1.0)
-    k = float(stats.norm.ppf(0.5 * (1.0 + confidence_level)))
-    y_nom = np.array([y0[o] for o in keep])
-    contribution = np.abs(jac) * u[None, :]
-    output_units = [getattr(model.outputs.get(o), "unit", "") for o in keep]
-    input_units = [model.inputs[n].unit for n in names]
-    ds = xr.Dataset(
-        {
-            "sensitivity_coefficient": (
-                ("output", "input"),
-                jac,
-                {"long_name": "dY/dX at the nominal point"},
-            ),
-            "input_uncertainty": ("input", u, {"long_name": "standard uncertainty of the input"}),
-            "input_nominal": ("input", np.array([x0[n] for n in names])),
-            "uncertainty_contribution": (
-                ("output", "input"),
-                contribution,
-                {"long_name": "|c_i| u_i (output units)"},
-            ),
-            "output_nominal": ("output", y_nom),
-            "output_std_linear": (
-                "output",
-                std_linear,
-                {"long_name": "first-order standard uncertainty"},
-            ),
-            "output_std_independent": (
-                "output",
-                np.sqrt((contribution**2).sum(axis=1)),
-                {"long_name": "first order, correlations ignored"},
-            ),
-            "interval_low": ("output", y_nom - k * std_linear),
-            "interval_high": ("output", y_nom + k * std_linear),
-            "output_correlation": (("output", "output_b"), out_corr),
-        },
-        coords={
-            "output": keep,
-            "input": names,
-            "output_b": keep,
-            "units": ("output", output_units),
-            "input_units": ("input", input_units),
-        },
-        attrs={
-            "method": "linear (JCGM 100)",
-            "model": model_name(model),
-            "confidence_level": float(confidence_level),
-            "coverage_factor": k,
-            "input_correlation": matrix.tolist(),
-            **{f"units_{o}": un for o, un in zip(keep, output_units, strict=True)},
-            **{f"units_{n}": un for n, un in zip(names, input_units, strict=True)},
-        },
-    )
-    return ds
+    with running_on(executor, workers):
+        model = as_model(model, input_names=inputs)
+        uncertain, fixed = split_inputs(inputs, model)
+        names = list(uncertain)
+        u = np.array([float(dist.std()) for dist in uncertain.values()])
+        x0 = {k: float(dist.mean()) for k, dist in uncertain.items()}
+        if nominal is None and isinstance(model, BoundModel):
+            nominal = model.nominal  # the scenario's stated estimates
+        if nominal is not None:
+            x0.update({k: float(v) for k, v in nominal.items() if k in uncertain})
+        steps = {
+            k: _STEP_FRACTION * ui if ui > 0 else 1e-12 for k, ui in zip(names, u, strict=True)
+        }
+        y0, jac, keep = jacobian(model, {**fixed, **x0}, steps, outputs=outputs)
+        if correlation is None:
+            matrix = np.eye(len(names))
+        else:
+            matrix = check_correlation(correlation, names)
+            if copula:
+                matrix = copula_to_pearson(matrix, list(uncertain.values()))
+        covariance = matrix * np.outer(u, u)
+        # JCGM 100:2008 eq. (13) in matrix form (JCGM 102:2011 eq. (3)): U_y = J U_x J^T.
+        # Plain matrix algebra, so the result is the same in every process (the
+        # `uncertainties` package, the tests' oracle, sums in an order that varies).
+        out_cov = jac @ covariance @ jac.T if names else np.zeros((len(keep), len(keep)))
+        std_linear = np.sqrt(np.clip(np.diag(out_cov), 0.0, None))
+        scale = np.outer(std_linear, std_linear)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            out_corr = np.where(scale > 0, out_cov / scale, 0.0)
+        np.fill_diagonal(out_corr, np.where(std_linear > 0, 1.0, 0.0))
+        out_corr = np.clip(out_corr, -1.0, 1.0)
+        k = float(stats.norm.ppf(0.5 * (1.0 + confidence_level)))
+        y_nom = np.array([y0[o] for o in keep])
+        contribution = np.abs(jac) * u[None, :]
+        output_units = [getattr(model.outputs.get(o), "unit", "") for o in keep]
+        input_units = [model.inputs[n].unit for n in names]
+        ds = xr.Dataset(
+            {
+                "sensitivity_coefficient": (
+                    ("output", "input"),
+                    jac,
+                    {"long_name": "dY/dX at the nominal point"},
+                ),
+                "input_uncertainty": (
+                    "input",
+                    u,
+                    {"long_name": "standard uncertainty of the input"},
+                ),
+                "input_nominal": ("input", np.array([x0[n] for n in names])),
+                "uncertainty_contribution": (
+                    ("output", "input"),
+                    contribution,
+                    {"long_name": "|c_i| u_i (output units)"},
+                ),
+                "output_nominal": ("output", y_nom),
+                "output_std_linear": (
+                    "output",
+                    std_linear,
+                    {"long_name": "first-order standard uncertainty"},
+                ),
+                "output_std_independent": (
+                    "output",
+                    np.sqrt((contribution**2).sum(axis=1)),
+                    {"long_name": "first order, correlations ignored"},
+                ),
+                "interval_low": ("output", y_nom - k * std_linear),
+                "interval_high": ("output", y_nom + k * std_linear),
+                "output_correlation": (("output", "output_b"), out_corr),
+            },
+            coords={
+                "output": keep,
+                "input": names,
+                "output_b": keep,
+                "units": ("output", output_units),
+                "input_units": ("input", input_units),
+            },
+            attrs={
+                "method": "linear (JCGM 100)",
+                "model": model_name(model),
+                "confidence_level": float(confidence_level),
+                "coverage_factor": k,
+                "input_correlation": matrix.tolist(),
+                **{f"units_{o}": un for o, un in zip(keep, output_units, strict=True)},
+                **{f"units_{n}": un for n, un in zip(names, input_units, strict=True)},
+            },
+        )
+        return ds
 
 
 def compare_linear_monte_carlo(

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
-from collections.abc import Callable, Iterable, Mapping, Sequence
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from typing import Any, Protocol, runtime_checkable
 
 import numpy as np
@@ -17,12 +17,14 @@ from numpy.typing import ArrayLike
 
 from trapbudget.models.protocol import InputSpec, ModelError, OutputSpec
 from trapbudget.sensitivity.errors import ScenarioError
+from trapbudget.sensitivity.executors import check_picklable, current_executor, map_chunks
 
 __all__ = [
     "BoundModel",
     "CallableModel",
     "Model",
     "as_model",
+    "evaluate_chunks",
     "evaluate_in_chunks",
     "model_name",
     "nominal_validity",
@@ -141,6 +143,9 @@ def as_model(obj: Any, *, input_names: Iterable[str] = (), units=None) -> Any:
 
 def model_name(model: Any) -> str:
     """A short name for a model (class name; the wrapped one for bound models)."""
+    wrapped = getattr(model, "wrapped_model", None)
+    if wrapped is not None:
+        return model_name(wrapped)
     base = getattr(model, "base", None)
     if base is not None and isinstance(model, BoundModel):
         return model_name(base)
@@ -207,6 +212,29 @@ class BoundModel:
         return f"BoundModel({model_name(self.base)}, fixed={self.fixed!r})"
 
 
+def _evaluate_chunk(
+    model: Any, chunk: Mapping[str, np.ndarray], size: int, outputs: Sequence[str] | None = None
+):
+    """One chunk's outputs, each as an array of ``size`` rows (runs in a worker too).
+
+    With ``outputs``, only those and ``validity`` come back (less to send), unless one
+    is missing: then all do, for the caller to name the missing one.
+    """
+    out = {}
+    # Arrays that arrive read-only (dask hands out views on its message buffers) are
+    # copied: compiled kernels would otherwise be compiled again for read-only arrays.
+    chunk = {k: v if v.flags.writeable else np.array(v) for k, v in chunk.items()}
+    result = model.evaluate(chunk)
+    if outputs is not None and all(name in result for name in outputs):
+        result = {k: v for k, v in result.items() if k in outputs or k == "validity"}
+    for name, value in result.items():
+        value = np.asarray(value)
+        if value.ndim == 0 or value.shape[0] != size:
+            value = np.broadcast_to(value, (size, *value.shape[value.ndim > 0 :]))
+        out[name] = np.array(value)
+    return out
+
+
 def evaluate_in_chunks(
     model: Any,
     columns: Mapping[str, np.ndarray],
@@ -214,6 +242,8 @@ def evaluate_in_chunks(
     chunk_size: int = 65536,
     progress: Callable[[int, int], None] | None = None,
     n_samples: int | None = None,
+    executor: Any = None,
+    outputs: Sequence[str] | None = None,
 ) -> dict[str, np.ndarray]:
     """Evaluate ``model`` on 1-D sample columns in chunks of bounded memory.
 
@@ -224,16 +254,27 @@ def evaluate_in_chunks(
     columns : mapping name -> 1-D array
         One column per varied input, all of the same length n.
     chunk_size : int
-        Samples per model call (default 65536).
+        Samples per model call (default 65536). The chunks are the same whatever
+        runs them, so the result is bit for bit the same on any executor.
     progress : callable(done, total), optional
         Called after each chunk.
     n_samples : int, optional
         Number of samples when ``columns`` is empty (every input fixed).
+    executor : Executor-like, optional
+        Runs the chunks (``submit``); default the executor of the enclosing
+        :func:`~trapbudget.sensitivity.executors.running_on` block, else this process.
+    outputs : sequence of str, optional
+        Return only these outputs and ``validity`` (default every output).
 
     Returns
     -------
     dict name -> 1-D array
         Each output over the n samples (scalars broadcast to n).
+
+    Raises
+    ------
+    UsageError
+        When the chunks go to other processes and the model cannot be pickled.
     """
     model = as_model(model, input_names=columns)
     arrays = {name: np.asarray(col) for name, col in columns.items()}
@@ -245,21 +286,51 @@ def evaluate_in_chunks(
         raise ValueError("evaluate_in_chunks: no samples (give columns or n_samples)")
     if chunk_size < 1:
         raise ValueError(f"chunk_size must be >= 1, got {chunk_size}")
+    starts = range(0, total, chunk_size)
+    # Every chunk is a fresh contiguous copy, here as in a worker: same arrays, same bits.
+    chunks = (
+        {name: np.array(a[start : start + chunk_size]) for name, a in arrays.items()}
+        for start in starts
+    )
+    sizes = [min(start + chunk_size, total) - start for start in starts]
     pieces: dict[str, list[np.ndarray]] = {}
-    for start in range(0, total, chunk_size):
-        stop = min(start + chunk_size, total)
-        chunk = {name: a[start:stop] for name, a in arrays.items()}
-        if not chunk:
-            chunk = {}
-        result = model.evaluate(chunk)
+    done = 0
+    for size, result in zip(
+        sizes,
+        evaluate_chunks(model, chunks, sizes, executor=executor, outputs=outputs),
+        strict=True,
+    ):
         for name, value in result.items():
-            value = np.asarray(value)
-            if value.ndim == 0 or value.shape[0] != stop - start:
-                value = np.broadcast_to(value, (stop - start, *value.shape[value.ndim > 0 :]))
-            pieces.setdefault(name, []).append(np.array(value))
+            pieces.setdefault(name, []).append(value)
+        done += size
         if progress is not None:
-            progress(stop, total)
+            progress(done, total)
     return {name: np.concatenate(parts) for name, parts in pieces.items()}
+
+
+def evaluate_chunks(
+    model: Any,
+    chunks: Iterable[Mapping[str, np.ndarray]],
+    sizes: Sequence[int],
+    *,
+    executor: Any = None,
+    outputs: Sequence[str] | None = None,
+) -> Iterator[dict[str, np.ndarray]]:
+    """Each chunk's outputs, in order, evaluated here or on the executor.
+
+    ``chunks`` may be a generator (drawn as they are sent, so memory stays bounded);
+    ``sizes`` gives the rows of each; ``outputs`` as for :func:`evaluate_in_chunks`.
+    Without ``executor``, the one of the enclosing
+    :func:`~trapbudget.sensitivity.executors.running_on` block, if the run is large
+    enough to share. This is the loop :func:`evaluate_in_chunks` runs.
+    """
+    if executor is None:
+        executor = current_executor(int(sum(sizes)), len(sizes))
+    if executor is not None:
+        check_picklable(model, model_name(model))
+    keep = None if outputs is None else list(outputs)
+    work = ((model, chunk, size, keep) for chunk, size in zip(chunks, sizes, strict=True))
+    return map_chunks(_evaluate_chunk, work, executor)
 
 
 def select_outputs(

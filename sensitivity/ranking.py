@@ -55,6 +55,7 @@ import numpy as np
 import xarray as xr
 
 from trapbudget.sensitivity.errors import ScenarioError
+from trapbudget.sensitivity.executors import Workers, running_on
 from trapbudget.sensitivity.guard import check_memory
 from trapbudget.sensitivity.indices.budget import (
     _FULL_FIRST_ORDER,
@@ -105,6 +106,8 @@ def rank(
     estimator: Literal["jansen", "sobol2007"] = "jansen",
     n_replicates: int = DEFAULT_REPLICATES,
     shapley: bool = True,
+    executor: Any = None,
+    workers: Workers = None,
 ) -> xr.Dataset:
     """Rank the inputs of a model by global sensitivity indices: the error budget.
 
@@ -171,6 +174,8 @@ def rank(
         R, independent scramblings of the design (at least 2).
     shapley : bool, default True
         Estimate ``shapley_effect`` (always the headline with a correlation).
+    executor, workers : optional
+        Where the model runs, as for :func:`~trapbudget.sensitivity.propagate`.
 
     Returns
     -------
@@ -213,76 +218,85 @@ def rank(
     F. Sarrazin, F. Pianosi, T. Wagener, Environ. Model. Softw. 79, 135 (2016);
     F. Khorashadi Zadeh et al., Environ. Model. Softw. 91, 210 (2017).
     """
-    if method not in _METHODS:
-        raise ScenarioError(f"method must be one of {_METHODS}; got {method!r}")
-    if not 0 < convergence_tolerance:
-        raise ScenarioError(
-            f"convergence_tolerance must be positive; got {convergence_tolerance!r}"
-        )
-    n_samples = _power_of_two(n_samples, "n_samples")
-    try:
-        n_replicates = check_replicates(n_replicates)
-    except ValueError as error:
-        raise ScenarioError(str(error)) from None
-    model = as_model(model, input_names=list(inputs))
-    uncertain, fixed = _split_inputs(inputs, model)
-    n_outputs = len(outputs) if outputs is not None else len(getattr(model, "outputs", {}) or {})
-    check_memory("rank", n_samples, len(uncertain), n_outputs, second_order=second_order)
-    names = list(uncertain)
-    group_map = _normalise_groups(groups, names)
-    generator = np.random.default_rng(rng)
-    if correlation is not None:
-        correlation = np.asarray(correlation, dtype=float)
-        if correlation.shape != (len(names), len(names)):
+    with running_on(executor, workers):
+        if method not in _METHODS:
+            raise ScenarioError(f"method must be one of {_METHODS}; got {method!r}")
+        if not 0 < convergence_tolerance:
             raise ScenarioError(
-                f"correlation must be {len(names)}x{len(names)} for inputs {names}; "
-                f"got shape {correlation.shape}"
+                f"convergence_tolerance must be positive; got {convergence_tolerance!r}"
             )
-        if np.allclose(correlation, np.eye(len(names))):
-            correlation = None
-    runner = _Runner(model, names, list(uncertain.values()), fixed, outputs, chunk_size, progress)
-    max_samples = (
-        16 * n_samples if max_samples is None else _power_of_two(max_samples, "max_samples")
-    )
-    opts = _Options(
-        dummy=dummy,
-        convergence=convergence,
-        convergence_tolerance=convergence_tolerance,
-        max_samples=max_samples,
-        confidence_level=confidence_level,
-        n_bootstrap=n_bootstrap,
-        rng=generator,
-        estimator=estimator,
-        n_replicates=n_replicates,
-        shapley=shapley,
-    )
-    if method == "kucherenko" or (method == "sobol" and correlation is not None):
-        dependence = np.eye(len(names)) if correlation is None else correlation
-        ds = _rank_dependent(runner, n_samples, opts, correlation=dependence, groups=group_map)
-    elif method == "delta" or correlation is not None:
-        ds = _rank_given_data(runner, n_samples, opts, correlation=correlation)
-        if group_map:
-            ds.attrs["groups_note"] = (
-                "no grouped indices from given data; use method='kucherenko' for groups of "
-                "correlated inputs"
-            )
-    else:
-        ds = _rank_sobol(runner, n_samples, opts, second_order=second_order, groups=group_map)
-    _add_linear(ds, model, inputs, nominal, correlation, runner.outputs)
-    counts = _validity_counts(model, np.concatenate(runner.validity) if runner.validity else None)
-    ds.attrs.update(
-        n_evaluations=int(runner.n_evaluations),
-        seed=int(rng) if isinstance(rng, int | np.integer) and not isinstance(rng, bool) else "",
-        validity_counts=counts,
-        n_invalid=int(counts.get("any", 0)),
-        convergence_tolerance=float(convergence_tolerance),
-        model=type(getattr(model, "base", model)).__name__,
-    )
-    ds.attrs.setdefault("converged", True)
-    for name in ds.data_vars:
-        if name.startswith(("first_order", "total_order", "delta", "group_", "second_order")):  # type: ignore[attr-defined]
-            ds[name].attrs.setdefault("units", "1")
-    return ds
+        n_samples = _power_of_two(n_samples, "n_samples")
+        try:
+            n_replicates = check_replicates(n_replicates)
+        except ValueError as error:
+            raise ScenarioError(str(error)) from None
+        model = as_model(model, input_names=list(inputs))
+        uncertain, fixed = _split_inputs(inputs, model)
+        n_outputs = (
+            len(outputs) if outputs is not None else len(getattr(model, "outputs", {}) or {})
+        )
+        check_memory("rank", n_samples, len(uncertain), n_outputs, second_order=second_order)
+        names = list(uncertain)
+        group_map = _normalise_groups(groups, names)
+        generator = np.random.default_rng(rng)
+        if correlation is not None:
+            correlation = np.asarray(correlation, dtype=float)
+            if correlation.shape != (len(names), len(names)):
+                raise ScenarioError(
+                    f"correlation must be {len(names)}x{len(names)} for inputs {names}; "
+                    f"got shape {correlation.shape}"
+                )
+            if np.allclose(correlation, np.eye(len(names))):
+                correlation = None
+        runner = _Runner(
+            model, names, list(uncertain.values()), fixed, outputs, chunk_size, progress
+        )
+        max_samples = (
+            16 * n_samples if max_samples is None else _power_of_two(max_samples, "max_samples")
+        )
+        opts = _Options(
+            dummy=dummy,
+            convergence=convergence,
+            convergence_tolerance=convergence_tolerance,
+            max_samples=max_samples,
+            confidence_level=confidence_level,
+            n_bootstrap=n_bootstrap,
+            rng=generator,
+            estimator=estimator,
+            n_replicates=n_replicates,
+            shapley=shapley,
+        )
+        if method == "kucherenko" or (method == "sobol" and correlation is not None):
+            dependence = np.eye(len(names)) if correlation is None else correlation
+            ds = _rank_dependent(runner, n_samples, opts, correlation=dependence, groups=group_map)
+        elif method == "delta" or correlation is not None:
+            ds = _rank_given_data(runner, n_samples, opts, correlation=correlation)
+            if group_map:
+                ds.attrs["groups_note"] = (
+                    "no grouped indices from given data; use method='kucherenko' for groups of "
+                    "correlated inputs"
+                )
+        else:
+            ds = _rank_sobol(runner, n_samples, opts, second_order=second_order, groups=group_map)
+        _add_linear(ds, model, inputs, nominal, correlation, runner.outputs)
+        counts = _validity_counts(
+            model, np.concatenate(runner.validity) if runner.validity else None
+        )
+        ds.attrs.update(
+            n_evaluations=int(runner.n_evaluations),
+            seed=int(rng)
+            if isinstance(rng, int | np.integer) and not isinstance(rng, bool)
+            else "",
+            validity_counts=counts,
+            n_invalid=int(counts.get("any", 0)),
+            convergence_tolerance=float(convergence_tolerance),
+            model=type(getattr(model, "base", model)).__name__,
+        )
+        ds.attrs.setdefault("converged", True)
+        for name in ds.data_vars:
+            if name.startswith(("first_order", "total_order", "delta", "group_", "second_order")):  # type: ignore[attr-defined]
+                ds[name].attrs.setdefault("units", "1")
+        return ds
 
 
 def _rank_given_data(

@@ -37,6 +37,7 @@ from trapbudget.sensitivity.errors import ScenarioError
 __all__ = [
     "METHODS",
     "SamplingMethod",
+    "UnitCubeModel",
     "check_correlation",
     "copula_to_pearson",
     "is_distribution",
@@ -229,6 +230,54 @@ def ppf(dist: Any, unit: np.ndarray) -> np.ndarray:
         sigma = math.log((float(dist.ppf(special.ndtr(1.0))) - loc) / (median - loc))
         return loc + (median - loc) * np.exp(sigma * special.ndtri(u))
     return dist.ppf(u)
+
+
+class UnitCubeModel:
+    """A model fed points of the unit cube, mapped to the inputs where the chunk is evaluated.
+
+    Each column named in ``distributions`` goes through :func:`transform` (marginals and,
+    with ``correlation``, the Gaussian copula) inside :meth:`evaluate`, so a worker that
+    evaluates a chunk also does its quantile functions; ``fixed`` inputs are bound.
+
+    Parameters
+    ----------
+    model : model
+        The model (``wrapped_model``).
+    distributions : mapping name -> frozen distribution
+        The marginals, in the order of the copula's rows.
+    correlation : array (d, d), optional
+    fixed : mapping name -> float, optional
+    """
+
+    def __init__(
+        self,
+        model: Any,
+        distributions: Mapping[str, Any],
+        *,
+        correlation: ArrayLike | None = None,
+        fixed: Mapping[str, float] | None = None,
+    ) -> None:
+        self.wrapped_model = model
+        self.distributions = dict(distributions)
+        self.correlation = None if correlation is None else np.asarray(correlation, dtype=float)
+        self.fixed = dict(fixed or {})
+
+    @property
+    def inputs(self) -> Any:
+        return self.wrapped_model.inputs
+
+    @property
+    def outputs(self) -> Any:
+        return self.wrapped_model.outputs
+
+    def evaluate(self, values: Mapping[str, ArrayLike]) -> Any:
+        names = list(self.distributions)
+        unit = np.column_stack([np.asarray(values[name], dtype=float) for name in names])
+        physical = transform(unit, list(self.distributions.values()), correlation=self.correlation)
+        n = unit.shape[0]
+        columns = {name: np.full(n, value) for name, value in self.fixed.items()}
+        columns.update({name: physical[:, j] for j, name in enumerate(names)})
+        return self.wrapped_model.evaluate(columns)
 
 
 def transform(

@@ -28,6 +28,7 @@ import xarray as xr
 from scipy import special
 
 from trapbudget.sensitivity.errors import ScenarioError, UsageError
+from trapbudget.sensitivity.executors import Workers, running_on
 from trapbudget.sensitivity.protocol import evaluate_in_chunks, validity_flags
 from trapbudget.sensitivity.sampling import _EDGE, is_power_of_two, ppf, unit_design
 
@@ -116,6 +117,8 @@ def scan(
     rng: Any = None,
     chunk_size: int = 65536,
     progress: Callable[[int, int], None] | None = None,
+    executor: Any = None,
+    workers: Workers = None,
 ) -> xr.Dataset:
     """Sweep one or two settings over a grid with the other uncertainties propagated.
 
@@ -139,6 +142,8 @@ def scan(
     confidence_level : float
         Coverage probability of the band.
     rng : seed or Generator, optional
+    executor, workers : optional
+        Where the model runs, as for :func:`~trapbudget.sensitivity.propagate`.
 
     Returns
     -------
@@ -153,133 +158,140 @@ def scan(
 
     Model runs: n_samples x (grid points) + (grid points).
     """
-    names = _names(settings)
-    if not 0 < confidence_level < 1:
-        raise UsageError(f"confidence_level {confidence_level} must lie in (0, 1)")
-    if int(n_samples) < 2:
-        raise UsageError(f"scan needs at least 2 samples, got {n_samples}")
-    points = n_points if n_points is not None else DEFAULT_POINTS[len(names)]
-    if isinstance(points, int | np.integer):
-        counts = [int(points)] * len(names)
-    else:
-        counts = [int(p) for p in points]
-    if len(counts) != len(names) or min(counts) < 2:
-        raise UsageError("scan needs at least 2 grid points per swept setting")
-    ranges = dict(ranges or {})
-    pairs = zip(names, counts, strict=True)
-    grids = [_grid(scenario, n, ranges.get(n), c, span) for n, c in pairs]
-    model = scenario.model
-    keep = list(outputs) if outputs is not None else list(scenario.outputs)
-    known = [o for o in (getattr(model, "outputs", None) or {}) if o != "validity"]
-    unknown = [o for o in keep if known and o not in known]
-    if unknown:
-        raise UsageError(f"the model has no output {unknown[0]!r}; outputs are {', '.join(known)}")
-
-    uncertain = list(scenario.inputs)
-    others, idx_s, b, chol = _conditional(scenario.correlation, uncertain, names)
-    n = int(n_samples)
-    method: Literal["sobol", "random"] = "sobol" if is_power_of_two(n) else "random"
-    unit = unit_design(n, len(others), method=method, rng=rng)
-    eps = special.ndtri(unit) @ chol.T if others else np.empty((n, 0))
-
-    mesh = np.meshgrid(*grids, indexing="ij")
-    flat = [m.ravel() for m in mesh]
-    n_grid = flat[0].size
-    # normal scores of the swept settings that carry a distribution (for the conditioning)
-    swept_dists = [scenario.inputs[s] for s in names if s in scenario.inputs]
-    swept_vals = [flat[names.index(s)] for s in names if s in scenario.inputs]
-    columns: dict[str, np.ndarray] = {}
-    if others:
-        if swept_dists:
-            scores = np.column_stack(
-                [
-                    special.ndtri(np.clip(d.cdf(v), _EDGE, 1 - _EDGE))
-                    for d, v in zip(swept_dists, swept_vals, strict=True)
-                ]
-            )
-            mean = scores @ b.T  # (grid, others)
+    with running_on(executor, workers):
+        names = _names(settings)
+        if not 0 < confidence_level < 1:
+            raise UsageError(f"confidence_level {confidence_level} must lie in (0, 1)")
+        if int(n_samples) < 2:
+            raise UsageError(f"scan needs at least 2 samples, got {n_samples}")
+        points = n_points if n_points is not None else DEFAULT_POINTS[len(names)]
+        if isinstance(points, int | np.integer):
+            counts = [int(points)] * len(names)
         else:
-            mean = np.zeros((n_grid, len(others)))
-        z = mean[:, None, :] + eps[None, :, :]  # (grid, n, others)
-        u = np.clip(special.ndtr(z), _EDGE, 1 - _EDGE)
-        for j, name in enumerate(others):
-            columns[name] = ppf(scenario.inputs[name], u[:, :, j].ravel())
-    for name, values in zip(names, flat, strict=True):
-        columns[name] = np.repeat(values, n)
-    result = evaluate_in_chunks(
-        model, columns, chunk_size=chunk_size, progress=progress, n_samples=n_grid * n
-    )
-    missing = [o for o in keep if o not in result]
-    if missing:
-        raise ScenarioError(
-            f"the model has no output {missing[0]!r}; outputs are "
-            f"{', '.join(o for o in result if o != 'validity')}",
-            key="outputs",
-        )
-    nominal_run = evaluate_in_chunks(model, dict(zip(names, flat, strict=True)))
+            counts = [int(p) for p in points]
+        if len(counts) != len(names) or min(counts) < 2:
+            raise UsageError("scan needs at least 2 grid points per swept setting")
+        ranges = dict(ranges or {})
+        pairs = zip(names, counts, strict=True)
+        grids = [_grid(scenario, n, ranges.get(n), c, span) for n, c in pairs]
+        model = scenario.model
+        keep = list(outputs) if outputs is not None else list(scenario.outputs)
+        known = [o for o in (getattr(model, "outputs", None) or {}) if o != "validity"]
+        unknown = [o for o in keep if known and o not in known]
+        if unknown:
+            raise UsageError(
+                f"the model has no output {unknown[0]!r}; outputs are {', '.join(known)}"
+            )
 
-    shape = tuple(counts)
-    alpha = 0.5 * (1.0 - confidence_level)
-    stats: dict[str, list[np.ndarray]] = {k: [] for k in ("mean", "median", "std", "low", "high")}
-    curve = []
-    for name in keep:
-        values = np.asarray(result[name], dtype=float).reshape(n_grid, n)
-        with np.errstate(invalid="ignore"):
-            finite = np.where(np.isfinite(values), values, np.nan)
-            ok = np.asarray(np.isfinite(finite).any(axis=1))
-            safe = np.where(ok[:, None], finite, 0.0)
-            q = np.nanquantile(safe, [alpha, 0.5, 1 - alpha], axis=1)
-            mean_v = np.nanmean(safe, axis=1)
-            std_v = np.nanstd(safe, axis=1, ddof=1)
-        for key, value in (
-            ("mean", mean_v),
-            ("median", q[1]),
-            ("std", std_v),
-            ("low", q[0]),
-            ("high", q[2]),
+        uncertain = list(scenario.inputs)
+        others, idx_s, b, chol = _conditional(scenario.correlation, uncertain, names)
+        n = int(n_samples)
+        method: Literal["sobol", "random"] = "sobol" if is_power_of_two(n) else "random"
+        unit = unit_design(n, len(others), method=method, rng=rng)
+        eps = special.ndtri(unit) @ chol.T if others else np.empty((n, 0))
+
+        mesh = np.meshgrid(*grids, indexing="ij")
+        flat = [m.ravel() for m in mesh]
+        n_grid = flat[0].size
+        # normal scores of the swept settings that carry a distribution (for the conditioning)
+        swept_dists = [scenario.inputs[s] for s in names if s in scenario.inputs]
+        swept_vals = [flat[names.index(s)] for s in names if s in scenario.inputs]
+        columns: dict[str, np.ndarray] = {}
+        if others:
+            if swept_dists:
+                scores = np.column_stack(
+                    [
+                        special.ndtri(np.clip(d.cdf(v), _EDGE, 1 - _EDGE))
+                        for d, v in zip(swept_dists, swept_vals, strict=True)
+                    ]
+                )
+                mean = scores @ b.T  # (grid, others)
+            else:
+                mean = np.zeros((n_grid, len(others)))
+            z = mean[:, None, :] + eps[None, :, :]  # (grid, n, others)
+            u = np.clip(special.ndtr(z), _EDGE, 1 - _EDGE)
+            for j, name in enumerate(others):
+                columns[name] = ppf(scenario.inputs[name], u[:, :, j].ravel())
+        for name, values in zip(names, flat, strict=True):
+            columns[name] = np.repeat(values, n)
+        result = evaluate_in_chunks(
+            model, columns, chunk_size=chunk_size, progress=progress, n_samples=n_grid * n
+        )
+        missing = [o for o in keep if o not in result]
+        if missing:
+            raise ScenarioError(
+                f"the model has no output {missing[0]!r}; outputs are "
+                f"{', '.join(o for o in result if o != 'validity')}",
+                key="outputs",
+            )
+        nominal_run = evaluate_in_chunks(model, dict(zip(names, flat, strict=True)))
+
+        shape = tuple(counts)
+        alpha = 0.5 * (1.0 - confidence_level)
+        stats: dict[str, list[np.ndarray]] = {
+            k: [] for k in ("mean", "median", "std", "low", "high")
+        }
+        curve = []
+        for name in keep:
+            values = np.asarray(result[name], dtype=float).reshape(n_grid, n)
+            with np.errstate(invalid="ignore"):
+                finite = np.where(np.isfinite(values), values, np.nan)
+                ok = np.asarray(np.isfinite(finite).any(axis=1))
+                safe = np.where(ok[:, None], finite, 0.0)
+                q = np.nanquantile(safe, [alpha, 0.5, 1 - alpha], axis=1)
+                mean_v = np.nanmean(safe, axis=1)
+                std_v = np.nanstd(safe, axis=1, ddof=1)
+            for key, value in (
+                ("mean", mean_v),
+                ("median", q[1]),
+                ("std", std_v),
+                ("low", q[0]),
+                ("high", q[2]),
+            ):
+                stats[key].append(np.where(ok, value, np.nan).reshape(shape))
+            curve.append(np.asarray(nominal_run[name], dtype=float).reshape(shape))
+        dims = ("output", *names)
+        data = {key: (dims, np.stack(v)) for key, v in stats.items()}
+        data["nominal_curve"] = (dims, np.stack(curve))
+        mask = np.asarray(result.get("validity", np.zeros(n_grid * n)), dtype=np.int64)
+        _, advisory = validity_flags(model)
+        invalid = ((mask & ~advisory) != 0).reshape(n_grid, n).mean(axis=1).reshape(shape)
+        data["invalid_fraction"] = (tuple(names), invalid)
+        specs = model.inputs
+        coords: dict[str, Any] = {"output": keep}
+        for name, grid in zip(names, grids, strict=True):
+            coords[name] = (name, grid, {"units": specs[name].unit, "long_name": name})
+        out_units = getattr(model, "outputs", {}) or {}
+        conditioned = []
+        if scenario.correlation is not None and idx_s:
+            r = np.asarray(scenario.correlation)
+            conditioned = [o for o in others if np.any(np.abs(r[uncertain.index(o), idx_s]) > 0)]
+        ds = xr.Dataset(
+            data,
+            coords=coords,
+            attrs={
+                "kind": "scan",
+                "swept": list(names),
+                "n_samples": n,
+                "method": method,
+                "confidence_level": float(confidence_level),
+                "conditioned": conditioned,
+                "propagated": others,
+                "n_evaluations": int(n_grid * (n + 1)),
+                **{
+                    f"nominal_{s}": float(scenario.nominal.get(s, specs[s].default)) for s in names
+                },
+                **{f"units_{o}": str(getattr(out_units.get(o), "unit", "") or "") for o in keep},
+            },
+        )
+        for key, text in (
+            ("mean", "mean over the other inputs' uncertainty"),
+            ("median", "median"),
+            ("std", "standard deviation"),
+            ("low", f"lower end of the {100 * confidence_level:g} % coverage band"),
+            ("high", f"upper end of the {100 * confidence_level:g} % coverage band"),
+            ("nominal_curve", "model with the other inputs at nominal"),
         ):
-            stats[key].append(np.where(ok, value, np.nan).reshape(shape))
-        curve.append(np.asarray(nominal_run[name], dtype=float).reshape(shape))
-    dims = ("output", *names)
-    data = {key: (dims, np.stack(v)) for key, v in stats.items()}
-    data["nominal_curve"] = (dims, np.stack(curve))
-    mask = np.asarray(result.get("validity", np.zeros(n_grid * n)), dtype=np.int64)
-    _, advisory = validity_flags(model)
-    invalid = ((mask & ~advisory) != 0).reshape(n_grid, n).mean(axis=1).reshape(shape)
-    data["invalid_fraction"] = (tuple(names), invalid)
-    specs = model.inputs
-    coords: dict[str, Any] = {"output": keep}
-    for name, grid in zip(names, grids, strict=True):
-        coords[name] = (name, grid, {"units": specs[name].unit, "long_name": name})
-    out_units = getattr(model, "outputs", {}) or {}
-    conditioned = []
-    if scenario.correlation is not None and idx_s:
-        r = np.asarray(scenario.correlation)
-        conditioned = [o for o in others if np.any(np.abs(r[uncertain.index(o), idx_s]) > 0)]
-    ds = xr.Dataset(
-        data,
-        coords=coords,
-        attrs={
-            "kind": "scan",
-            "swept": list(names),
-            "n_samples": n,
-            "method": method,
-            "confidence_level": float(confidence_level),
-            "conditioned": conditioned,
-            "propagated": others,
-            "n_evaluations": int(n_grid * (n + 1)),
-            **{f"nominal_{s}": float(scenario.nominal.get(s, specs[s].default)) for s in names},
-            **{f"units_{o}": str(getattr(out_units.get(o), "unit", "") or "") for o in keep},
-        },
-    )
-    for key, text in (
-        ("mean", "mean over the other inputs' uncertainty"),
-        ("median", "median"),
-        ("std", "standard deviation"),
-        ("low", f"lower end of the {100 * confidence_level:g} % coverage band"),
-        ("high", f"upper end of the {100 * confidence_level:g} % coverage band"),
-        ("nominal_curve", "model with the other inputs at nominal"),
-    ):
-        ds[key].attrs["long_name"] = text
-    ds["invalid_fraction"].attrs["long_name"] = "share of draws outside the model's validity"
-    return ds
+            ds[key].attrs["long_name"] = text
+        ds["invalid_fraction"].attrs["long_name"] = "share of draws outside the model's validity"
+        return ds

@@ -26,6 +26,7 @@ import xarray as xr
 
 from trapbudget.sensitivity.compliance import check_requirements
 from trapbudget.sensitivity.errors import ScenarioError
+from trapbudget.sensitivity.executors import Workers, running_on
 from trapbudget.sensitivity.io import atomic_write_json, save_dataset
 from trapbudget.sensitivity.linear import compare_linear_monte_carlo, linear_propagation
 from trapbudget.sensitivity.propagation import propagate, propagate_adaptive
@@ -180,6 +181,8 @@ def run_study(
     max_samples: int | None = None,
     second_order: bool | None = None,
     progress: Progress | None = None,
+    executor: Any = None,
+    workers: Workers = None,
 ) -> Study:
     """Run the whole study of ``scenario``: what ``trapbudget rank`` runs.
 
@@ -212,96 +215,99 @@ def run_study(
         Pairwise interaction indices (default: the scenario's setting).
     progress : callable(stage, done, total), optional
         Called as each stage advances (stages in :data:`STAGES`).
+    executor, workers : optional
+        Where the model runs, as for :func:`~trapbudget.sensitivity.propagate`.
 
     Returns
     -------
     Study
     """
-    options: RunOptions = scenario.settings.resolve(n_samples=n_samples, rng=rng)
-    outputs = list(scenario.outputs)
-    # Child streams by index: the first two are those of earlier versions.
-    mc_seed, rank_seed, draw_seed = np.random.SeedSequence(options.seed).spawn(3)
-    linear = linear_propagation(
-        scenario.model,
-        scenario.inputs,
-        nominal=scenario.nominal,
-        correlation=scenario.correlation,
-        outputs=outputs,
-    )
-    # The Monte Carlo is sized by its own rule (JCGM 101 clause 7.9), not by the index
-    # design's base size: batches of 10^4 (2^14 on Sobol', each batch an independent
-    # scramble) until 2 s/sqrt(h) of y, u(y) and both interval ends is below the tolerance.
-    samples = propagate_adaptive(
-        scenario.model,
-        scenario.inputs,
-        confidence_level=options.confidence_level,
-        significant_digits=scenario.settings.significant_digits,
-        max_samples=scenario.settings.max_samples,
-        method=options.method,  # type: ignore[arg-type]
-        correlation=scenario.correlation,
-        rng=np.random.default_rng(mc_seed),
-        outputs=outputs,
-        progress=_stage(progress, STAGES[0]),
-        nominal=scenario.nominal,
-        chunk_size=options.chunk_size,
-    )
-    summary = summarize(samples, outputs=outputs, confidence_level=options.confidence_level)
-    unranked = unrankable_outputs(samples, summary, outputs, scenario.model)
-    ranked = [name for name in outputs if name not in unranked]
-    if not ranked:
-        listed = "; ".join(f"{name}: {why}" for name, why in unranked.items())
-        raise ScenarioError(
-            f"no output varies across the runs, so there is nothing to rank ({listed}); "
-            "check the nominal values ('trapbudget predict' says what the model gives there)",
-            path=scenario.source,
-            key="inputs",
+    with running_on(executor, workers):
+        options: RunOptions = scenario.settings.resolve(n_samples=n_samples, rng=rng)
+        outputs = list(scenario.outputs)
+        # Child streams by index: the first two are those of earlier versions.
+        mc_seed, rank_seed, draw_seed = np.random.SeedSequence(options.seed).spawn(3)
+        linear = linear_propagation(
+            scenario.model,
+            scenario.inputs,
+            nominal=scenario.nominal,
+            correlation=scenario.correlation,
+            outputs=outputs,
         )
-    budget = rank(
-        scenario.model,
-        scenario.inputs,
-        n_samples=options.n_samples,
-        outputs=ranked,
-        second_order=scenario.settings.second_order if second_order is None else second_order,
-        correlation=scenario.correlation,
-        nominal=scenario.nominal,
-        rng=np.random.default_rng(rank_seed),
-        confidence_level=options.confidence_level,
-        n_bootstrap=options.n_bootstrap,
-        chunk_size=options.chunk_size,
-        groups=scenario.groups or None,
-        convergence=convergence,
-        max_samples=max_samples,
-        progress=_stage(progress, STAGES[1]),
-    )
-    budget.attrs["unranked_outputs"] = list(unranked)
-    budget.attrs["unranked_reasons"] = list(unranked.values())
-    datasets: dict[str, xr.Dataset] = {
-        "samples": samples,
-        "summary": summary,
-        "linear": linear,
-        "linear_check": compare_linear_monte_carlo(
-            linear, summary, significant_digits=scenario.settings.significant_digits
-        ),
-        "budget": budget,
-    }
-    if scenario.requirements:
-        # Binomial intervals need independent draws: on a QMC design the requirements are
-        # checked on as many fresh random draws as the Monte Carlo used.
-        draws = samples
-        if options.method != "random":
-            draws = propagate(
-                scenario.model,
-                scenario.inputs,
-                n_samples=int(samples.sizes["sample"]),
-                method="random",
-                correlation=scenario.correlation,
-                rng=np.random.default_rng(draw_seed),
-                outputs=outputs,
-                nominal=scenario.nominal,
-                chunk_size=options.chunk_size,
+        # The Monte Carlo is sized by its own rule (JCGM 101 clause 7.9), not by the index
+        # design's base size: batches of 10^4 (2^14 on Sobol', each batch an independent
+        # scramble) until 2 s/sqrt(h) of y, u(y) and both interval ends is below the tolerance.
+        samples = propagate_adaptive(
+            scenario.model,
+            scenario.inputs,
+            confidence_level=options.confidence_level,
+            significant_digits=scenario.settings.significant_digits,
+            max_samples=scenario.settings.max_samples,
+            method=options.method,  # type: ignore[arg-type]
+            correlation=scenario.correlation,
+            rng=np.random.default_rng(mc_seed),
+            outputs=outputs,
+            progress=_stage(progress, STAGES[0]),
+            nominal=scenario.nominal,
+            chunk_size=options.chunk_size,
+        )
+        summary = summarize(samples, outputs=outputs, confidence_level=options.confidence_level)
+        unranked = unrankable_outputs(samples, summary, outputs, scenario.model)
+        ranked = [name for name in outputs if name not in unranked]
+        if not ranked:
+            listed = "; ".join(f"{name}: {why}" for name, why in unranked.items())
+            raise ScenarioError(
+                f"no output varies across the runs, so there is nothing to rank ({listed}); "
+                "check the nominal values ('trapbudget predict' says what the model gives there)",
+                path=scenario.source,
+                key="inputs",
             )
-        datasets["requirements"] = check_requirements(draws, scenario.requirements)
-    record = describe_study(
-        scenario, seed=options.seed, n_samples=options.n_samples, datasets=datasets
-    )
-    return Study(datasets=datasets, record=record)
+        budget = rank(
+            scenario.model,
+            scenario.inputs,
+            n_samples=options.n_samples,
+            outputs=ranked,
+            second_order=scenario.settings.second_order if second_order is None else second_order,
+            correlation=scenario.correlation,
+            nominal=scenario.nominal,
+            rng=np.random.default_rng(rank_seed),
+            confidence_level=options.confidence_level,
+            n_bootstrap=options.n_bootstrap,
+            chunk_size=options.chunk_size,
+            groups=scenario.groups or None,
+            convergence=convergence,
+            max_samples=max_samples,
+            progress=_stage(progress, STAGES[1]),
+        )
+        budget.attrs["unranked_outputs"] = list(unranked)
+        budget.attrs["unranked_reasons"] = list(unranked.values())
+        datasets: dict[str, xr.Dataset] = {
+            "samples": samples,
+            "summary": summary,
+            "linear": linear,
+            "linear_check": compare_linear_monte_carlo(
+                linear, summary, significant_digits=scenario.settings.significant_digits
+            ),
+            "budget": budget,
+        }
+        if scenario.requirements:
+            # Binomial intervals need independent draws: on a QMC design the requirements are
+            # checked on as many fresh random draws as the Monte Carlo used.
+            draws = samples
+            if options.method != "random":
+                draws = propagate(
+                    scenario.model,
+                    scenario.inputs,
+                    n_samples=int(samples.sizes["sample"]),
+                    method="random",
+                    correlation=scenario.correlation,
+                    rng=np.random.default_rng(draw_seed),
+                    outputs=outputs,
+                    nominal=scenario.nominal,
+                    chunk_size=options.chunk_size,
+                )
+            datasets["requirements"] = check_requirements(draws, scenario.requirements)
+        record = describe_study(
+            scenario, seed=options.seed, n_samples=options.n_samples, datasets=datasets
+        )
+        return Study(datasets=datasets, record=record)

@@ -35,7 +35,11 @@ def coverage_interval(
     if not 0 < confidence_level < 1:
         raise ValueError(f"confidence_level must lie in (0, 1), got {confidence_level}")
     y = np.sort(np.asarray(values, dtype=float).ravel())
-    y = y[np.isfinite(y)]
+    return _interval_of_sorted(y[np.isfinite(y)], confidence_level, shortest)
+
+
+def _interval_of_sorted(y: np.ndarray, confidence_level: float, shortest: bool):
+    """:func:`coverage_interval` of finite values already sorted."""
     m = y.size
     if m == 0:
         return math.nan, math.nan
@@ -113,16 +117,25 @@ def summarize(
         )
     }
     units = []
+    streamed = samples.attrs.get("moments") or {}
     for name in names:
-        y = np.asarray(samples[name].values, dtype=float)
-        y = y[np.isfinite(y)]
-        mean = float(np.mean(y)) if y.size else math.nan
-        std = float(np.std(y, ddof=1)) if y.size > 1 else math.nan
-        low, high = coverage_interval(y, confidence_level=confidence_level)
-        slow, shigh = coverage_interval(y, confidence_level=confidence_level, shortest=True)
+        # one sorted float64 copy serves the median and both intervals
+        y = np.sort(np.asarray(samples[name].values, dtype=float))
+        y = y[: int(np.searchsorted(y, np.inf, side="right"))]  # NaN sort last, then +inf
+        y = y[int(np.searchsorted(y, -np.inf, side="right")) :]
+        if name in streamed:  # summary-only run: moments accumulated in float64
+            _, mean, std = streamed[name]
+        else:
+            mean = float(np.mean(y)) if y.size else math.nan
+            std = float(np.std(y, ddof=1)) if y.size > 1 else math.nan
+        if not 0 < confidence_level < 1:
+            raise ValueError(f"confidence_level must lie in (0, 1), got {confidence_level}")
+        low, high = _interval_of_sorted(y, confidence_level, False)
+        slow, shigh = _interval_of_sorted(y, confidence_level, True)
         columns["mean"].append(mean)
         columns["std"].append(std)
-        columns["median"].append(float(np.median(y)) if y.size else math.nan)
+        median = 0.5 * (y[(y.size - 1) // 2] + y[y.size // 2]) if y.size else math.nan
+        columns["median"].append(float(median))
         columns["interval_low"].append(low)
         columns["interval_high"].append(high)
         columns["shortest_low"].append(slow)

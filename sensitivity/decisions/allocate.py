@@ -25,6 +25,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
+from typing import Any
 
 import numpy as np
 
@@ -43,6 +44,7 @@ from trapbudget.sensitivity.decisions.search import (
     search_tiers,
 )
 from trapbudget.sensitivity.errors import ScenarioError
+from trapbudget.sensitivity.executors import Workers, running_on
 from trapbudget.sensitivity.scenario.core import Scenario
 
 __all__ = ["allocate"]
@@ -191,11 +193,15 @@ def allocate(
     max_loosen: float = 4.0,
     convergence_tolerance: float = 0.02,
     progress: Callable[[int, int], None] | None = None,
+    executor: Any = None,
+    workers: Workers = None,
 ) -> Allocation:
     """Find the tolerances that meet every requirement at least cost.
 
     Inputs with a cost model (``[costs.<input>]``) are free to change; the
-    other uncertain inputs are held at their present tolerance.
+    other uncertain inputs are held at their present tolerance. A scenario with
+    no cost table at all is priced by :func:`with_default_costs` (every input
+    ``t_present / t``), and the result says so (``attrs["default_costs"]``).
 
     Parameters
     ----------
@@ -228,6 +234,8 @@ def allocate(
         would move by more than this fraction.
     progress : callable, optional
         ``progress(done, total)`` for each verification.
+    executor, workers : optional
+        Where the model runs, as for :func:`~trapbudget.sensitivity.propagate`.
 
     Returns
     -------
@@ -249,169 +257,181 @@ def allocate(
     ``limit / spread``; every round reuses the same unit design (common
     random numbers), and the cheapest allocation that passes is kept.
     """
-    from trapbudget.sensitivity.decisions.compare import common_random_samples
-    from trapbudget.sensitivity.sampling import unit_design
+    with running_on(executor, workers):
+        from trapbudget.sensitivity.decisions.compare import common_random_samples
+        from trapbudget.sensitivity.sampling import unit_design
 
-    requirements = tuple(scenario.requirements)
-    source = getattr(scenario, "source", None)
-    if not requirements:
-        raise ScenarioError(
-            "no requirements to allocate against; add a [[requirements]] table",
-            path=source,
-            key="requirements",
-        )
-    default_costs = not scenario.costs
-    if default_costs:
-        scenario = with_default_costs(scenario)
-    labels = [_label_of(req, i) for i, req in enumerate(requirements)]
-    setup = _linear_setup(scenario, requirements, labels)
-    options = scenario.settings.resolve(n_samples=n_samples, method=method, rng=rng)
-    n, m, seed = options.n_samples, options.method, options.rng
-    unit = unit_design(n, len(scenario.inputs), method=m, rng=seed)  # type: ignore[arg-type]
-
-    if refine and setup.free_tiered and not setup.free_smooth:
-        tier_costs = [
-            [float(t.cost) for t in scenario.costs[k].tiers]  # type: ignore[union-attr]
-            for k in setup.free_tiered
-        ]
-        if combinations(tier_costs) <= MAX_ENUMERATION:
-            searched = _allocate_by_search(
-                scenario, setup, tier_costs, unit, n, m, seed, safety_margin, max_loosen, progress
+        requirements = tuple(scenario.requirements)
+        source = getattr(scenario, "source", None)
+        if not requirements:
+            raise ScenarioError(
+                "no requirements to allocate against; add a [[requirements]] table",
+                path=source,
+                key="requirements",
             )
-            if searched is not None:
-                return _mark_default_costs(searched, default_costs)
-            # Infeasible on the Monte Carlo and on the linear model: the linear pass
-            # below names the requirement and the input that blocks it.
+        default_costs = not scenario.costs
+        if default_costs:
+            scenario = with_default_costs(scenario)
+        labels = [_label_of(req, i) for i, req in enumerate(requirements)]
+        setup = _linear_setup(scenario, requirements, labels)
+        options = scenario.settings.resolve(n_samples=n_samples, method=method, rng=rng)
+        n, m, seed = options.n_samples, options.method, options.rng
+        unit = unit_design(n, len(scenario.inputs), method=m, rng=seed)  # type: ignore[arg-type]
 
-    bounds = setup.bounds.astype(float).copy()
-    best = None
-    history = []
-    last = None
-    reason = ""
-    failing = blocking = ""
-    rounds = max(1, int(max_iterations)) if refine else 1
-    seen: dict = {}  # candidate allocation -> its Monte Carlo check (same design: reuse)
-    repeats = 0
-    for _ in range(rounds):
-        problem = _problem(scenario, setup, bounds, max_loosen)
-        solution = allocate_tiers(problem, fixed_parts=_fixed_parts(scenario, setup))
-        if not solution.feasible:
-            failing, blocking = solution.failing, solution.blocking
-            last = (problem, solution, None, None)
-            break
-        tolerances = _tolerances(scenario, setup, solution)
-        key = (
-            solution.tier_index,
-            tuple(
-                np.round(
-                    np.log(solution.smooth_tolerance) / math.log1p(convergence_tolerance / 10)
-                ).astype(int)
-            ),
-        )
-        if key in seen:
-            repeats += 1
-            if repeats >= 2:
-                break
-            candidate, samples, checks = seen[key]
-        else:
-            repeats = 0
-            candidate = scenario.with_tolerances(tolerances)
-            (samples,) = common_random_samples(
-                [candidate], n_samples=n, method=m, unit=unit, progress=progress
-            )
-            checks = _check(samples, requirements, safety_margin=safety_margin)
-            seen[key] = (candidate, samples, checks)
-        passed = all(c["met"] for c in checks)
-        history.append((solution.cost, passed))
-        last = (problem, solution, tolerances, (candidate, samples, checks))  # type: ignore[assignment]
-        if passed and (best is None or solution.cost <= best[1].cost):
-            best = last
-        # a failing requirement is aimed a little inside its limit, so the bound is not
-        # approached from the wrong side forever
-        factors = np.array(
-            [
-                min(
-                    max(
-                        c["factor"]
-                        if c["met"]
-                        else min(c["factor"], 1.0) * (1 - convergence_tolerance / 2),
-                        0.5,
-                    ),
-                    2.0,
-                )
-                for c in checks
+        if refine and setup.free_tiered and not setup.free_smooth:
+            tier_costs = [
+                [float(t.cost) for t in scenario.costs[k].tiers]  # type: ignore[union-attr]
+                for k in setup.free_tiered
             ]
-        )
-        # Keep refining while the Monte Carlo shows slack or a shortfall in any requirement
-        # (not only in those the linear pass found active: with none active, np.all([])
-        # would end the loop at once). Repeated candidates end it (seen, above).
-        if passed and np.all(np.abs(np.log(factors)) < math.log1p(convergence_tolerance)):
-            break
-        for r in range(len(checks)):
-            if not math.isfinite(bounds[r]):
-                bounds[r] = math.sqrt(max(solution.variance[r], 1e-300))
-            bounds[r] *= factors[r]
-
-    if not refine and last is not None and last[3] is not None:
-        best = last  # the linear answer as it stands; its Monte Carlo check is reported
-    chosen = best if best is not None else last
-    problem, solution, tolerances, verified = chosen  # type: ignore[assignment,misc]
-    feasible = best is not None
-    if not solution.feasible:
-        r = labels.index(failing) if failing in labels else 0
-        if setup.bounds[r] == 0.0:
-            reason = (
-                f"requirement '{failing}' fails at the nominal point "
-                f"({requirements[r].output} = {setup.means[r]:.4g}); no tolerance can meet it: "
-                "change a nominal value or the requirement"
-            )
-            blocking = "nominal"
-        else:
-            reason = (
-                f"requirement '{failing}' cannot be met by any affordable choice: "
-                f"'{blocking}' alone (at its tightest option, or held fixed) leaves too little "
-                "room; add a tighter tier for it or relax the requirement"
-            )
-    elif not feasible:
-        bad = [labels[r] for r, c in enumerate(verified[2]) if not c["met"]]  # type: ignore[index]
-        failing = bad[0] if bad else ""
-        reason = (
-            f"the linear allocation fails the Monte Carlo check of '{', '.join(bad)}' after "
-            f"{len(history)} rounds; the model curves too much here: raise max_iterations "
-            "or n_samples"
-        )
-    else:
-        reason = f"all {len(requirements)} requirement(s) met at a cost of {solution.cost:.6g}"
-        if not refine:
-            bad = [labels[r] for r, c in enumerate(verified[2]) if not c["met"]]  # type: ignore[index]
-            reason = (
-                f"linear allocation at a cost of {solution.cost:.6g} (refinement off); the "
-                + (
-                    f"Monte Carlo check fails '{', '.join(bad)}': refine it"
-                    if bad
-                    else "Monte Carlo check meets every requirement"
+            if combinations(tier_costs) <= MAX_ENUMERATION:
+                searched = _allocate_by_search(
+                    scenario,
+                    setup,
+                    tier_costs,
+                    unit,
+                    n,
+                    m,
+                    seed,
+                    safety_margin,
+                    max_loosen,
+                    progress,
                 )
+                if searched is not None:
+                    return _mark_default_costs(searched, default_costs)
+                # Infeasible on the Monte Carlo and on the linear model: the linear pass
+                # below names the requirement and the input that blocks it.
+
+        bounds = setup.bounds.astype(float).copy()
+        best = None
+        history = []
+        last = None
+        reason = ""
+        failing = blocking = ""
+        rounds = max(1, int(max_iterations)) if refine else 1
+        seen: dict = {}  # candidate allocation -> its Monte Carlo check (same design: reuse)
+        repeats = 0
+        for _ in range(rounds):
+            problem = _problem(scenario, setup, bounds, max_loosen)
+            solution = allocate_tiers(problem, fixed_parts=_fixed_parts(scenario, setup))
+            if not solution.feasible:
+                failing, blocking = solution.failing, solution.blocking
+                last = (problem, solution, None, None)
+                break
+            tolerances = _tolerances(scenario, setup, solution)
+            key = (
+                solution.tier_index,
+                tuple(
+                    np.round(
+                        np.log(solution.smooth_tolerance) / math.log1p(convergence_tolerance / 10)
+                    ).astype(int)
+                ),
             )
-    return _mark_default_costs(
-        _result(
-            scenario,
-            setup,
-            problem,
-            solution,
-            tolerances,
-            verified,
-            feasible=feasible,
-            reason=reason,
-            failing=failing,
-            blocking=blocking,
-            n_samples=n,
-            method=m,
-            seed=seed,
-            history=tuple(history),
-            max_loosen=max_loosen,
-        ),
-        default_costs,
-    )
+            if key in seen:
+                repeats += 1
+                if repeats >= 2:
+                    break
+                candidate, samples, checks = seen[key]
+            else:
+                repeats = 0
+                candidate = scenario.with_tolerances(tolerances)
+                (samples,) = common_random_samples(
+                    [candidate], n_samples=n, method=m, unit=unit, progress=progress
+                )
+                checks = _check(samples, requirements, safety_margin=safety_margin)
+                seen[key] = (candidate, samples, checks)
+            passed = all(c["met"] for c in checks)
+            history.append((solution.cost, passed))
+            last = (problem, solution, tolerances, (candidate, samples, checks))  # type: ignore[assignment]
+            if passed and (best is None or solution.cost <= best[1].cost):
+                best = last
+            # a failing requirement is aimed a little inside its limit, so the bound is not
+            # approached from the wrong side forever
+            factors = np.array(
+                [
+                    min(
+                        max(
+                            c["factor"]
+                            if c["met"]
+                            else min(c["factor"], 1.0) * (1 - convergence_tolerance / 2),
+                            0.5,
+                        ),
+                        2.0,
+                    )
+                    for c in checks
+                ]
+            )
+            # Keep refining while the Monte Carlo shows slack or a shortfall in any requirement
+            # (not only in those the linear pass found active: with none active, np.all([])
+            # would end the loop at once). Repeated candidates end it (seen, above).
+            if passed and np.all(np.abs(np.log(factors)) < math.log1p(convergence_tolerance)):
+                break
+            for r in range(len(checks)):
+                if not math.isfinite(bounds[r]):
+                    bounds[r] = math.sqrt(max(solution.variance[r], 1e-300))
+                bounds[r] *= factors[r]
+
+        if not refine and last is not None and last[3] is not None:
+            best = last  # the linear answer as it stands; its Monte Carlo check is reported
+        chosen = best if best is not None else last
+        problem, solution, tolerances, verified = chosen  # type: ignore[assignment,misc]
+        feasible = best is not None
+        if not solution.feasible:
+            r = labels.index(failing) if failing in labels else 0
+            if setup.bounds[r] == 0.0:
+                reason = (
+                    f"requirement '{failing}' fails at the nominal point "
+                    f"({requirements[r].output} = {setup.means[r]:.4g}); "
+                    "no tolerance can meet it: "
+                    "change a nominal value or the requirement"
+                )
+                blocking = "nominal"
+            else:
+                reason = (
+                    f"requirement '{failing}' cannot be met by any affordable choice: "
+                    f"'{blocking}' alone (at its tightest option, or held fixed) "
+                    "leaves too little "
+                    "room; add a tighter tier for it or relax the requirement"
+                )
+        elif not feasible:
+            bad = [labels[r] for r, c in enumerate(verified[2]) if not c["met"]]  # type: ignore[index]
+            failing = bad[0] if bad else ""
+            reason = (
+                f"the linear allocation fails the Monte Carlo check of '{', '.join(bad)}' after "
+                f"{len(history)} rounds; the model curves too much here: raise max_iterations "
+                "or n_samples"
+            )
+        else:
+            reason = f"all {len(requirements)} requirement(s) met at a cost of {solution.cost:.6g}"
+            if not refine:
+                bad = [labels[r] for r, c in enumerate(verified[2]) if not c["met"]]  # type: ignore[index]
+                reason = (
+                    f"linear allocation at a cost of {solution.cost:.6g} (refinement off); the "
+                    + (
+                        f"Monte Carlo check fails '{', '.join(bad)}': refine it"
+                        if bad
+                        else "Monte Carlo check meets every requirement"
+                    )
+                )
+        return _mark_default_costs(
+            _result(
+                scenario,
+                setup,
+                problem,
+                solution,
+                tolerances,
+                verified,
+                feasible=feasible,
+                reason=reason,
+                failing=failing,
+                blocking=blocking,
+                n_samples=n,
+                method=m,
+                seed=seed,
+                history=tuple(history),
+                max_loosen=max_loosen,
+            ),
+            default_costs,
+        )
 
 
 def _mark_default_costs(allocation: Allocation, default_costs: bool) -> Allocation:

@@ -25,6 +25,7 @@ from trapbudget.sensitivity.decisions.crn import (
     common_random_samples,
     replicated_unit,
 )
+from trapbudget.sensitivity.executors import Workers, running_on
 from trapbudget.sensitivity.scenario.core import Scenario
 from trapbudget.sensitivity.scenario.requirements import Requirement
 from trapbudget.sensitivity.scenario.settings import Upgrade
@@ -273,6 +274,11 @@ def _settings(scenario: Scenario, n_samples, method, rng):
     return options.n_samples, options.method, options.rng, options.confidence_level
 
 
+def _chunk_size(scenario: Any) -> int:
+    settings = getattr(scenario, "settings", None)
+    return int(getattr(settings, "chunk_size", 65536) or 65536)
+
+
 def _same_species(before: Any, after: Any) -> None:
     """Refuse a before/after pair of two species: that is not a change to one apparatus."""
     from trapbudget.sensitivity.errors import ScenarioError
@@ -325,6 +331,8 @@ def compare(
     repetition_rate: float | None = None,
     cost: float | None = None,
     progress: Callable[[int, int], None] | None = None,
+    executor: Any = None,
+    workers: Workers = None,
 ) -> xr.Dataset:
     """Compare two scenarios (before and after a change) with common random numbers.
 
@@ -346,6 +354,8 @@ def compare(
         Cost of the change.
     progress : callable, optional
         ``progress(done, total)``.
+    executor, workers : optional
+        Where the model runs, as for :func:`~trapbudget.sensitivity.propagate`.
 
     Returns
     -------
@@ -362,35 +372,42 @@ def compare(
     ScenarioError
         When ``before`` and ``after`` are of different species.
     """
-    _same_species(before, after)
-    n, m, r, level = _settings(before, n_samples, method, rng)
-    wanted = list(outputs) if outputs is not None else _required_outputs(before, None)
-    outs, left_out = _shared_outputs(before, after, wanted)
-    requirements = tuple(req for req in before.requirements if req.output in outs)
-    unit, blocks = replicated_unit(n, len(_uncertain_names([before, after])), method=m, rng=r)
-    samples_before, samples_after = common_random_samples(
-        [before, after], n_samples=n, method=m, unit=unit, outputs=outs, progress=progress
-    )
-    ds = compare_samples(
-        samples_before,
-        samples_after,
-        outputs=outs,
-        requirements=requirements,
-        confidence_level=level,
-        repetition_rate=repetition_rate,
-        cost=cost,
-        n_replicates=blocks,
-    )
-    ds.attrs.update(
-        title_before=str(getattr(before, "title", "")),
-        title_after=str(getattr(after, "title", "")),
-        model_before=_model_label(before),
-        model_after=_model_label(after),
-        outputs_left_out=", ".join(left_out),
-        method=m,
-        seed=r if isinstance(r, int) else "",
-    )
-    return ds
+    with running_on(executor, workers):
+        _same_species(before, after)
+        n, m, r, level = _settings(before, n_samples, method, rng)
+        wanted = list(outputs) if outputs is not None else _required_outputs(before, None)
+        outs, left_out = _shared_outputs(before, after, wanted)
+        requirements = tuple(req for req in before.requirements if req.output in outs)
+        unit, blocks = replicated_unit(n, len(_uncertain_names([before, after])), method=m, rng=r)
+        samples_before, samples_after = common_random_samples(
+            [before, after],
+            n_samples=n,
+            method=m,
+            unit=unit,
+            outputs=outs,
+            progress=progress,
+            chunk_size=_chunk_size(before),
+        )
+        ds = compare_samples(
+            samples_before,
+            samples_after,
+            outputs=outs,
+            requirements=requirements,
+            confidence_level=level,
+            repetition_rate=repetition_rate,
+            cost=cost,
+            n_replicates=blocks,
+        )
+        ds.attrs.update(
+            title_before=str(getattr(before, "title", "")),
+            title_after=str(getattr(after, "title", "")),
+            model_before=_model_label(before),
+            model_after=_model_label(after),
+            outputs_left_out=", ".join(left_out),
+            method=m,
+            seed=r if isinstance(r, int) else "",
+        )
+        return ds
 
 
 def _benefit(parts: Sequence[xr.Dataset]) -> tuple[np.ndarray, np.ndarray, str]:
@@ -430,6 +447,8 @@ def compare_upgrades(
     outputs: Sequence[str] | None = None,
     repetition_rate: float | None = None,
     progress: Callable[[int, int], None] | None = None,
+    executor: Any = None,
+    workers: Workers = None,
 ) -> xr.Dataset:
     """Compare every named upgrade of a scenario against it, on one shared design.
 
@@ -441,6 +460,8 @@ def compare_upgrades(
         Changes to judge (default the scenario's ``[[upgrades]]``).
     n_samples, rng, method, outputs, repetition_rate, progress
         As for :func:`compare`.
+    executor, workers : optional
+        Where the model runs, as for :func:`~trapbudget.sensitivity.propagate`.
 
     Returns
     -------
@@ -460,70 +481,79 @@ def compare_upgrades(
     ScenarioError
         When there is no upgrade to compare.
     """
-    from trapbudget.sensitivity.errors import ScenarioError
+    with running_on(executor, workers):
+        from trapbudget.sensitivity.errors import ScenarioError
 
-    upgrades = list(scenario.upgrades if upgrades is None else upgrades)
-    if not upgrades:
-        raise ScenarioError(
-            "no upgrades to compare; add [[upgrades]] tables (name, cost, changes)",
-            path=getattr(scenario, "source", None),
-            key="upgrades",
-        )
-    n, m, r, level = _settings(scenario, n_samples, method, rng)
-    outs = list(outputs) if outputs is not None else _required_outputs(scenario, None)
-    afters = [scenario.apply_upgrade(u) for u in upgrades]
-    unit, blocks = replicated_unit(n, len(_uncertain_names([scenario, *afters])), method=m, rng=r)
-    samples = common_random_samples(
-        [scenario, *afters], n_samples=n, method=m, unit=unit, outputs=outs, progress=progress
-    )
-    parts = []
-    for upgrade, after in zip(upgrades, samples[1:], strict=True):
-        parts.append(
-            compare_samples(
-                samples[0],
-                after,
-                outputs=outs,
-                requirements=scenario.requirements,
-                confidence_level=level,
-                repetition_rate=repetition_rate,
-                cost=float(upgrade.cost),
-                n_replicates=blocks,
+        upgrades = list(scenario.upgrades if upgrades is None else upgrades)
+        if not upgrades:
+            raise ScenarioError(
+                "no upgrades to compare; add [[upgrades]] tables (name, cost, changes)",
+                path=getattr(scenario, "source", None),
+                key="upgrades",
             )
+        n, m, r, level = _settings(scenario, n_samples, method, rng)
+        outs = list(outputs) if outputs is not None else _required_outputs(scenario, None)
+        afters = [scenario.apply_upgrade(u) for u in upgrades]
+        unit, blocks = replicated_unit(
+            n, len(_uncertain_names([scenario, *afters])), method=m, rng=r
         )
-    names = [str(u.name) for u in upgrades]
-    ds = xr.concat(
-        parts,
-        dim=xr.DataArray(names, dims="upgrade", name="upgrade"),
-        data_vars="all",
-        coords="minimal",
-        compat="override",
-        combine_attrs="drop_conflicts",
-    )
-    for key in ("requirement_output", "kind"):
-        if key in ds:
-            ds[key] = ds[key].isel(upgrade=0, drop=True)
-    costs = np.array([float(u.cost) for u in upgrades])
-    benefit, removed, metric = _benefit(parts)
-    per_cost = _per_cost(benefit, costs)
-    # rank by benefit per cost; options equal there (several reach the same probability,
-    # e.g. every run passes) are ordered by the variance they remove per cost
-    order = np.lexsort((-_per_cost(removed, costs), -per_cost))
-    rank = np.empty(len(names), dtype=int)
-    rank[order] = np.arange(1, len(names) + 1)
-    ds["cost"] = ("upgrade", costs)
-    ds["benefit"] = ("upgrade", benefit)
-    ds["benefit_per_cost"] = ("upgrade", per_cost)
-    first = str(parts[0]["output"].values[0])
-    ds["variance_removed_first"] = ("upgrade", removed)
-    ds["variance_removed_first"].attrs["long_name"] = f"fraction of Var({first}) removed"
-    ds["rank"] = ("upgrade", rank)
-    ds.attrs.pop("cost", None)
-    ds.attrs.update(
-        title=str(getattr(scenario, "title", "")),
-        currency=str(getattr(scenario, "currency", "") or ""),
-        method=m,
-        seed=r if isinstance(r, int) else "",
-        benefit_metric=metric,
-        benefit_first_output=first,
-    )
-    return ds
+        samples = common_random_samples(
+            [scenario, *afters],
+            n_samples=n,
+            method=m,
+            unit=unit,
+            outputs=outs,
+            progress=progress,
+            chunk_size=_chunk_size(scenario),
+        )
+        parts = []
+        for upgrade, after in zip(upgrades, samples[1:], strict=True):
+            parts.append(
+                compare_samples(
+                    samples[0],
+                    after,
+                    outputs=outs,
+                    requirements=scenario.requirements,
+                    confidence_level=level,
+                    repetition_rate=repetition_rate,
+                    cost=float(upgrade.cost),
+                    n_replicates=blocks,
+                )
+            )
+        names = [str(u.name) for u in upgrades]
+        ds = xr.concat(
+            parts,
+            dim=xr.DataArray(names, dims="upgrade", name="upgrade"),
+            data_vars="all",
+            coords="minimal",
+            compat="override",
+            combine_attrs="drop_conflicts",
+        )
+        for key in ("requirement_output", "kind"):
+            if key in ds:
+                ds[key] = ds[key].isel(upgrade=0, drop=True)
+        costs = np.array([float(u.cost) for u in upgrades])
+        benefit, removed, metric = _benefit(parts)
+        per_cost = _per_cost(benefit, costs)
+        # rank by benefit per cost; options equal there (several reach the same probability,
+        # e.g. every run passes) are ordered by the variance they remove per cost
+        order = np.lexsort((-_per_cost(removed, costs), -per_cost))
+        rank = np.empty(len(names), dtype=int)
+        rank[order] = np.arange(1, len(names) + 1)
+        ds["cost"] = ("upgrade", costs)
+        ds["benefit"] = ("upgrade", benefit)
+        ds["benefit_per_cost"] = ("upgrade", per_cost)
+        first = str(parts[0]["output"].values[0])
+        ds["variance_removed_first"] = ("upgrade", removed)
+        ds["variance_removed_first"].attrs["long_name"] = f"fraction of Var({first}) removed"
+        ds["rank"] = ("upgrade", rank)
+        ds.attrs.pop("cost", None)
+        ds.attrs.update(
+            title=str(getattr(scenario, "title", "")),
+            currency=str(getattr(scenario, "currency", "") or ""),
+            method=m,
+            seed=r if isinstance(r, int) else "",
+            benefit_metric=metric,
+            benefit_first_output=first,
+        )
+        return ds

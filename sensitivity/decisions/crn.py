@@ -114,7 +114,13 @@ def common_random_samples(
             if progress is not None:
                 progress(k * unit.shape[0] + done, total)
 
-        result = evaluate_in_chunks(scenario.model, mapping, chunk_size=chunk_size, progress=step)
+        result = evaluate_in_chunks(
+            scenario.model,
+            mapping,
+            chunk_size=chunk_size,
+            progress=step,
+            outputs=_required_outputs(scenario, outputs),
+        )
         results.append(_samples_dataset(scenario, mapping, result, outputs, method=method))
     return results
 

@@ -21,7 +21,7 @@ from trapbudget.sensitivity.indices.givendata import first_order_given_data
 from trapbudget.sensitivity.indices.replicates import replicate_interval, split_replicates
 from trapbudget.sensitivity.indices.sobol import SobolResult, check_power_of_two, sobol_indices
 from trapbudget.sensitivity.protocol import evaluate_in_chunks, select_outputs, validity_counts
-from trapbudget.sensitivity.sampling import split_inputs, transform
+from trapbudget.sensitivity.sampling import UnitCubeModel, split_inputs
 
 __all__ = ["DUMMY", "METHOD_NAMES", "BudgetConvergenceWarning", "IndexMethod", "analyze_budget"]
 
@@ -119,14 +119,24 @@ class _Runner:
         self.n_evaluations = 0
 
     def __call__(self, unit_rows: np.ndarray) -> np.ndarray:
-        """Evaluate unit-cube rows (n, d) through the inverse CDFs; (n, m) outputs."""
-        return self.evaluate_physical(transform(unit_rows, self.distributions))
+        """Evaluate unit-cube rows (n, d) through the inverse CDFs; (n, m) outputs.
+
+        The inverse CDFs run with the model, chunk by chunk (in the workers, if any).
+        """
+        model = UnitCubeModel(
+            self.model, dict(zip(self.names, self.distributions, strict=True)), fixed=self.fixed
+        )
+        columns = {name: unit_rows[:, j] for j, name in enumerate(self.names)}
+        return self._run(model, columns, unit_rows.shape[0])
 
     def evaluate_physical(self, phys: np.ndarray) -> np.ndarray:
         """Evaluate input rows (n, d) in SI; (n, m) outputs."""
         n = phys.shape[0]
         columns = {name: phys[:, j] for j, name in enumerate(self.names)}
         columns.update({name: np.full(n, value) for name, value in self.fixed.items()})
+        return self._run(self.model, columns, n)
+
+    def _run(self, model: Any, columns: dict[str, np.ndarray], n: int) -> np.ndarray:
         done_before = self.n_evaluations
         report = None
         if self.progress is not None:
@@ -135,7 +145,7 @@ class _Runner:
                 self.progress(done_before + done, done_before + total)
 
         result = evaluate_in_chunks(
-            self.model, columns, chunk_size=self.chunk_size, progress=report
+            model, columns, chunk_size=self.chunk_size, progress=report, outputs=self.requested
         )
         result = {k: np.asarray(v) for k, v in result.items()}
         if self.outputs is None:

@@ -11,6 +11,7 @@ import numpy as np
 import xarray as xr
 
 from trapbudget.sensitivity.errors import ScenarioError
+from trapbudget.sensitivity.executors import Workers, running_on
 
 __all__ = ["morris"]
 
@@ -48,6 +49,8 @@ def morris(
     rng: int | np.random.Generator | None = None,
     chunk_size: int = 65536,
     progress: Callable[[int, int], None] | None = None,
+    executor: Any = None,
+    workers: Workers = None,
 ) -> xr.Dataset:
     """Morris elementary-effects screening (SALib's trajectory design and statistics).
 
@@ -70,6 +73,8 @@ def morris(
     rng : int or numpy.random.Generator, optional
     chunk_size : int, default 65536
     progress : callable, optional
+    executor, workers : optional
+        Where the model runs, as for :func:`~trapbudget.sensitivity.propagate`.
 
     Returns
     -------
@@ -92,83 +97,86 @@ def morris(
     M. D. Morris, Technometrics 33, 161 (1991);
     F. Campolongo, J. Cariboni, A. Saltelli, Environ. Model. Softw. 22, 1509 (2007).
     """
-    from SALib.analyze import morris as salib_analyze
-    from SALib.sample import morris as salib_sample
+    with running_on(executor, workers):
+        from SALib.analyze import morris as salib_analyze
+        from SALib.sample import morris as salib_sample
 
-    from trapbudget.sensitivity.indices.budget import _split_inputs, _units
-    from trapbudget.sensitivity.protocol import as_model, evaluate_in_chunks
+        from trapbudget.sensitivity.indices.budget import _split_inputs, _units
+        from trapbudget.sensitivity.protocol import as_model, evaluate_in_chunks
 
-    if not isinstance(n_trajectories, int | np.integer) or n_trajectories < 2:
-        raise ScenarioError(f"n_trajectories must be an integer >= 2; got {n_trajectories!r}")
-    if not isinstance(levels, int | np.integer) or levels < 2 or levels % 2:
-        raise ScenarioError(f"levels must be an even integer >= 2; got {levels!r}")
-    if not 0 < tail < 0.5:
-        raise ScenarioError(f"tail must be in (0, 0.5); got {tail!r}")
-    model = as_model(model, input_names=list(inputs))
-    generator = np.random.default_rng(rng)
-    uncertain, fixed = _split_inputs(inputs, model)
-    names = list(uncertain)
-    problem = {"num_vars": len(names), "names": names, "bounds": [[0.0, 1.0]] * len(names)}
-    unit = salib_sample.sample(problem, int(n_trajectories), num_levels=levels, seed=generator)
-    low, high = [], []
-    for dist in uncertain.values():
-        lo, hi = dist.support()
-        low.append(lo if np.isfinite(lo) else dist.ppf(tail))
-        high.append(hi if np.isfinite(hi) else dist.ppf(1 - tail))
-    low, high = np.array(low, float), np.array(high, float)  # type: ignore[assignment]
-    quantile_low = np.array([d.cdf(v) for d, v in zip(uncertain.values(), low, strict=True)])
-    quantile_high = np.array([d.cdf(v) for d, v in zip(uncertain.values(), high, strict=True)])
-    q = quantile_low + unit * (quantile_high - quantile_low)
-    phys = np.column_stack(
-        [
-            np.where(unit[:, j] <= 0, low[j], np.where(unit[:, j] >= 1, high[j], d.ppf(q[:, j])))
-            for j, d in enumerate(uncertain.values())
-        ]
-    )
-    columns = {n: phys[:, j] for j, n in enumerate(names)}
-    columns.update({n: np.full(phys.shape[0], v) for n, v in fixed.items()})
-    result = evaluate_in_chunks(model, columns, chunk_size=chunk_size, progress=progress)
-    if outputs is None:
-        outputs = [
-            k
-            for k, v in result.items()
-            if k != "validity" and np.issubdtype(np.asarray(v).dtype, np.floating)
-        ]
-    outputs = list(outputs)
-    keys = ("mu", "mu_star", "sigma", "mu_star_conf")
-    table = {k: np.empty((len(outputs), len(names))) for k in keys}
-    for k, name in enumerate(outputs):
-        y = np.asarray(result[name], dtype=float)
-        si = salib_analyze.analyze(
-            problem,
-            unit,
-            y,
-            num_resamples=n_bootstrap,
-            conf_level=confidence_level,
-            num_levels=levels,
-            seed=generator,
+        if not isinstance(n_trajectories, int | np.integer) or n_trajectories < 2:
+            raise ScenarioError(f"n_trajectories must be an integer >= 2; got {n_trajectories!r}")
+        if not isinstance(levels, int | np.integer) or levels < 2 or levels % 2:
+            raise ScenarioError(f"levels must be an even integer >= 2; got {levels!r}")
+        if not 0 < tail < 0.5:
+            raise ScenarioError(f"tail must be in (0, 0.5); got {tail!r}")
+        model = as_model(model, input_names=list(inputs))
+        generator = np.random.default_rng(rng)
+        uncertain, fixed = _split_inputs(inputs, model)
+        names = list(uncertain)
+        problem = {"num_vars": len(names), "names": names, "bounds": [[0.0, 1.0]] * len(names)}
+        unit = salib_sample.sample(problem, int(n_trajectories), num_levels=levels, seed=generator)
+        low, high = [], []
+        for dist in uncertain.values():
+            lo, hi = dist.support()
+            low.append(lo if np.isfinite(lo) else dist.ppf(tail))
+            high.append(hi if np.isfinite(hi) else dist.ppf(1 - tail))
+        low, high = np.array(low, float), np.array(high, float)  # type: ignore[assignment]
+        quantile_low = np.array([d.cdf(v) for d, v in zip(uncertain.values(), low, strict=True)])
+        quantile_high = np.array([d.cdf(v) for d, v in zip(uncertain.values(), high, strict=True)])
+        q = quantile_low + unit * (quantile_high - quantile_low)
+        phys = np.column_stack(
+            [
+                np.where(
+                    unit[:, j] <= 0, low[j], np.where(unit[:, j] >= 1, high[j], d.ppf(q[:, j]))
+                )
+                for j, d in enumerate(uncertain.values())
+            ]
         )
-        for key in keys:
-            table[key][k] = np.asarray(si[key], dtype=float)
-    ds = xr.Dataset(coords={"output": outputs, "input": names})
-    for key in ("mu", "mu_star", "sigma"):
-        ds[key] = (("output", "input"), table[key])
-    ds["mu_star_low"] = ds["mu_star"] - table["mu_star_conf"]
-    ds["mu_star_high"] = ds["mu_star"] + table["mu_star_conf"]
-    delta_step = levels / (2 * (levels - 1))
-    ds["step"] = ("input", delta_step * (high - low))  # type: ignore[operator]
-    ds["step"].attrs.update(long_name="input change of one grid step (SI)")
-    ds["step"].attrs["units"] = [_units(model, names, "inputs")[n] for n in names]
-    ds["mu"].attrs["long_name"] = "mean elementary effect"
-    ds["mu_star"].attrs["long_name"] = "mean absolute elementary effect"
-    ds["sigma"].attrs["long_name"] = "standard deviation of the elementary effects"
-    for name in outputs:
-        ds.attrs[f"units_{name}"] = _units(model, [name], "outputs")[name]
-    ds.attrs.update(
-        method="morris",
-        n_trajectories=int(n_trajectories),
-        levels=int(levels),
-        n_evaluations=int(phys.shape[0]),
-        confidence_level=float(confidence_level),
-    )
-    return ds
+        columns = {n: phys[:, j] for j, n in enumerate(names)}
+        columns.update({n: np.full(phys.shape[0], v) for n, v in fixed.items()})
+        result = evaluate_in_chunks(model, columns, chunk_size=chunk_size, progress=progress)
+        if outputs is None:
+            outputs = [
+                k
+                for k, v in result.items()
+                if k != "validity" and np.issubdtype(np.asarray(v).dtype, np.floating)
+            ]
+        outputs = list(outputs)
+        keys = ("mu", "mu_star", "sigma", "mu_star_conf")
+        table = {k: np.empty((len(outputs), len(names))) for k in keys}
+        for k, name in enumerate(outputs):
+            y = np.asarray(result[name], dtype=float)
+            si = salib_analyze.analyze(
+                problem,
+                unit,
+                y,
+                num_resamples=n_bootstrap,
+                conf_level=confidence_level,
+                num_levels=levels,
+                seed=generator,
+            )
+            for key in keys:
+                table[key][k] = np.asarray(si[key], dtype=float)
+        ds = xr.Dataset(coords={"output": outputs, "input": names})
+        for key in ("mu", "mu_star", "sigma"):
+            ds[key] = (("output", "input"), table[key])
+        ds["mu_star_low"] = ds["mu_star"] - table["mu_star_conf"]
+        ds["mu_star_high"] = ds["mu_star"] + table["mu_star_conf"]
+        delta_step = levels / (2 * (levels - 1))
+        ds["step"] = ("input", delta_step * (high - low))  # type: ignore[operator]
+        ds["step"].attrs.update(long_name="input change of one grid step (SI)")
+        ds["step"].attrs["units"] = [_units(model, names, "inputs")[n] for n in names]
+        ds["mu"].attrs["long_name"] = "mean elementary effect"
+        ds["mu_star"].attrs["long_name"] = "mean absolute elementary effect"
+        ds["sigma"].attrs["long_name"] = "standard deviation of the elementary effects"
+        for name in outputs:
+            ds.attrs[f"units_{name}"] = _units(model, [name], "outputs")[name]
+        ds.attrs.update(
+            method="morris",
+            n_trajectories=int(n_trajectories),
+            levels=int(levels),
+            n_evaluations=int(phys.shape[0]),
+            confidence_level=float(confidence_level),
+        )
+        return ds

@@ -10,6 +10,7 @@ import numpy as np
 
 from trapbudget.sensitivity.errors import DataError
 from trapbudget.sensitivity.lab.driftlog import MAX_CHANNELS
+from trapbudget.sensitivity.protocol import evaluate_in_chunks
 
 __all__ = ["shapley_attribution"]
 
@@ -74,8 +75,12 @@ def shapley_attribution(
     for i, name in enumerate(channels):
         day = np.asarray(points[name], dtype=float)[:, np.newaxis]
         values[name] = np.where(masks[np.newaxis, :, i], day, float(reference[name]))
-    out = np.asarray(model.evaluate(values)[output], dtype=float)
-    out = np.broadcast_to(out, (n, 2**k))
+    # Every coalition of every point in one flat run through the one evaluation path.
+    flat = {name: np.ascontiguousarray(v).ravel() for name, v in values.items()}
+    out = np.asarray(
+        evaluate_in_chunks(model, flat, n_samples=max(n * 2**k, 1))[output], dtype=float
+    )
+    out = np.broadcast_to(out.reshape(-1), (n * 2**k,)).reshape(n, 2**k)
     size = masks.sum(axis=1)
     weight = np.array(
         [math.factorial(s) * math.factorial(k - s - 1) / math.factorial(k) for s in range(k)]

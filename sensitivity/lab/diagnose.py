@@ -46,6 +46,7 @@ import xarray as xr
 from scipy import stats
 
 from trapbudget.sensitivity.errors import DataError, ScenarioError
+from trapbudget.sensitivity.executors import Workers, running_on
 from trapbudget.sensitivity.lab.attribution import shapley_attribution
 from trapbudget.sensitivity.lab.datafiles import convert
 from trapbudget.sensitivity.lab.driftlog import (
@@ -243,6 +244,8 @@ def diagnose(
     mapping: Mapping[str, Any] | str | os.PathLike[str] | None = None,
     unexplained_noise: float = 0.0,
     control: Control = "per-day",
+    executor: Any = None,
+    workers: Workers = None,
 ) -> Diagnosis:
     """Attribute day-to-day changes of the atom number to the monitored channels.
 
@@ -271,6 +274,8 @@ def diagnose(
         Benjamini-Hochberg (expected share of false alarms among the flagged
         days at most ``false_alarm_rate``). All three are in the result
         (``flagged_per_day``, ``flagged_holm``, ``flagged_fdr``).
+    executor, workers : optional
+        Where the model runs, as for :func:`~trapbudget.sensitivity.propagate`.
 
     Returns
     -------
@@ -308,204 +313,205 @@ def diagnose(
     Stat. 6, 65 (1979); Y. Benjamini, Y. Hochberg, J. R. Stat. Soc. B 57, 289
     (1995); JCGM 100:2008, G.4 (effective degrees of freedom).
     """
-    if not 0 < false_alarm_rate < 1:
-        raise DataError(f"false_alarm_rate {false_alarm_rate!r} must lie in (0, 1)")
-    if control not in CONTROLS:
-        raise DataError(f"control {control!r} is not known; use one of {', '.join(CONTROLS)}")
-    table = log if isinstance(log, LogTable) else read_log(log)
-    model = scenario.model
-    where = str(getattr(scenario, "source", None) or "scenario")
-    config = _mapping_from(scenario, mapping)
-    output = config.get("output", "atom_number")
-    if output not in model.outputs:
-        raise ScenarioError(
-            f"output {output!r} is not a model output", path=where, key="diagnosis.output"
-        )
-    measured_name = config.get("measured", output)
-    if measured_name not in table.columns:
-        raise DataError(
-            f"the log has no measured column {measured_name!r}; add '{measured_name} [1]' "
-            "or set [diagnosis] measured",
-            path=table.where,
-        )
-    maps, ignored = _channel_maps(table, model, config, measured_name, where)
-    if not maps:
-        raise DataError(
-            "no log column maps to a model input; name columns after inputs or add "
-            "[diagnosis.columns]",
-            path=table.where,
-        )
-    nominal = dict(getattr(scenario, "nominal", {}) or {})
-    inputs = {m.column: _input_values(table, m, model, nominal) for m in maps}
-    measured = convert(
-        table.columns[measured_name],
-        table.written_units[measured_name],
-        target=model.outputs[output].unit,
-        where=f"{table.where}: {measured_name}",
-    )
-    u_name = f"{measured_name}_uncertainty"
-    given_u = (
-        convert(
-            table.columns[u_name],
-            table.written_units[u_name],
-            target=model.outputs[output].unit,
-            where=f"{table.where}: {u_name}",
-        )
-        if u_name in table.columns
-        else None
-    )
-    needed = [*inputs.values(), measured] + ([given_u] if given_u is not None else [])
-    keep = np.all(np.isfinite(np.column_stack(needed)), axis=1)
-    skipped = int(np.count_nonzero(~keep))
-    if not keep.any():
-        columns = [*inputs, measured_name] + ([u_name] if given_u is not None else [])
-        values = [*inputs.values(), measured] + ([given_u] if given_u is not None else [])
-        empty = [c for c, v in zip(columns, values, strict=True) if not np.isfinite(v).any()]
-        named = ", ".join(repr(c) for c in (empty or columns))
-        raise DataError(
-            f"every log row misses a value in {named}; fill the column in or unmap it",
-            path=table.where,
-        )
-    stamps = table.timestamps[keep]
-    measured = measured[keep]
-    given_u = given_u[keep] if given_u is not None else None
-    inputs = {c: v[keep] for c, v in inputs.items()}
-    input_of = {m.column: m.input for m in maps}
-    base = {
-        name: float(nominal.get(name, spec.default))
-        for name, spec in model.inputs.items()
-        if name not in input_of.values()
-    }
-
-    day_of = stamps.astype("datetime64[D]")
-    days, day_index, counts = np.unique(day_of, return_inverse=True, return_counts=True)
-    ref = _reference_mask(days, reference, where)
-    ref_rows = ref[day_index]
-
-    def day_mean(x: np.ndarray) -> np.ndarray:
-        return np.bincount(day_index, weights=x, minlength=days.size) / counts
-
-    def change(x: np.ndarray) -> np.ndarray:
-        """Day mean minus reference-period mean of a per-entry quantity (last axis: entries)."""
-        return day_mean(x) - float(np.mean(x[ref_rows]))
-
-    channel_means = np.column_stack([day_mean(inputs[c]) for c in inputs])
-    ref_point = {input_of[c]: float(np.mean(inputs[c][ref_rows])) for c in inputs}
-    entry_points = {input_of[c]: inputs[c] for c in inputs}
-    # The measurement of a day is the mean over its entries, so the prediction is the mean
-    # of the per-entry predictions (not the model at the day's mean settings, which differs
-    # by the curvature times the within-day jitter). Each entry's change from one common
-    # point is attributed exactly; day and reference means of those shares sum to the
-    # predicted change.
-    entry_shares, entry_change, at_reference = shapley_attribution(
-        model, reference=ref_point, points=entry_points, base=base, output=output
-    )
-    predicted = np.asarray(entry_change + float(at_reference), dtype=float)
-    attribution = np.column_stack([change(entry_shares[:, j]) for j in range(len(inputs))])
-    predicted_change = change(predicted)
-    measured_day = day_mean(measured)
-    measured_change = measured_day - float(np.mean(measured[ref_rows]))
-    remainder = measured_change - predicted_change
-
-    # (i) measurement noise of the day means
-    dof_noise = math.inf
-    if given_u is not None:
-        var_day = np.bincount(day_index, weights=given_u**2, minlength=days.size) / counts**2
-        var_ref = float(np.sum(given_u[ref_rows] ** 2)) / ref_rows.sum() ** 2
-        noise_note = "the given measurement uncertainties"
-    else:
-        resid = measured - predicted
-        mean_resid = day_mean(resid)
-        ss = np.bincount(
-            day_index, weights=(resid - mean_resid[day_index]) ** 2, minlength=days.size
-        )
-        dof = counts - 1
-        if dof.sum() == 0:
+    with running_on(executor, workers):
+        if not 0 < false_alarm_rate < 1:
+            raise DataError(f"false_alarm_rate {false_alarm_rate!r} must lie in (0, 1)")
+        if control not in CONTROLS:
+            raise DataError(f"control {control!r} is not known; use one of {', '.join(CONTROLS)}")
+        table = log if isinstance(log, LogTable) else read_log(log)
+        model = scenario.model
+        where = str(getattr(scenario, "source", None) or "scenario")
+        config = _mapping_from(scenario, mapping)
+        output = config.get("output", "atom_number")
+        if output not in model.outputs:
+            raise ScenarioError(
+                f"output {output!r} is not a model output", path=where, key="diagnosis.output"
+            )
+        measured_name = config.get("measured", output)
+        if measured_name not in table.columns:
             raise DataError(
-                "one entry per day and no uncertainty column: the measurement noise cannot be "
-                f"estimated; add '{u_name}' or more entries per day",
+                f"the log has no measured column {measured_name!r}; add '{measured_name} [1]' "
+                "or set [diagnosis] measured",
                 path=table.where,
             )
-        dof_noise = float(dof.sum())
-        pooled = float(ss.sum() / dof_noise)
-        var_day = pooled / counts
-        var_ref = pooled / ref_rows.sum()
-        noise_note = (
-            f"the pooled within-day scatter of measured - predicted ({dof_noise:.0f} "
-            "degrees of freedom, Student t)"
+        maps, ignored = _channel_maps(table, model, config, measured_name, where)
+        if not maps:
+            raise DataError(
+                "no log column maps to a model input; name columns after inputs or add "
+                "[diagnosis.columns]",
+                path=table.where,
+            )
+        nominal = dict(getattr(scenario, "nominal", {}) or {})
+        inputs = {m.column: _input_values(table, m, model, nominal) for m in maps}
+        measured = convert(
+            table.columns[measured_name],
+            table.written_units[measured_name],
+            target=model.outputs[output].unit,
+            where=f"{table.where}: {measured_name}",
         )
-    var_meas = var_day + var_ref
-    # (ii) calibration uncertainty of the predicted change
-    var_cal = _calibration_variance(scenario, model, base, entry_points, change, output)
-    # (iii) stated unexplained day-to-day scatter
-    level = float(at_reference)
-    var_extra = (unexplained_noise * level) ** 2 * (1.0 + 1.0 / max(int(ref.sum()), 1))
-    var_total = var_meas + var_cal + var_extra
-    sigma = np.sqrt(var_total)
-    t_stat, dof_day, p_value = remainder_test(remainder, var_meas, var_total, dof_noise)
-    p_value = np.where(ref, 1.0, p_value)
-    # z on the normal scale with the same p-value: |z| > z_(1 - alpha/2) exactly when p < alpha.
-    z = np.sign(t_stat) * stats.norm.isf(np.clip(p_value / 2, 1e-300, 0.5))
-    threshold = float(stats.norm.isf(false_alarm_rate / 2))
-    flagged_day = (p_value < false_alarm_rate) & ~ref
-    flagged_holm = holm(p_value, ~ref, false_alarm_rate)
-    flagged_fdr = benjamini_hochberg(p_value, ~ref, false_alarm_rate)
-    flagged = {"per-day": flagged_day, "holm": flagged_holm, "fdr": flagged_fdr}[control]
+        u_name = f"{measured_name}_uncertainty"
+        given_u = (
+            convert(
+                table.columns[u_name],
+                table.written_units[u_name],
+                target=model.outputs[output].unit,
+                where=f"{table.where}: {u_name}",
+            )
+            if u_name in table.columns
+            else None
+        )
+        needed = [*inputs.values(), measured] + ([given_u] if given_u is not None else [])
+        keep = np.all(np.isfinite(np.column_stack(needed)), axis=1)
+        skipped = int(np.count_nonzero(~keep))
+        if not keep.any():
+            columns = [*inputs, measured_name] + ([u_name] if given_u is not None else [])
+            values = [*inputs.values(), measured] + ([given_u] if given_u is not None else [])
+            empty = [c for c, v in zip(columns, values, strict=True) if not np.isfinite(v).any()]
+            named = ", ".join(repr(c) for c in (empty or columns))
+            raise DataError(
+                f"every log row misses a value in {named}; fill the column in or unmap it",
+                path=table.where,
+            )
+        stamps = table.timestamps[keep]
+        measured = measured[keep]
+        given_u = given_u[keep] if given_u is not None else None
+        inputs = {c: v[keep] for c, v in inputs.items()}
+        input_of = {m.column: m.input for m in maps}
+        base = {
+            name: float(nominal.get(name, spec.default))
+            for name, spec in model.inputs.items()
+            if name not in input_of.values()
+        }
 
-    square = np.sum(attribution**2, axis=0)
-    share = square / square.sum() if square.sum() > 0 else np.zeros(len(inputs))
+        day_of = stamps.astype("datetime64[D]")
+        days, day_index, counts = np.unique(day_of, return_inverse=True, return_counts=True)
+        ref = _reference_mask(days, reference, where)
+        ref_rows = ref[day_index]
 
-    channels = tuple(inputs)
-    messages = _messages(
-        days,
-        ref,
-        flagged,
-        measured_change,
-        predicted_change,
-        remainder,
-        z,
-        attribution,
-        channels,
-        level,
-        false_alarm_rate,
-        noise_note + f"; verdicts: {_CONTROL_NOTE[control]}",
-        skipped,
-        ignored,
-        share,
-    )
-    return Diagnosis(
-        channels=channels,
-        inputs=tuple(input_of[c] for c in channels),
-        output=output,
-        units=model.outputs[output].unit,
-        timestamps=stamps,
-        measured=measured,
-        predicted=predicted,
-        days=days,
-        entries_per_day=counts,
-        reference_days=ref,
-        reference_level=level,
-        measured_change=measured_change,
-        predicted_change=predicted_change,
-        attribution=attribution,
-        remainder=remainder,
-        remainder_sigma=sigma,
-        z=z,
-        flagged=flagged,
-        variance_share=share,
-        false_alarm_rate=false_alarm_rate,
-        threshold=threshold,
-        skipped_rows=skipped,
-        ignored_columns=tuple(ignored),
-        messages=tuple(messages),
-        channel_means=channel_means,
-        p_value=p_value,
-        degrees_of_freedom=np.where(ref, math.nan, dof_day),
-        flagged_per_day=flagged_day,
-        flagged_holm=flagged_holm,
-        flagged_fdr=flagged_fdr,
-        control=control,
-    )
+        def day_mean(x: np.ndarray) -> np.ndarray:
+            return np.bincount(day_index, weights=x, minlength=days.size) / counts
+
+        def change(x: np.ndarray) -> np.ndarray:
+            """Day mean minus reference-period mean of a per-entry quantity (last axis entries)."""
+            return day_mean(x) - float(np.mean(x[ref_rows]))
+
+        channel_means = np.column_stack([day_mean(inputs[c]) for c in inputs])
+        ref_point = {input_of[c]: float(np.mean(inputs[c][ref_rows])) for c in inputs}
+        entry_points = {input_of[c]: inputs[c] for c in inputs}
+        # The measurement of a day is the mean over its entries, so the prediction is the mean
+        # of the per-entry predictions (not the model at the day's mean settings, which differs
+        # by the curvature times the within-day jitter). Each entry's change from one common
+        # point is attributed exactly; day and reference means of those shares sum to the
+        # predicted change.
+        entry_shares, entry_change, at_reference = shapley_attribution(
+            model, reference=ref_point, points=entry_points, base=base, output=output
+        )
+        predicted = np.asarray(entry_change + float(at_reference), dtype=float)
+        attribution = np.column_stack([change(entry_shares[:, j]) for j in range(len(inputs))])
+        predicted_change = change(predicted)
+        measured_day = day_mean(measured)
+        measured_change = measured_day - float(np.mean(measured[ref_rows]))
+        remainder = measured_change - predicted_change
+
+        # (i) measurement noise of the day means
+        dof_noise = math.inf
+        if given_u is not None:
+            var_day = np.bincount(day_index, weights=given_u**2, minlength=days.size) / counts**2
+            var_ref = float(np.sum(given_u[ref_rows] ** 2)) / ref_rows.sum() ** 2
+            noise_note = "the given measurement uncertainties"
+        else:
+            resid = measured - predicted
+            mean_resid = day_mean(resid)
+            ss = np.bincount(
+                day_index, weights=(resid - mean_resid[day_index]) ** 2, minlength=days.size
+            )
+            dof = counts - 1
+            if dof.sum() == 0:
+                raise DataError(
+                    "one entry per day and no uncertainty column: the measurement noise cannot be "
+                    f"estimated; add '{u_name}' or more entries per day",
+                    path=table.where,
+                )
+            dof_noise = float(dof.sum())
+            pooled = float(ss.sum() / dof_noise)
+            var_day = pooled / counts
+            var_ref = pooled / ref_rows.sum()
+            noise_note = (
+                f"the pooled within-day scatter of measured - predicted ({dof_noise:.0f} "
+                "degrees of freedom, Student t)"
+            )
+        var_meas = var_day + var_ref
+        # (ii) calibration uncertainty of the predicted change
+        var_cal = _calibration_variance(scenario, model, base, entry_points, change, output)
+        # (iii) stated unexplained day-to-day scatter
+        level = float(at_reference)
+        var_extra = (unexplained_noise * level) ** 2 * (1.0 + 1.0 / max(int(ref.sum()), 1))
+        var_total = var_meas + var_cal + var_extra
+        sigma = np.sqrt(var_total)
+        t_stat, dof_day, p_value = remainder_test(remainder, var_meas, var_total, dof_noise)
+        p_value = np.where(ref, 1.0, p_value)
+        # z on the normal scale with the same p-value: |z| > z_(1 - alpha/2) exactly if p < alpha.
+        z = np.sign(t_stat) * stats.norm.isf(np.clip(p_value / 2, 1e-300, 0.5))
+        threshold = float(stats.norm.isf(false_alarm_rate / 2))
+        flagged_day = (p_value < false_alarm_rate) & ~ref
+        flagged_holm = holm(p_value, ~ref, false_alarm_rate)
+        flagged_fdr = benjamini_hochberg(p_value, ~ref, false_alarm_rate)
+        flagged = {"per-day": flagged_day, "holm": flagged_holm, "fdr": flagged_fdr}[control]
+
+        square = np.sum(attribution**2, axis=0)
+        share = square / square.sum() if square.sum() > 0 else np.zeros(len(inputs))
+
+        channels = tuple(inputs)
+        messages = _messages(
+            days,
+            ref,
+            flagged,
+            measured_change,
+            predicted_change,
+            remainder,
+            z,
+            attribution,
+            channels,
+            level,
+            false_alarm_rate,
+            noise_note + f"; verdicts: {_CONTROL_NOTE[control]}",
+            skipped,
+            ignored,
+            share,
+        )
+        return Diagnosis(
+            channels=channels,
+            inputs=tuple(input_of[c] for c in channels),
+            output=output,
+            units=model.outputs[output].unit,
+            timestamps=stamps,
+            measured=measured,
+            predicted=predicted,
+            days=days,
+            entries_per_day=counts,
+            reference_days=ref,
+            reference_level=level,
+            measured_change=measured_change,
+            predicted_change=predicted_change,
+            attribution=attribution,
+            remainder=remainder,
+            remainder_sigma=sigma,
+            z=z,
+            flagged=flagged,
+            variance_share=share,
+            false_alarm_rate=false_alarm_rate,
+            threshold=threshold,
+            skipped_rows=skipped,
+            ignored_columns=tuple(ignored),
+            messages=tuple(messages),
+            channel_means=channel_means,
+            p_value=p_value,
+            degrees_of_freedom=np.where(ref, math.nan, dof_day),
+            flagged_per_day=flagged_day,
+            flagged_holm=flagged_holm,
+            flagged_fdr=flagged_fdr,
+            control=control,
+        )
 
 
 def _calibration_variance(

@@ -1,0 +1,270 @@
+"""Scale-out and bounded memory: one process, two local processes, a local dask cluster.
+
+Run by hand (not in CI), on an otherwise quiet machine::
+
+    python benchmarks/bench_scale.py speed  [--samples 2048] [--mc-samples 8388608] [--rounds 1]
+    python benchmarks/bench_scale.py memory [--samples 10000000] [--full]
+
+``speed``: two studies of the invented demo scenario harrier-rb87.toml (correlated
+inputs, its four outputs): ``rank`` at base size ``--samples`` and a summary-only Monte
+Carlo of ``--mc-samples`` samples (propagate + summarize), each run in this process
+(``workers=1``), on a local pool of two processes (``workers=2``, start-up included) and
+on a local ``dask.distributed`` cluster of two single-threaded worker processes
+(``executor=client.get_executor()``; the cluster's start-up is printed apart), side by
+side, ``--rounds`` times; the best wall time of each, and the CPU time all processes
+spent (the overhead of sending chunks, which contention on a shared machine does not
+change). A control, a pure-Python loop on one process and on two, shows how much of the
+two cores the machine gives right now (on a shared machine it is below 2, and so is
+every ratio above it). Every parallel result is checked identical to the one-process one.
+
+``memory``: peak resident memory (``ru_maxrss`` of a fresh child process) of a Monte
+Carlo study of the trap's four default outputs: ``propagate`` of ``--samples`` random
+draws (summary-only from 2^22 samples on: outputs kept as float32), ``summarize`` and
+``check_requirements``. ``--full`` also runs ``keep="all"`` (every sample in float64)
+for comparison. Target: 10^7 samples under 1 GB.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import subprocess
+import sys
+import time
+from importlib import resources
+
+SCENARIO = "harrier-rb87.toml"
+
+
+def _burn(n: int) -> int:
+    total = 0
+    for i in range(n):
+        total += i * i
+    return total
+
+
+def _control(n: int = 20_000_000) -> tuple[float, float]:
+    from concurrent.futures import ProcessPoolExecutor
+
+    start = time.perf_counter()
+    _burn(n)
+    _burn(n)
+    serial = time.perf_counter() - start
+    with ProcessPoolExecutor(2) as pool:
+        pool.submit(_burn, 1).result()
+        start = time.perf_counter()
+        list(pool.map(_burn, [n, n]))
+        parallel = time.perf_counter() - start
+    return serial, parallel
+
+
+def _scenario():
+    from trapbudget.sensitivity import load_scenario
+
+    return load_scenario(resources.files("trapbudget.examples") / SCENARIO)
+
+
+def _cpu_seconds(client=None) -> float:
+    """CPU time of this process, its reaped children and (with a client) the dask workers."""
+    import resource
+
+    own = resource.getrusage(resource.RUSAGE_SELF)
+    children = resource.getrusage(resource.RUSAGE_CHILDREN)
+    total = own.ru_utime + own.ru_stime + children.ru_utime + children.ru_stime
+    if client is not None:
+        total += sum(client.run(time.process_time).values())
+    return total
+
+
+def speed(args: argparse.Namespace) -> None:
+    from distributed import Client, LocalCluster
+
+    from trapbudget.sensitivity import propagate, rank, summarize
+
+    scenario = _scenario()
+    outputs = list(scenario.outputs)
+
+    def ranking(**where):
+        return rank(
+            scenario.model,
+            scenario.inputs,
+            n_samples=args.samples,
+            outputs=outputs,
+            correlation=scenario.correlation,
+            nominal=scenario.nominal,
+            rng=20261203,
+            **where,
+        )
+
+    def monte_carlo(**where):
+        samples = propagate(
+            scenario.model,
+            scenario.inputs,
+            n_samples=args.mc_samples,
+            outputs=outputs,
+            correlation=scenario.correlation,
+            nominal=scenario.nominal,
+            rng=20261203,
+            keep="outputs",
+            **where,
+        )
+        return summarize(samples)
+
+    ranking(workers=1)  # compile (or load) the kernels here first
+    start = time.perf_counter()
+    # dask's nanny sets MALLOC_TRIM_THRESHOLD_=65536 in its workers by default, which also
+    # turns off glibc's adaptive mmap threshold: every temporary array of more than 128 kB
+    # is then mapped and unmapped, and the trap model runs about 3.5 times slower. Workers
+    # started with the platform's malloc settings:
+    import dask
+
+    environ = dict(dask.config.get("distributed.nanny.pre-spawn-environ"))
+    environ.pop("MALLOC_TRIM_THRESHOLD_", None)
+    dask.config.set({"distributed.nanny.pre-spawn-environ": environ})
+    cluster = LocalCluster(
+        n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None
+    )
+    client = Client(cluster)
+    client.run(lambda: __import__("trapbudget.models.trap"))
+    print(
+        f"dask LocalCluster of 2 worker processes started in {time.perf_counter() - start:.1f} s"
+    )
+    ways = {
+        "1 process": ({"workers": 1}, None),
+        "2 local processes": ({"workers": 2}, None),
+        "dask, 2 workers": ({"executor": client.get_executor()}, client),
+    }
+    studies = {"rank": ranking, "Monte Carlo": monte_carlo}
+    wall: dict[tuple[str, str], float] = {}
+    cpu: dict[tuple[str, str], float] = {}
+    reference: dict[str, object] = {}
+    for round_ in range(args.rounds):
+        for label, run in studies.items():
+            for name, (where, watch) in ways.items():
+                cpu_start = _cpu_seconds(watch)
+                start = time.perf_counter()
+                result = run(**where)
+                elapsed = time.perf_counter() - start
+                used = _cpu_seconds(watch) - cpu_start
+                if elapsed < wall.get((label, name), float("inf")):
+                    wall[label, name], cpu[label, name] = elapsed, used
+                print(
+                    f"round {round_ + 1} {label:11s} {name:18s} {elapsed:7.2f} s wall "
+                    f"{used:7.2f} s CPU",
+                    flush=True,
+                )
+                if label not in reference:
+                    reference[label] = result
+                elif not result.identical(reference[label]):  # type: ignore[attr-defined]
+                    raise SystemExit(f"{label} on {name}: result differs from one process")
+    client.close()
+    cluster.close()
+    serial, parallel = _control()
+    print()
+    print(
+        f"rank: {SCENARIO}, N = {args.samples}; Monte Carlo: {args.mc_samples} samples, "
+        f"summary-only; best of {args.rounds}"
+    )
+    for label in studies:
+        one = wall[label, "1 process"]
+        for name in ways:
+            t = wall[label, name]
+            overhead = cpu[label, name] / cpu[label, "1 process"] - 1
+            print(
+                f"  {label:11s} {name:18s} {t:7.2f} s   speed-up {one / t:4.2f}x   "
+                f"CPU overhead {100 * overhead:+5.1f} %"
+            )
+    print(
+        f"control, pure Python on 2 processes: speed-up {serial / parallel:4.2f}x "
+        "(what the machine's two cores give now)"
+    )
+    print("results identical to one process: yes")
+
+
+def _memory_child(n: int, keep: str | None) -> None:
+    import resource
+
+    from trapbudget.sensitivity import check_requirements, propagate, summarize
+
+    scenario = _scenario()
+    start = time.perf_counter()
+    samples = propagate(
+        scenario.model,
+        scenario.inputs,
+        n_samples=n,
+        method="random",
+        correlation=scenario.correlation,
+        rng=7,
+        outputs=list(scenario.outputs),
+        nominal=scenario.nominal,
+        keep=keep,  # type: ignore[arg-type]
+    )
+    summary = summarize(samples)
+    if scenario.requirements:
+        check_requirements(samples, scenario.requirements)
+    elapsed = time.perf_counter() - start
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+    print(
+        json.dumps(
+            {
+                "kept": samples.attrs["kept"],
+                "peak_bytes": peak,
+                "seconds": elapsed,
+                "dataset_bytes": int(samples.nbytes),
+                "mean_atom_number": float(summary["mean"].sel(output="atom_number")),
+            }
+        )
+    )
+
+
+def memory(args: argparse.Namespace) -> None:
+    from trapbudget.sensitivity.guard import memory_needed
+
+    runs = [None, "all"] if args.full else [None]
+    for keep in runs:
+        out = subprocess.run(
+            [
+                sys.executable,
+                __file__,
+                "memory-child",
+                "--samples",
+                str(args.samples),
+                "--keep",
+                keep or "auto",
+            ],
+            check=True,
+            capture_output=True,
+            text=True,
+        ).stdout
+        got = json.loads(out.strip().splitlines()[-1])
+        print(
+            f"{args.samples:.3g} samples, keep={got['kept']}: peak RSS "
+            f"{got['peak_bytes'] / 2**30:.2f} GiB (samples Dataset "
+            f"{got['dataset_bytes'] / 2**20:.0f} MiB), {got['seconds']:.1f} s"
+        )
+    scenario = _scenario()
+    full = memory_needed("propagate", args.samples, len(scenario.inputs), len(scenario.outputs))
+    print(f"the memory guard's estimate for keep='all': {full / 2**30:.1f} GiB")
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("what", choices=["speed", "memory", "memory-child"])
+    parser.add_argument("--samples", type=float, default=None)
+    parser.add_argument("--rounds", type=int, default=1)
+    parser.add_argument("--mc-samples", type=int, default=2**23)
+    parser.add_argument("--full", action="store_true")
+    parser.add_argument("--keep", default="auto")
+    args = parser.parse_args()
+    if args.what == "speed":
+        args.samples = int(args.samples or 2048)
+        speed(args)
+    elif args.what == "memory":
+        args.samples = int(args.samples or 10_000_000)
+        memory(args)
+    else:
+        _memory_child(int(args.samples), None if args.keep == "auto" else args.keep)
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,233 @@
+"""Model evaluations on a process pool and on a dask cluster give the same bits as one process.
+
+The chunk grid is fixed by ``chunk_size`` (never by the number of workers) and designs,
+replicates and analysis stay in the calling process, so each result must be *identical*
+(``xarray.Dataset.identical``: same values bit for bit, same attrs) whichever runs the
+chunks. Small chunks make every run below span several chunks.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import multiprocessing
+from concurrent.futures import ProcessPoolExecutor
+from importlib import resources
+
+import numpy as np
+import pytest
+from distributed import Client, LocalCluster
+from scipy import stats
+
+from trapbudget.sensitivity import load_scenario, propagate, propagate_adaptive, rank
+from trapbudget.sensitivity.decisions.compare import compare
+from trapbudget.sensitivity.errors import ConvergenceWarning, UsageError
+from trapbudget.sensitivity.executors import AUTO_MIN_SAMPLES, current_executor, running_on
+
+CHUNK = 512
+OUTPUTS = ["atom_number", "loading_time", "temperature"]
+
+
+def _scenario(name: str):
+    scenario = load_scenario(resources.files("trapbudget.examples") / name)
+    settings = dataclasses.replace(scenario.settings, chunk_size=CHUNK)
+    return dataclasses.replace(scenario, settings=settings)
+
+
+@pytest.fixture(scope="module")
+def scenario():
+    return _scenario("harrier-rb87.toml")
+
+
+@pytest.fixture(scope="module")
+def pool():
+    context = multiprocessing.get_context("forkserver")
+    with ProcessPoolExecutor(max_workers=2, mp_context=context) as executor:
+        yield executor
+
+
+@pytest.fixture(scope="module")
+def cluster_executor():
+    # A local dask.distributed cluster of two workers (threads: starts in well under a second).
+    with (
+        LocalCluster(
+            n_workers=2, threads_per_worker=1, processes=False, dashboard_address=None
+        ) as cluster,
+        Client(cluster) as client,
+    ):
+        yield client.get_executor()
+
+
+def _each_way(run, pool, cluster_executor):
+    alone = run(executor=None, workers=1)
+    assert run(executor=pool, workers=None).identical(alone)
+    assert run(executor=cluster_executor, workers=None).identical(alone)
+    return alone
+
+
+def test_propagate_is_identical_on_a_pool_and_a_cluster(scenario, pool, cluster_executor):
+    def run(**where):
+        return propagate(
+            scenario.model,
+            scenario.inputs,
+            n_samples=4096,
+            rng=3,
+            outputs=OUTPUTS,
+            nominal=scenario.nominal,
+            chunk_size=CHUNK,
+            **where,
+        )
+
+    ds = _each_way(run, pool, cluster_executor)
+    assert ds.sizes["sample"] == 4096
+    # workers=2 starts (and shuts down) its own pool of two processes
+    assert run(executor=None, workers=2).identical(ds)
+
+
+def test_adaptive_monte_carlo_is_identical_on_a_pool_and_a_cluster(
+    scenario, pool, cluster_executor
+):
+    def run(**where):
+        return propagate_adaptive(
+            scenario.model,
+            scenario.inputs,
+            max_samples=30_000,  # three batches of 10^4
+            significant_digits=3,  # does not converge: every batch runs
+            rng=6,
+            outputs=OUTPUTS[:2],
+            nominal=scenario.nominal,
+            **where,
+        )
+
+    with pytest.warns(ConvergenceWarning, match="did not converge"):
+        ds = _each_way(run, pool, cluster_executor)
+    assert ds.attrs["n_batches"] == 3
+
+
+def test_rank_is_identical_on_a_pool_and_a_cluster(scenario, pool, cluster_executor):
+    def run(**where):
+        return rank(
+            scenario.model,
+            scenario.inputs,
+            n_samples=32,
+            outputs=OUTPUTS[:1],
+            nominal=scenario.nominal,
+            rng=4,
+            chunk_size=CHUNK,
+            n_replicates=4,
+            **where,
+        )
+
+    ds = _each_way(run, pool, cluster_executor)
+    assert ds.attrs["n_evaluations"] > 4 * CHUNK  # many chunks went out
+
+
+def test_compare_is_identical_on_a_pool_and_a_cluster(pool, cluster_executor):
+    before = _scenario("harrier-upgrade.toml")
+    after = before.apply_upgrade(before.upgrades[0])
+
+    def run(**where):
+        return compare(before, after, n_samples=2048, rng=5, **where)
+
+    ds = _each_way(run, pool, cluster_executor)
+    assert float(ds["variance_removed"].sel(output=before.outputs[0])) != 0.0
+
+
+def _local_function_model(values):
+    return {"y": np.asarray(values["x"]) ** 2}
+
+
+def test_a_model_that_does_not_pickle_is_refused_with_the_fix(pool):
+    scale = 2.0
+    model = lambda values: {"y": scale * np.asarray(values["x"])}  # noqa: E731
+    with pytest.raises(UsageError, match=r"cannot be sent to worker processes.*module level"):
+        propagate(model, {"x": stats.norm()}, n_samples=4 * CHUNK, chunk_size=CHUNK, executor=pool)
+    # a function at module level is sent by reference and runs
+    ds = propagate(
+        _local_function_model,
+        {"x": stats.norm()},
+        n_samples=4 * CHUNK,
+        chunk_size=CHUNK,
+        rng=1,
+        executor=pool,
+    )
+    np.testing.assert_array_equal(ds["y"].values, ds["x"].values ** 2)
+
+
+def test_workers_must_be_a_positive_count_or_auto():
+    with pytest.raises(UsageError, match=r"workers=0: give a number of processes >= 1"):
+        propagate(_local_function_model, {"x": stats.norm()}, n_samples=8, workers=0)
+
+
+def test_auto_runs_small_evaluations_here_and_large_ones_on_the_pool():
+    with running_on(workers="auto"):
+        assert current_executor(AUTO_MIN_SAMPLES - 1, 8) is None
+        large = current_executor(AUTO_MIN_SAMPLES, 8)
+        assert (large is None) == ((multiprocessing.cpu_count() or 1) < 2)
+        assert current_executor(AUTO_MIN_SAMPLES, 1) is None  # one chunk: nothing to share
+    assert current_executor(AUTO_MIN_SAMPLES, 8) is None  # outside the block: this process
+
+
+# ---------------------------------------------------------------- the command line
+
+ISHIGAMI = """
+[scenario]
+title = "Ishigami on two processes"
+model = "ishigami"
+[inputs.x1]
+nominal = "0"
+tolerance = "3"
+[inputs.x2]
+nominal = "0"
+tolerance = "3"
+[inputs.x3]
+nominal = "0"
+tolerance = "3"
+[settings]
+n_samples = 256
+seed = 12
+chunk_size = 1024
+"""
+
+
+def _cli(capsys, *argv):
+    from trapbudget.cli.main import main
+
+    code = main([str(a) for a in argv])
+    captured = capsys.readouterr()
+    return code, captured.out, captured.err
+
+
+def test_cli_workers_give_the_same_json(capsys, tmp_path):
+    path = tmp_path / "ishigami.toml"
+    path.write_text(ISHIGAMI, encoding="utf-8")
+    results = []
+    for workers in ("1", "2"):
+        code, out, err = _cli(
+            capsys, "rank", path, "--json", "--workers", workers, "--out", tmp_path / workers
+        )
+        assert code == 0, err
+        result = json.loads(out)
+        result.pop("report")
+        results.append(result)
+    assert results[0] == results[1]
+
+
+@pytest.mark.parametrize(
+    ("argv", "code", "message"),
+    [
+        (("--workers", "0"), 2, "give 1 or more processes, or 'auto'"),
+        (("--workers", "many"), 2, "not a number of processes or 'auto'"),
+        (("--scheduler", "tcp://127.0.0.1:9"), 2, "no dask scheduler answers there"),
+    ],
+)
+def test_cli_bad_workers_or_scheduler_is_one_line(
+    capsys, tmp_path, monkeypatch, argv, code, message
+):
+    monkeypatch.setattr("trapbudget.sensitivity.executors.SCHEDULER_TIMEOUT", "1s")
+    path = tmp_path / "ishigami.toml"
+    path.write_text(ISHIGAMI, encoding="utf-8")
+    got, out, err = _cli(capsys, "rank", path, "--out", tmp_path / "r", *argv)
+    assert got == code and out == ""
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and message in lines[0] and "Traceback" not in err, err
