@@ -121,7 +121,7 @@ def summarize(
     for name in names:
         # one sorted float64 copy serves the median and both intervals
         y = np.sort(np.asarray(samples[name].values, dtype=float))
-        y = y[: int(np.searchsorted(y, np.inf, side="right"))]  # NaN sort last, then +inf
+        y = y[: int(np.searchsorted(y, np.inf, side="left"))]  # +inf, then NaN, sort last
         y = y[int(np.searchsorted(y, -np.inf, side="right")) :]
         if name in streamed:  # summary-only run: moments accumulated in float64
             _, mean, std = streamed[name]
