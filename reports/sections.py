@@ -82,11 +82,15 @@ def study_section(datasets: Datasets, study: Mapping[str, Any]) -> Section:
     if study.get("n_samples"):  # a calibration or a diagnosis draws no samples
         rows += [
             ["Seed", str(study.get("seed", ""))],
-            ["Sample size", f"{study['n_samples']} (Monte Carlo n and Saltelli base N)"],
+            ["Sample size", f"{study['n_samples']} (base size N of the index design)"],
             ["Model evaluations", str(study.get("n_evaluations", ""))],
             ["Sampling method", study.get("method", "")],
             ["Confidence level", format_percent(study.get("confidence_level", 0.95), digits=0)],
         ]
+    samples = datasets.get("samples")
+    if samples is not None and "sample" in samples.dims:
+        rule = " (JCGM 101 adaptive rule)" if "numerical_tolerance" in samples.attrs else ""
+        rows.append(["Monte Carlo draws", f"{samples.sizes['sample']}{rule}"])
     rows.append(["Date", study.get("date", "")])
     blocks: list[Any] = []
     if study.get("description"):
