@@ -193,7 +193,10 @@ def report_subtitle(datasets: Mapping[str, xr.Dataset], study: Mapping[str, Any]
         parts.append(f"seed {study['seed']}")
     n_samples = study.get("n_samples")
     if isinstance(n_samples, int | float) and n_samples > 0:
-        parts.append(f"{int(n_samples)} samples")
+        # a study's n_samples is the base size of its index design, not its sample count
+        parts.append(
+            f"base N = {int(n_samples)}" if "budget" in datasets else f"{int(n_samples)} samples"
+        )
     if study.get("date"):
         parts.append(str(study["date"]))
     return ", ".join(parts)
