@@ -14,7 +14,10 @@ Run by hand (not in CI), on an otherwise quiet machine::
    field, imbalance, aperture, vapor temperature all varied) against the straight-line
    line integrals of the same physics over the real, unsymmetric geometry with a
    converged quadrature (20 x 32 directions, 5 x 8 impact offsets) and the exact
-   Maxwell-Boltzmann flux of every line: RMS and maximum relative error.
+   Maxwell-Boltzmann flux of every line: RMS and maximum relative error, and where it comes
+   from: the table against the line integrals it stands for (same symmetric quadrature and
+   steps: interpolation), that quadrature against the converged one (aligned trap), and the
+   smooth geometry corrections against the line integrals of the real geometry.
 3. The 3-D reference (curved trajectories, scipy solve_ivp, its own force law;
    ``capture_reference``) on ``--trajectories`` of those traps, against the straight-line
    kernel on the same lines (impact parameters to 1.5 trap radii: curved paths from outside
@@ -209,6 +212,43 @@ def trajectory_rate(case, lines) -> float:
     return _rate_from_speeds(case, np.where(low > 0, 0.5 * (low + high), 0.0), wts)
 
 
+def _aligned_rate(case, eta, s0, red, zeta, quadrature, n_steps) -> float:
+    m4, m6 = capture.line_average(eta, s0, red, zeta, quadrature=quadrature, n_steps=n_steps)
+    return _rate_from_moments(case, m4, m6)
+
+
+def _rate_from_moments(case, m4, m6) -> float:
+    unit = RB.linewidth / RB.wavenumber
+    vp = float(most_probable_speed(RB.mass, case["temperature"]))
+    flux = float(capture._flux_below(np.asarray(m4), np.asarray(m6), vp / unit))
+    return 0.25 * 4 * math.pi * case["waist"] ** 2 * 2 * vp / math.sqrt(math.pi) * flux
+
+
+def error_sources(cases, real: np.ndarray, lines) -> dict[str, np.ndarray]:
+    """Relative errors of each approximation of the fast capture, trap by trap.
+
+    ``real``: the converged line integrals of the real geometry (``line_rate``).
+    """
+    table_lines = capture.line_quadrature(*capture.TABLE_QUADRATURE)
+    rows = []
+    for case in cases:
+        (eta, s0, red, zeta), g = _table_args(case)
+        s_eff = s0 * math.sqrt(1.0 - g["imbalance"])
+        m4, m6, _ = capture.aligned_moments(eta, s_eff, red, zeta)
+        table = _rate_from_moments(case, m4, m6)
+        coarse = _aligned_rate(case, eta, s_eff, red, zeta, table_lines, capture.TABLE_STEPS)
+        fine = _aligned_rate(case, eta, s_eff, red, zeta, lines, capture.N_STEPS)
+        transmitted = -math.expm1(-2.0 * g["aperture"] ** 2)
+        geometry = transmitted * math.exp(-capture.CENTRE_DECAY * g["centre"] ** 2)
+        rows.append((table / coarse, coarse / fine, fine * geometry))
+    ratios = np.array(rows)
+    return {
+        "interpolation (table vs its line integrals)": ratios[:, 0] - 1,
+        "table quadrature (vs converged, aligned)": ratios[:, 1] - 1,
+        "geometry corrections (vs real geometry)": ratios[:, 2] / real - 1,
+    }
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--samples", type=int, default=300, help="traps for the line check")
@@ -253,6 +293,8 @@ def main() -> None:
         f"loading rate, fast model vs converged line integrals, {args.samples} traps "
         f"({seconds:.0f} s): RMS {np.sqrt(np.mean(err**2)):.2%}, max {np.max(np.abs(err)):.2%}"
     )
+    for name, e in error_sources(cases, slow, lines).items():
+        print(f"  {name}: RMS {np.sqrt(np.mean(e**2)):.2%}, max {np.max(np.abs(e)):.2%}")
     strong = np.array([_table_args(c)[0][2] <= 3.0 for c in cases])
     print(
         f"  of which detuning within 3 Gamma ({strong.sum()} traps): RMS "

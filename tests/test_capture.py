@@ -126,9 +126,10 @@ def test_step_count_is_converged():
 
 def test_table_reproduces_the_line_integrals():
     # interpolation error of the shipped table at random points of a broad range; measured
-    # (2026-12-02): 8 % RMS, 42 % max overall, 2.5 % RMS where the capture is strong
-    # (m4^(1/4) > 4, i.e. vc above 4 Gamma / k); the weak-capture edges of the table (where
-    # the capture collapses within a few grid steps) dominate the error
+    # (2026-12-03, finer saturation, detuning and gradient axes): 5.7 % RMS, 33 % max
+    # overall, 1.7 % RMS where the capture is strong (m4^(1/4) > 4, i.e. vc above 4 Gamma / k;
+    # the previous table: 7.8 %, 42 %, 2.5 %); the weak-capture edges (where the capture
+    # collapses and the 480-line quadrature is rough) dominate the error
     rng = np.random.default_rng(20261202)
     q = line_quadrature(*capture.TABLE_QUADRATURE)
     steps = capture.TABLE_STEPS
@@ -146,9 +147,9 @@ def test_table_reproduces_the_line_integrals():
         table.append(float(m4))
     errors = np.array(table) / np.array(direct) - 1
     strong = np.array(direct) ** 0.25 > 4
-    assert np.sqrt(np.mean(errors**2)) < 0.10
-    assert np.max(np.abs(errors)) < 0.5
-    assert np.sqrt(np.mean(errors[strong] ** 2)) < 0.035
+    assert np.sqrt(np.mean(errors**2)) < 0.07
+    assert np.max(np.abs(errors)) < 0.4
+    assert np.sqrt(np.mean(errors[strong] ** 2)) < 0.022
 
 
 def _model_ratio(**geometry):
