@@ -24,13 +24,39 @@ from __future__ import annotations
 import difflib
 import math
 import re
+import sys
 from collections.abc import Iterable
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-import pint
 
-from trapbudget.models.protocol import is_quantity
-from trapbudget.sensitivity.errors import ScenarioError
+def _import_pint():
+    """pint, without letting it import dask.
+
+    pint probes for dask arrays on import (``pint.compat``); with dask installed (the
+    ``[dask]`` extra) that pulls in dask.array, pandas and xarray, seconds that a typo in
+    a scenario should not cost. The registry here never meets a dask array, so dask is
+    hidden for the moment of the import when nothing has imported it yet; dask itself
+    stays importable afterwards.
+    """
+    hidden = "dask" not in sys.modules
+    if hidden:
+        sys.modules["dask"] = None
+    try:
+        import pint as module
+    finally:
+        if hidden and sys.modules.get("dask", 0) is None:
+            del sys.modules["dask"]
+    return module
+
+
+if TYPE_CHECKING:
+    import pint
+else:
+    pint = _import_pint()
+
+from trapbudget.models.protocol import is_quantity  # noqa: E402
+from trapbudget.sensitivity.errors import ScenarioError  # noqa: E402
 
 __all__ = [
     "DISPLAY_UNITS",
