@@ -5,7 +5,7 @@ from __future__ import annotations
 from collections.abc import Sequence
 
 import numpy as np
-from scipy import stats
+from scipy import special
 
 __all__ = ["dependent_design"]
 
@@ -76,8 +76,8 @@ def dependent_design(
     """
     d = base.shape[1] // 2
     tiny = np.finfo(float).eps
-    eps_a = stats.norm.ppf(np.clip(base[:, :d], tiny, 1 - tiny))
-    eps_b = stats.norm.ppf(np.clip(base[:, d:], tiny, 1 - tiny))
+    eps_a = special.ndtri(np.clip(base[:, :d], tiny, 1 - tiny))
+    eps_b = special.ndtri(np.clip(base[:, d:], tiny, 1 - tiny))
     lower = np.linalg.cholesky(correlation)
     z_a, z_b = eps_a @ lower.T, eps_b @ lower.T
     factors = [(j,) for j in range(d)] if factors is None else [tuple(f) for f in factors]
@@ -90,4 +90,4 @@ def dependent_design(
         c[k] = _conditional(z_b, eps_a, correlation, kept, rest)
         # D: the rest from A, the factor drawn given them (fresh normals from B).
         dd[k] = _conditional(z_a, eps_b, correlation, rest, kept)
-    return stats.norm.cdf(z_a), stats.norm.cdf(z_b), stats.norm.cdf(c), stats.norm.cdf(dd)
+    return special.ndtr(z_a), special.ndtr(z_b), special.ndtr(c), special.ndtr(dd)

@@ -43,7 +43,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import xarray as xr
-from scipy import stats
+from scipy import special
 
 from trapbudget.sensitivity.indices.budget import _ranks
 from trapbudget.sensitivity.indices.dependent import _conditional
@@ -173,14 +173,14 @@ def shapley_design(
     """
     d = base.shape[1] // 2
     tiny = np.finfo(float).eps
-    eps_a = stats.norm.ppf(np.clip(base[:, :d], tiny, 1 - tiny))
-    eps_b = stats.norm.ppf(np.clip(base[:, d:], tiny, 1 - tiny))
+    eps_a = special.ndtri(np.clip(base[:, :d], tiny, 1 - tiny))
+    eps_b = special.ndtri(np.clip(base[:, d:], tiny, 1 - tiny))
     z_a = eps_a @ np.linalg.cholesky(correlation).T
     rows = np.empty((len(subsets), base.shape[0], d))
     for j, u in enumerate(subsets):
         rest = tuple(c for c in range(d) if c not in u)
         rows[j] = _conditional(z_a, eps_b, correlation, rest, u)
-    return stats.norm.cdf(z_a), stats.norm.cdf(rows)
+    return special.ndtr(z_a), special.ndtr(rows)
 
 
 def shapley_from_costs(f_A: np.ndarray, f_U: np.ndarray, weights: np.ndarray) -> np.ndarray:
