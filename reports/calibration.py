@@ -90,6 +90,20 @@ def residual_figure(ds: xr.Dataset) -> bytes:
         return figure_png(fig)
 
 
+def _measured(ax, x, y, sigma, *, size: float) -> None:
+    """Measured points with their standard uncertainties (none drawn where unknown)."""
+    ax.errorbar(
+        x,
+        y,
+        yerr=np.where(np.isfinite(sigma), sigma, 0.0),
+        fmt="o",
+        ms=size,
+        color=ORANGE,
+        capsize=size * 0.6,
+        label="measured",
+    )
+
+
 def fit_figure(ds: xr.Dataset) -> bytes | None:
     """Each data set against the model: measured points with their standard uncertainties,
     the model with the fitted constants (line) and with the starting ones (dashed), over
@@ -149,16 +163,10 @@ def fit_figure(ds: xr.Dataset) -> bytes | None:
                     label="model, fitted",
                 )
                 ax.set_xlabel("observation")
-            ax.errorbar(
-                x_obs[mine] * x_factor,
-                measured[mine] * y_factor,
-                yerr=np.where(np.isfinite(sigma[mine]), sigma[mine], 0.0) * y_factor,
-                fmt="o",
-                ms=3.5,
-                color=ORANGE,
-                capsize=2,
-                label="measured",
-            )
+            _measured(
+                ax, x_obs[mine] * x_factor, measured[mine] * y_factor, sigma[mine] * y_factor,
+                size=3.5,
+            )  # fmt: skip
             name = output.replace("_", " ")
             ax.set_ylabel(f"{name} ({y_label})" if y_label else name)
             ax.set_title(str(curve["curve_data_set"].values), fontsize="small")
@@ -194,16 +202,7 @@ def trace_figure(ds: xr.Dataset) -> bytes | None:
             y_factor, y_label = display_scale(unit, float(np.nanmax(np.abs(y[keep]))))
             grid = np.asarray(trace["trace_grid_time"].values, dtype=float)
             t_factor, t_label = display_scale("s", float(np.nanmax(grid)))
-            ax.errorbar(
-                t[keep] * t_factor,
-                y[keep] * y_factor,
-                yerr=np.where(np.isfinite(u[keep]), u[keep], 0.0) * y_factor,
-                fmt="o",
-                ms=2.5,
-                color=ORANGE,
-                capsize=1.5,
-                label="measured",
-            )
+            _measured(ax, t[keep] * t_factor, y[keep] * y_factor, u[keep] * y_factor, size=2.5)
             ax.plot(
                 grid * t_factor,
                 np.asarray(trace["trace_model"].values) * y_factor,
