@@ -104,6 +104,16 @@ def _measured(ax, x, y, sigma, *, size: float) -> None:
     )
 
 
+def _panels(n: int, columns: int, figsize: tuple[float, float]) -> tuple[Any, list[Any]]:
+    """A figure with a grid of ``n`` panels, ``columns`` wide; the unused places hidden."""
+    rows = math.ceil(n / columns)
+    fig, axes = subplots(rows, columns, figsize=figsize, squeeze=False)
+    flat = [axes[k // columns][k % columns] for k in range(rows * columns)]
+    for ax in flat[n:]:
+        ax.set_visible(False)
+    return fig, flat[:n]
+
+
 def fit_figure(ds: xr.Dataset) -> bytes | None:
     """Each data set against the model: measured points with their standard uncertainties,
     the model with the fitted constants (line) and with the starting ones (dashed), over
@@ -118,14 +128,8 @@ def fit_figure(ds: xr.Dataset) -> bytes | None:
     owner = np.asarray(ds["observation_curve"].values)
     x_obs = np.asarray(ds["observation_x"].values, dtype=float)
     with matplotlib.rc_context(FIGURE_STYLE):  # type: ignore[arg-type]
-        fig, axes = subplots(
-            rows, columns, figsize=(6.4 if columns == 2 else 4.2, 2.7 * rows), squeeze=False
-        )
-        for k in range(rows * columns):
-            ax = axes[k // columns][k % columns]
-            if k >= n_curves:
-                ax.set_visible(False)
-                continue
+        fig, axes = _panels(n_curves, columns, (6.4 if columns == 2 else 4.2, 2.7 * rows))
+        for k, ax in enumerate(axes):
             curve = ds.isel(curve=k)
             axis = str(curve["curve_axis"].values)
             output = str(curve["curve_output"].values)
@@ -187,12 +191,8 @@ def trace_figure(ds: xr.Dataset) -> bytes | None:
     columns = min(3, n)
     rows = math.ceil(n / columns)
     with matplotlib.rc_context(FIGURE_STYLE):  # type: ignore[arg-type]
-        fig, axes = subplots(rows, columns, figsize=(3.1 * columns, 2.5 * rows), squeeze=False)
-        for k in range(rows * columns):
-            ax = axes[k // columns][k % columns]
-            if k >= n:
-                ax.set_visible(False)
-                continue
+        fig, axes = _panels(n, columns, (3.1 * columns, 2.5 * rows))
+        for k, ax in enumerate(axes):
             trace = ds.isel(trace=k)
             t = np.asarray(trace["trace_time"].values, dtype=float)
             y = np.asarray(trace["trace_measured"].values, dtype=float)

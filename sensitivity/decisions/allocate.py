@@ -25,6 +25,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
+from dataclasses import replace
 from typing import Any
 
 import numpy as np
@@ -46,6 +47,7 @@ from trapbudget.sensitivity.decisions.search import (
 from trapbudget.sensitivity.errors import ScenarioError
 from trapbudget.sensitivity.executors import Workers, running_on
 from trapbudget.sensitivity.scenario.core import Scenario
+from trapbudget.sensitivity.scenario.costs import SmoothCost, TieredCost
 
 __all__ = ["allocate"]
 
@@ -169,16 +171,12 @@ def with_default_costs(scenario: Scenario) -> Scenario:
     tolerance; common practice for a first allocation without prices), so the allocation
     spreads the tightening where it buys the most.
     """
-    import dataclasses
-
-    from trapbudget.sensitivity.scenario.costs import SmoothCost, TieredCost
-
     costs: dict[str, TieredCost | SmoothCost] = {
         name: SmoothCost(tolerance, DEFAULT_REFERENCE_COST, 1.0)
         for name, tolerance in scenario.tolerances.items()
         if name in scenario.inputs and float(tolerance.value) > 0
     }
-    return dataclasses.replace(scenario, costs=costs)
+    return replace(scenario, costs=costs)
 
 
 def allocate(

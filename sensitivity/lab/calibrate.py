@@ -317,16 +317,11 @@ def calibrate(
         if any(np.isclose(values[name], b, rtol=1e-9, atol=0.0) for b in (low, high)):
             notes.append(f"{name} ended at a bound of its valid range [{low:g}, {high:g}]")
     predicted = _predict(model, base_values, obs, values)
+    fitted_constants = {n: float(values[n]) for n in names}
     curves = fit_curves(
-        model,
-        base_values,
-        obs,
-        {n: float(start[n]) for n in names},
-        {n: float(values[n]) for n in names},
+        model, base_values, obs, {n: float(start[n]) for n in names}, fitted_constants
     )
-    traces = fit_traces(
-        model, nominal, measurement_sets, {n: float(values[n]) for n in names}, mass=mass
-    )
+    traces = fit_traces(model, nominal, measurement_sets, fitted_constants, mass=mass)
     if traces is not None:
         curves = curves.merge(traces)
     return Calibration(

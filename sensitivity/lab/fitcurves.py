@@ -7,6 +7,10 @@ an observation's source) and each output it measures becomes one curve: the sett
 that varies most across its observations is the axis, the model is evaluated on a
 grid over that axis's measured range with every other setting at its median over the
 data set, once with the starting constants and once with the fitted ones.
+
+The raw curves of loading-curve and time-of-flight files (:func:`fit_traces`) are kept
+beside the calibrated model at each curve's settings, grouped as the calibration
+grouped them (one curve per set of settings).
 """
 
 from __future__ import annotations
@@ -17,6 +21,11 @@ from typing import Any
 
 import numpy as np
 import xarray as xr
+
+from trapbudget.models.observables import loading_curve, time_of_flight_radius
+from trapbudget.sensitivity.lab.datafiles import _signal_of
+from trapbudget.sensitivity.lab.observations import _setting_groups
+from trapbudget.sensitivity.scenario.units import format_quantity
 
 __all__ = ["GRID_POINTS", "fit_curves", "fit_traces"]
 
@@ -164,11 +173,6 @@ def fit_traces(
         ``trace_time``, ``trace_measured``, ``trace_uncertainty``, ``trace_grid_time``,
         ``trace_model``; None when no file holds curves.
     """
-    from trapbudget.models.observables import loading_curve, time_of_flight_radius
-    from trapbudget.sensitivity.lab.datafiles import _signal_of
-    from trapbudget.sensitivity.lab.observations import _setting_groups
-    from trapbudget.sensitivity.scenario.units import format_quantity
-
     records: list[dict[str, Any]] = []
     for mset in measurement_sets:
         if mset.kind not in ("loading-curve", "time-of-flight"):
