@@ -177,14 +177,16 @@ def _split(text: str | float | int, *, unit: str, where: str, path: object | Non
         return float(text.magnitude), str(text.units)  # type: ignore[attr-defined]
     if not isinstance(text, str):
         raise ScenarioError(
-            f"{text!r} is not a quantity; write a string such as '1 {unit or ''}'".rstrip(),
+            f"{text!r} is not a quantity; write a string such as '{_example(unit)}'",
             path=path,
             key=where,
         )
     match = _NUMBER.match(text.replace("°C", "degC").replace("°F", "degF").replace("µ", "u"))
     if match is None:
         raise ScenarioError(
-            f"{text!r} is not a number with a unit; write e.g. '1 {unit}'", path=path, key=where
+            f"{text!r} is not a number with a unit; write e.g. '{_example(unit)}'",
+            path=path,
+            key=where,
         )
     return float(match.group(1)), match.group(2)
 
