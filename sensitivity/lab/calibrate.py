@@ -260,8 +260,11 @@ def calibrate(
             if s[-1] < flat_threshold * s[0]:
                 direction = vt[-1] / np.where(norms > 0, norms, 1.0)
                 direction = direction / np.max(np.abs(direction))
-                share = np.abs(vt[-1])
-                k = int(np.argmax(share))
+                # hold the constant that moves most (relatively) along the flat direction:
+                # the one the data constrain least. The normalised vector cannot decide this
+                # when two columns are collinear (two loss rates that add): its weights split
+                # near 1/sqrt(2) each and rounding picks the side
+                k = int(np.argmax(np.abs(direction)))
                 relative = {
                     fitted[i]: float(direction[i])
                     for i in np.argsort(-np.abs(direction))
