@@ -76,6 +76,28 @@ def _cpu_seconds(client=None) -> float:
     return total
 
 
+class _Outputs(dict):
+    """Model outputs that compare like a Dataset (``identical``: bit for bit)."""
+
+    def identical(self, other) -> bool:
+        import numpy as np
+
+        return self.keys() == other.keys() and all(
+            np.array_equal(self[k], other[k], equal_nan=True) for k in self
+        )
+
+
+def _draws(scenario, n: int) -> dict:
+    """n random physical draws of the scenario's uncertain inputs (independent)."""
+    import numpy as np
+
+    rng = np.random.default_rng(20261203)
+    columns = {}
+    for name, dist in scenario.inputs.items():
+        columns[name] = np.asarray(dist.rvs(size=n, random_state=rng), dtype=float)
+    return columns
+
+
 def speed(args: argparse.Namespace) -> None:
     from distributed import Client, LocalCluster
 
@@ -110,6 +132,24 @@ def speed(args: argparse.Namespace) -> None:
         )
         return summarize(samples)
 
+    # The trap model alone: the same random draws (a fixed table of physical inputs, made
+    # once) evaluated through the one evaluation path, here or on the workers.
+    from trapbudget.sensitivity.protocol import BoundModel
+
+    draws = _draws(scenario, args.eval_samples)
+    # the settings travel with the model (as in propagate and rank), the draws as columns
+    settled = BoundModel(
+        scenario.model, {k: v for k, v in scenario.nominal.items() if k not in draws}
+    )
+
+    def evaluations(**where):
+        from trapbudget.sensitivity.executors import running_on
+        from trapbudget.sensitivity.protocol import evaluate_in_chunks
+
+        with running_on(where.get("executor"), where.get("workers")):
+            out = evaluate_in_chunks(settled, draws, outputs=outputs)
+        return _Outputs(out)
+
     ranking(workers=1)  # compile (or load) the kernels here first
     start = time.perf_counter()
     # dask's nanny sets MALLOC_TRIM_THRESHOLD_=65536 in its workers by default, which also
@@ -134,7 +174,7 @@ def speed(args: argparse.Namespace) -> None:
         "2 local processes": ({"workers": 2}, None),
         "dask, 2 workers": ({"executor": client.get_executor()}, client),
     }
-    studies = {"rank": ranking, "Monte Carlo": monte_carlo}
+    studies = {"trap model": evaluations, "rank": ranking, "Monte Carlo": monte_carlo}
     wall: dict[tuple[str, str], float] = {}
     cpu: dict[tuple[str, str], float] = {}
     reference: dict[str, object] = {}
@@ -162,8 +202,8 @@ def speed(args: argparse.Namespace) -> None:
     serial, parallel = _control()
     print()
     print(
-        f"rank: {SCENARIO}, N = {args.samples}; Monte Carlo: {args.mc_samples} samples, "
-        f"summary-only; best of {args.rounds}"
+        f"trap model: {args.eval_samples} evaluations; rank: {SCENARIO}, N = {args.samples}; "
+        f"Monte Carlo: {args.mc_samples} samples, summary-only; best of {args.rounds}"
     )
     for label in studies:
         one = wall[label, "1 process"]
@@ -253,6 +293,7 @@ def main() -> None:
     parser.add_argument("--samples", type=float, default=None)
     parser.add_argument("--rounds", type=int, default=1)
     parser.add_argument("--mc-samples", type=int, default=2**23)
+    parser.add_argument("--eval-samples", type=int, default=2**23)
     parser.add_argument("--full", action="store_true")
     parser.add_argument("--keep", default="auto")
     args = parser.parse_args()

