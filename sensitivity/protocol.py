@@ -293,7 +293,11 @@ def evaluate_in_chunks(
         for start in starts
     )
     sizes = [min(start + chunk_size, total) - start for start in starts]
-    pieces: dict[str, list[np.ndarray]] = {}
+    # Each chunk's outputs are copied into place as they arrive: the (fresh) memory of the
+    # result is touched while the workers compute the next chunks, not in one serial
+    # concatenation at the end (1.4 s for 5 outputs of 2^22 on this machine, where the
+    # first touch of a page costs about 10 us).
+    out: dict[str, np.ndarray] = {}
     done = 0
     for size, result in zip(
         sizes,
@@ -301,11 +305,16 @@ def evaluate_in_chunks(
         strict=True,
     ):
         for name, value in result.items():
-            pieces.setdefault(name, []).append(value)
+            held = out.get(name)
+            if held is None:
+                held = out[name] = np.empty((total, *value.shape[1:]), dtype=value.dtype)
+            elif np.result_type(held, value) != held.dtype:  # as np.concatenate would promote
+                held = out[name] = held.astype(np.result_type(held, value))
+            held[done : done + size] = value
         done += size
         if progress is not None:
             progress(done, total)
-    return {name: np.concatenate(parts) for name, parts in pieces.items()}
+    return out
 
 
 def evaluate_chunks(
@@ -383,7 +392,9 @@ def validity_counts(model: Any, mask: ArrayLike) -> dict[str, int]:
     Without flags on the model, the one key ``"invalid"`` counts every sample
     with a non-zero mask.
     """
-    mask = np.asarray(mask).astype(np.int64)
+    mask = np.asarray(mask)
+    if mask.dtype.kind not in "iu":
+        mask = mask.astype(np.int64)
     flags, _ = validity_flags(model)
     if flags is None:
         return {"invalid": int(np.count_nonzero(mask))}
