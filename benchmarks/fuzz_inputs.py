@@ -34,7 +34,14 @@ HOSTILE = [
     '"expanded"', '["0 mW", "1 mW"]', '["1 mW", "0 mW"]', "0.999", "1.0000001", "-1",
 ]  # fmt: skip
 
-SCENARIOS = ("harrier-rb87.toml", "harrier-upgrade.toml", "harrier-cs133.toml")
+SCENARIOS = (
+    "harrier-rb87.toml",
+    "harrier-upgrade.toml",
+    "harrier-cs133.toml",
+    "harrier-rb87-2dmot.toml",
+    "harrier-sr88-blue.toml",
+    "harrier-sr88-red.toml",
+)
 DATA = ("harrier-detuning-scan.csv", "harrier-loading-curves.csv", "harrier-time-of-flight.csv")
 
 
@@ -93,9 +100,14 @@ def main_loop(seconds: float, seed: int) -> None:
                 path = folder / "fuzzed.toml"
                 path.write_text(mutate_text((folder / source).read_text(), rnd))
                 argv = ["predict", str(path), "--quiet"]
-                if rnd.random() < 0.15:
+                roll = rnd.random()
+                if roll < 0.15:
                     argv = ["rank", str(path), "--samples", "32", "--no-convergence", "--quiet"]
                     argv += ["--out", str(folder / "out")]
+                elif roll < 0.25:
+                    argv = ["scan", str(path), rnd.choice(["detuning", "beam_power", "x"])]
+                    argv += ["--points", "5", "--samples", "32", "--out", str(folder / "scan")]
+                    argv += ["--quiet"]
             else:
                 source = rnd.choice(DATA)
                 raw = bytearray(mutate_text((folder / source).read_text(), rnd).encode())
