@@ -10,7 +10,7 @@ correlated inputs, and how the intervals are computed, is in the notes of
 from __future__ import annotations
 
 import dataclasses
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterable, Iterator, Mapping, Sequence
 from typing import Any, Literal
 
 import numpy as np
@@ -20,7 +20,12 @@ from trapbudget.sensitivity.errors import ConvergenceWarning, ScenarioError
 from trapbudget.sensitivity.indices.givendata import first_order_given_data
 from trapbudget.sensitivity.indices.replicates import replicate_interval, split_replicates
 from trapbudget.sensitivity.indices.sobol import SobolResult, check_power_of_two, sobol_indices
-from trapbudget.sensitivity.protocol import evaluate_in_chunks, select_outputs, validity_counts
+from trapbudget.sensitivity.protocol import (
+    evaluate_chunks,
+    evaluate_in_chunks,
+    select_outputs,
+    validity_counts,
+)
 from trapbudget.sensitivity.sampling import UnitCubeModel, split_inputs
 
 __all__ = ["DUMMY", "METHOD_NAMES", "BudgetConvergenceWarning", "IndexMethod", "analyze_budget"]
@@ -128,6 +133,56 @@ class _Runner:
         )
         columns = {name: unit_rows[:, j] for j, name in enumerate(self.names)}
         return self._run(model, columns, unit_rows.shape[0])
+
+    def blocks(self, blocks: Iterable[np.ndarray], n_blocks: int, rows: int) -> np.ndarray:
+        """Evaluate ``n_blocks`` blocks of ``rows`` unit-cube rows each; (n_blocks * rows, m).
+
+        The blocks come one at a time (a generator builds each while the chunks of the one
+        before are evaluated), so the inputs held at once are about one block, not the
+        whole design; the outputs fill one preallocated array. The chunk grid (``chunk_size``
+        rows within each block) does not depend on the executor.
+        """
+        model = UnitCubeModel(
+            self.model, dict(zip(self.names, self.distributions, strict=True)), fixed=self.fixed
+        )
+        size = self.chunk_size
+        starts = range(0, rows, size)
+        sizes = [min(start + size, rows) - start for start in starts] * n_blocks
+        d = len(self.names)
+
+        def chunks() -> Iterator[dict[str, np.ndarray]]:
+            for block in blocks:
+                if block.shape != (rows, d):
+                    raise ValueError(f"a block of shape {block.shape}, expected {(rows, d)}")
+                for start in starts:
+                    piece = block[start : start + size]
+                    yield {name: np.array(piece[:, j]) for j, name in enumerate(self.names)}
+
+        total = n_blocks * rows
+        done_before = self.n_evaluations
+        out: np.ndarray | None = None
+        validity: np.ndarray | None = None
+        done = 0
+        results = evaluate_chunks(model, chunks(), sizes, outputs=self.requested)
+        for n, result in zip(sizes, results, strict=True):
+            if self.outputs is None:
+                self.outputs = select_outputs(self.model, result, self.requested)
+            if out is None:
+                out = np.empty((total, len(self.outputs)))
+                if "validity" in result:
+                    validity = np.empty(total, dtype=np.asarray(result["validity"]).dtype)
+            for j, name in enumerate(self.outputs):
+                out[done : done + n, j] = result[name]
+            if validity is not None:
+                validity[done : done + n] = result["validity"]
+            done += n
+            if self.progress is not None:
+                self.progress(done_before + done, done_before + total)
+        if validity is not None:
+            self.validity.append(validity)
+        self.n_evaluations += total
+        assert out is not None
+        return out
 
     def evaluate_physical(self, phys: np.ndarray) -> np.ndarray:
         """Evaluate input rows (n, d) in SI; (n, m) outputs."""

@@ -10,7 +10,7 @@ Shapley effects from set-redrawn rows of the same A matrix
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 
 import numpy as np
 import xarray as xr
@@ -27,7 +27,7 @@ from trapbudget.sensitivity.indices.budget import (
 from trapbudget.sensitivity.indices.convergence import _converge, _Options
 from trapbudget.sensitivity.indices.dependent import dependent_design
 from trapbudget.sensitivity.indices.shapley import add_shapley, shapley_design, shapley_plan
-from trapbudget.sensitivity.indices.sobol import cross_matrices, design_from_base
+from trapbudget.sensitivity.indices.sobol import SaltelliDesign, cross_matrices, design_from_base
 
 __all__: list[str] = []
 
@@ -108,27 +108,31 @@ def _rank_sobol(
 
     def step(new: int) -> xr.Dataset:
         bases = [engine.random(new) for engine in engines]
-        designs = [
-            design_from_base(
-                np.column_stack([base[:, :d], base[:, width : width + d]]),
-                factors=factors,
-                second_order=second_order,
-            )
-            for base in bases
-        ]
-        rows = []
-        for r, design in enumerate(designs):
-            rows.append(design.stacked())
-            if groups:
-                rows.append(cross_matrices(design.A, design.B, group_factors).reshape(-1, d))
-            if plans:
-                # Independent inputs: a set redrawn given the rest is the set taken from B.
-                rows.append(cross_matrices(design.A, design.B, plans[r].subsets).reshape(-1, d))
-        y = runner(np.concatenate(rows))
-        y = y.reshape(opts.n_replicates, -1, y.shape[-1])
-        n_eval = designs[0].n_evaluations
+
+        def design(r: int) -> SaltelliDesign:
+            joined = np.column_stack([bases[r][:, :d], bases[r][:, width : width + d]])
+            return design_from_base(joined, factors=factors, second_order=second_order)
+
+        first = design(0)  # every replicate's design has this layout
+
+        def replicate_rows() -> Iterator[np.ndarray]:
+            # built one replicate at a time, while the one before is evaluated
+            for r in range(opts.n_replicates):
+                this = first if r == 0 else design(r)
+                rows = [this.stacked()]
+                if groups:
+                    rows.append(cross_matrices(this.A, this.B, group_factors).reshape(-1, d))
+                if plans:
+                    # Independent inputs: a set redrawn given the rest is the set from B.
+                    rows.append(cross_matrices(this.A, this.B, plans[r].subsets).reshape(-1, d))
+                yield np.concatenate(rows)
+
+        n_eval = first.n_evaluations
         n_group = len(groups) * new
-        split = [design.split(y_r[:n_eval]) for design, y_r in zip(designs, y, strict=True)]
+        n_plan = len(plans[0].subsets) * new if plans else 0
+        y = runner.blocks(replicate_rows(), opts.n_replicates, n_eval + n_group + n_plan)
+        y = y.reshape(opts.n_replicates, -1, y.shape[-1])
+        split = [first.split(y_r[:n_eval]) for y_r in y]
         if plans:
             n_sets = len(plans[0].subsets)
             parts.add({"SU": y[:, n_eval + n_group :].reshape(opts.n_replicates, n_sets, new, -1)})
@@ -190,17 +194,22 @@ def _rank_dependent(
 
     def step(new: int) -> xr.Dataset:
         bases = [engine.random(new) for engine in engines]
-        rows = []
-        for r, base in enumerate(bases):
-            joined = np.column_stack([base[:, :d], base[:, width : width + d]])
-            a, b, c, dd = dependent_design(joined, correlation, factors=factors)
-            rows.append(np.concatenate([a, b, c.reshape(-1, d), dd.reshape(-1, d)]))
-            if plans:
-                # Same A as the design (same scores); each set redrawn given the rest.
-                rows.append(
-                    shapley_design(joined, correlation, plans[r].subsets)[1].reshape(-1, d)
-                )
-        y = runner(np.concatenate(rows))
+
+        def replicate_rows() -> Iterator[np.ndarray]:
+            # built one replicate at a time, while the one before is evaluated
+            for r, base in enumerate(bases):
+                joined = np.column_stack([base[:, :d], base[:, width : width + d]])
+                a, b, c, dd = dependent_design(joined, correlation, factors=factors)
+                rows = [a, b, c.reshape(-1, d), dd.reshape(-1, d)]
+                if plans:
+                    # Same A as the design (same scores); each set redrawn given the rest.
+                    rows.append(
+                        shapley_design(joined, correlation, plans[r].subsets)[1].reshape(-1, d)
+                    )
+                yield np.concatenate(rows)
+
+        per_replicate = (2 + 2 * k + n_sets) * new
+        y = runner.blocks(replicate_rows(), opts.n_replicates, per_replicate)
         blocks = y.reshape(opts.n_replicates, 2 + 2 * k + n_sets, new, -1)
         if plans:
             parts.add({"SU": blocks[:, 2 + 2 * k :]})
