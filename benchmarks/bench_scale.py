@@ -4,6 +4,7 @@ Run by hand (not in CI), on an otherwise quiet machine::
 
     python benchmarks/bench_scale.py speed  [--samples 2048] [--mc-samples 8388608] [--rounds 1]
     python benchmarks/bench_scale.py memory [--samples 10000000] [--full]
+    python benchmarks/bench_scale.py rank-memory [--samples 16384]
 
 ``speed``: two studies of the invented demo scenario harrier-rb87.toml (correlated
 inputs, its four outputs): ``rank`` at base size ``--samples`` and a summary-only Monte
@@ -22,6 +23,9 @@ Carlo study of the trap's four default outputs: ``propagate`` of ``--samples`` r
 draws (summary-only from 2^22 samples on: outputs kept as float32), ``summarize`` and
 ``check_requirements``. ``--full`` also runs ``keep="all"`` (every sample in float64)
 for comparison. Target: 10^7 samples under 1 GB.
+
+``rank-memory``: peak resident memory of the demo's ``rank`` (one process) at base size
+``--samples`` in a fresh process.
 """
 
 from __future__ import annotations
@@ -257,6 +261,43 @@ def _memory_child(n: int, keep: str | None) -> None:
     )
 
 
+def _rank_memory_child(n: int) -> None:
+    import resource
+
+    from trapbudget.sensitivity import rank
+
+    scenario = _scenario()
+    start = time.perf_counter()
+    result = rank(
+        scenario.model,
+        scenario.inputs,
+        n_samples=n,
+        outputs=list(scenario.outputs),
+        correlation=scenario.correlation,
+        nominal=scenario.nominal,
+        rng=1,
+        workers=1,
+    )
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+    runs = int(result.attrs.get("n_evaluations", 0))
+    print(json.dumps({"peak_bytes": peak, "seconds": time.perf_counter() - start, "runs": runs}))
+
+
+def rank_memory(args: argparse.Namespace) -> None:
+    n = int(args.samples or 2**14)
+    out = subprocess.run(
+        [sys.executable, __file__, "rank-memory-child", "--samples", str(n)],
+        check=True,
+        capture_output=True,
+        text=True,
+    ).stdout
+    got = json.loads(out.strip().splitlines()[-1])
+    print(
+        f"rank of {SCENARIO}, N = {n} ({got['runs']:,} model runs): peak RSS "
+        f"{got['peak_bytes'] / 2**30:.2f} GiB, {got['seconds']:.0f} s"
+    )
+
+
 def memory(args: argparse.Namespace) -> None:
     from trapbudget.sensitivity.guard import memory_needed
 
@@ -289,7 +330,9 @@ def memory(args: argparse.Namespace) -> None:
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("what", choices=["speed", "memory", "memory-child"])
+    parser.add_argument(
+        "what", choices=["speed", "memory", "memory-child", "rank-memory", "rank-memory-child"]
+    )
     parser.add_argument("--samples", type=float, default=None)
     parser.add_argument("--rounds", type=int, default=1)
     parser.add_argument("--mc-samples", type=int, default=2**23)
@@ -303,6 +346,10 @@ def main() -> None:
     elif args.what == "memory":
         args.samples = int(args.samples or 10_000_000)
         memory(args)
+    elif args.what == "rank-memory":
+        rank_memory(args)
+    elif args.what == "rank-memory-child":
+        _rank_memory_child(int(args.samples))
     else:
         _memory_child(int(args.samples), None if args.keep == "auto" else args.keep)
 
