@@ -123,17 +123,6 @@ class _Runner:
         self.validity: list[np.ndarray] = []
         self.n_evaluations = 0
 
-    def __call__(self, unit_rows: np.ndarray) -> np.ndarray:
-        """Evaluate unit-cube rows (n, d) through the inverse CDFs; (n, m) outputs.
-
-        The inverse CDFs run with the model, chunk by chunk (in the workers, if any).
-        """
-        model = UnitCubeModel(
-            self.model, dict(zip(self.names, self.distributions, strict=True)), fixed=self.fixed
-        )
-        columns = {name: unit_rows[:, j] for j, name in enumerate(self.names)}
-        return self._run(model, columns, unit_rows.shape[0])
-
     def blocks(self, blocks: Iterable[np.ndarray], n_blocks: int, rows: int) -> np.ndarray:
         """Evaluate ``n_blocks`` blocks of ``rows`` unit-cube rows each; (n_blocks * rows, m).
 
