@@ -247,7 +247,10 @@ def _broken(old: str, new: str) -> str:
         ('free = ["loading_prefactor"]', 'free = ["loading_prefactr"]', r"calibration\.free: "
          r"'loading_prefactr' is not an input"),
         ('changes = { beam_power', 'changes = { beam_powr', r"'beam_powr' is not an input"),
-        ("seed = 7", "seed = 7.5", r"settings\.seed: 7\.5 must be int"),
+        ("seed = 7", "seed = 7.5", r"settings\.seed: 7\.5 must be a whole number, e\.g\. "
+         r"seed = 12"),
+        ("seed = 7", 'seed = "7"', r"settings\.seed: '7' must be a whole number, written "
+         r"without quotes, e\.g\. seed = 12"),
     ],
 )  # fmt: skip
 def test_validation_messages(tmp_path, old, new, message):

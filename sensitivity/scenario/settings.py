@@ -58,6 +58,18 @@ class RunOptions:
     n_bootstrap: int
 
 
+_KIND_WORDS = {int: "a whole number", float: "a number", bool: "true or false", str: "a string"}
+_KIND_EXAMPLES: dict[Any, str] = {
+    int: "1000",
+    float: "0.95",
+    bool: "false",
+    str: '"sobol"',
+    "seed": "12",
+    "n_samples": "4096",
+    "chunk_size": "65536",
+}
+
+
 @dataclass(frozen=True)
 class Settings:
     """How to run a scenario.
@@ -119,8 +131,12 @@ class Settings:
             if kind is float and isinstance(value, int) and not isinstance(value, bool):
                 ok, value = True, float(value)
             if not ok:
+                how = ", written without quotes" if isinstance(value, str) else ""
                 raise ScenarioError(
-                    f"{value!r} must be {kind.__name__}", path=path, key=f"settings.{name}"
+                    f"{value!r} must be {_KIND_WORDS[kind]}{how}, e.g. "
+                    f"{name} = {_KIND_EXAMPLES.get(name, _KIND_EXAMPLES[kind])}",
+                    path=path,
+                    key=f"settings.{name}",
                 )
             values[name] = value
         settings = cls(**values)
