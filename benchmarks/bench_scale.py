@@ -283,15 +283,17 @@ def _rank_memory_child(n: int) -> None:
     print(json.dumps({"peak_bytes": peak, "seconds": time.perf_counter() - start, "runs": runs}))
 
 
+def _child(*argv: str) -> dict:
+    """Run this script again in a fresh process (its own peak memory); its last JSON line."""
+    out = subprocess.run(
+        [sys.executable, __file__, *argv], check=True, capture_output=True, text=True
+    ).stdout
+    return json.loads(out.strip().splitlines()[-1])
+
+
 def rank_memory(args: argparse.Namespace) -> None:
     n = int(args.samples or 2**14)
-    out = subprocess.run(
-        [sys.executable, __file__, "rank-memory-child", "--samples", str(n)],
-        check=True,
-        capture_output=True,
-        text=True,
-    ).stdout
-    got = json.loads(out.strip().splitlines()[-1])
+    got = _child("rank-memory-child", "--samples", str(n))
     print(
         f"rank of {SCENARIO}, N = {n} ({got['runs']:,} model runs): peak RSS "
         f"{got['peak_bytes'] / 2**30:.2f} GiB, {got['seconds']:.0f} s"
@@ -303,21 +305,7 @@ def memory(args: argparse.Namespace) -> None:
 
     runs = [None, "all"] if args.full else [None]
     for keep in runs:
-        out = subprocess.run(
-            [
-                sys.executable,
-                __file__,
-                "memory-child",
-                "--samples",
-                str(args.samples),
-                "--keep",
-                keep or "auto",
-            ],
-            check=True,
-            capture_output=True,
-            text=True,
-        ).stdout
-        got = json.loads(out.strip().splitlines()[-1])
+        got = _child("memory-child", "--samples", str(args.samples), "--keep", keep or "auto")
         print(
             f"{args.samples:.3g} samples, keep={got['kept']}: peak RSS "
             f"{got['peak_bytes'] / 2**30:.2f} GiB (samples Dataset "

@@ -59,15 +59,9 @@ class RunOptions:
 
 
 _KIND_WORDS = {int: "a whole number", float: "a number", bool: "true or false", str: "a string"}
-_KIND_EXAMPLES: dict[Any, str] = {
-    int: "1000",
-    float: "0.95",
-    bool: "false",
-    str: '"sobol"',
-    "seed": "12",
-    "n_samples": "4096",
-    "chunk_size": "65536",
-}
+_KIND_EXAMPLES = {int: "1000", float: "0.95", bool: "false", str: '"sobol"'}
+#: Examples for settings where the one of their kind would mislead.
+_NAME_EXAMPLES = {"seed": "12", "n_samples": "4096", "chunk_size": "65536"}
 
 
 @dataclass(frozen=True)
@@ -134,7 +128,7 @@ class Settings:
                 how = ", written without quotes" if isinstance(value, str) else ""
                 raise ScenarioError(
                     f"{value!r} must be {_KIND_WORDS[kind]}{how}, e.g. "
-                    f"{name} = {_KIND_EXAMPLES.get(name, _KIND_EXAMPLES[kind])}",
+                    f"{name} = {_NAME_EXAMPLES.get(name, _KIND_EXAMPLES[kind])}",
                     path=path,
                     key=f"settings.{name}",
                 )
