@@ -65,6 +65,10 @@ def _one_blas_thread() -> None:
     process: a Monte Carlo run of the demo took the same wall time with one BLAS thread
     and 30 % less CPU (2^21 samples, measured 2026-12-03).
     """
+    # A fork-server or spawned worker has not loaded the BLAS libraries yet: load numpy's
+    # and scipy's (each wheel brings its own OpenBLAS) so that the limit reaches both.
+    import numpy  # noqa: F401
+    import scipy.linalg  # noqa: F401
     from threadpoolctl import threadpool_limits
 
     threadpool_limits(1)
@@ -75,17 +79,24 @@ class _LocalPool:
 
     On Linux the processes are forked, and forked at once when the pool opens: before
     any progress-bar thread starts and before the run's arrays fill the memory, and
-    without re-running the caller's script. Elsewhere they are spawned (the platform's
-    default) on first use, which needs the usual ``if __name__ == "__main__":`` guard
-    in a script.
+    without re-running the caller's script. A process that already runs other Python
+    threads (a notebook, a dask client, an earlier study's progress-bar monitor) is not
+    forked: a child may inherit a lock one of those threads held and hang, which is why
+    Python 3.12+ warns about such a fork. Its workers come from a fork server instead, a
+    fresh single-threaded process. Elsewhere they are spawned (the platform's default)
+    on first use. Both of these need the usual ``if __name__ == "__main__":`` guard in a
+    script.
     """
 
     def __init__(self, workers: int) -> None:
         import sys
+        import threading
 
         self.workers = workers
         self.owner = os.getpid()  # a forked worker must not use its parent's pool
-        self._method = "fork" if sys.platform.startswith("linux") else None
+        self._method: str | None = None
+        if sys.platform.startswith("linux"):
+            self._method = "fork" if threading.active_count() == 1 else "forkserver"
         self._pool: Any = None
         if self._method == "fork":
             self.submit(_no_op).result()  # every process forked now

@@ -183,6 +183,42 @@ def test_pool_workers_keep_to_one_blas_thread_each():
     assert all(count and set(count) == {1} for count in counts), counts
 
 
+def test_a_process_with_other_threads_is_not_forked(scenario):
+    # Python 3.12+ warns (DeprecationWarning) when a process that runs other threads
+    # forks: the child may inherit a lock one of them held (Python docs, os.fork). A pool
+    # opened beside a live thread (a notebook's, a dask client's, a progress monitor's)
+    # must take its workers from a fork server and still give the same bits.
+    import threading
+    import warnings
+
+    def run(workers):
+        return propagate(
+            scenario.model,
+            scenario.inputs,
+            n_samples=2048,
+            rng=5,
+            outputs=OUTPUTS[:1],
+            nominal=scenario.nominal,
+            chunk_size=CHUNK,
+            workers=workers,
+        )
+
+    alone = run(1)
+    stop = threading.Event()
+    other = threading.Thread(target=stop.wait, daemon=True)
+    other.start()
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", DeprecationWarning)
+            with running_on(workers=2):
+                method = current_executor(AUTO_MIN_SAMPLES, 8)._method
+            assert method == "forkserver"
+            assert run(2).identical(alone)
+    finally:
+        stop.set()
+        other.join()
+
+
 # ---------------------------------------------------------------- the command line
 
 ISHIGAMI = """
