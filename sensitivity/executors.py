@@ -106,6 +106,9 @@ class _LocalPool:
         from concurrent.futures import ProcessPoolExecutor
 
         context = multiprocessing.get_context(self._method)
+        if self._method == "forkserver":
+            # the server imports these once; every worker it forks then starts with them
+            context.set_forkserver_preload(["scipy.linalg", "trapbudget.models.trap"])
         self._pool = ProcessPoolExecutor(
             max_workers=self.workers, mp_context=context, initializer=_one_blas_thread
         )
