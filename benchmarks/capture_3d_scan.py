@@ -1,6 +1,6 @@
 """Curved 3-D capture, compiled: the straight-line table against full trajectories.
 
-Run by hand (about two minutes on two cores)::
+Run by hand (about six minutes on two cores)::
 
     python benchmarks/capture_3d_scan.py [--workers 2]
 
@@ -19,6 +19,10 @@ fixed-order RK4 with steps bounded in distance, in speed change and by the dampi
    detuning at s0 = 15 and 150; then the growth of the best loading from s0 = 15 to 150
    for each. The question it answers: is the model's lack of intensity saturation (the
    strict xfail in ``tests/test_scans.py``) an artefact of the straight-line table?
+3. **Rb, beam size** at s0 = 4.6 and 10 G/cm, the best detuning for each waist: the
+   exponent of the loading rate (area times mean vc^4) in the beam diameter, from 3-D
+   paths and from straight lines, below 2.3 mm of Hoth's diameter and above 3 mm. The
+   question: do curved paths steepen small beams toward d^6 (the other strict xfail)?
 
 Cost grows with eta (the damping makes the slow phase stiff): 3-12 s per trap of 1152
 lines at eta ~ 15-50, about 2 min at eta = 1000 (the ``solve_ivp`` reference: 12 s to
@@ -219,6 +223,27 @@ def _cesium(args):
     return s0, red, curved, straight, table
 
 
+def _rubidium(args):
+    waist, red = args
+    rb = species("Rb87")
+    eta, _, zeta = capture.dimensionless(
+        waist=waist,
+        detuning=-rb.linewidth_hz,
+        gradient=0.10,
+        wavenumber=rb.wavenumber,
+        linewidth=rb.linewidth,
+        mass=rb.mass,
+        zeeman_coefficient=rb.zeeman_coefficient,
+    )
+    _, _, curved, straight, _ = _cesium((float(eta), float(zeta), 4.6, red))
+    return waist, red, curved, straight
+
+
+def _exponent(waists, rates):
+    diameter = np.asarray(waists) * math.sqrt(2.0 * math.log(4.6))  # where I = I_sat
+    return float(np.polyfit(np.log(diameter), np.log(rates), 1)[0])
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--workers", type=int, default=2)
@@ -245,6 +270,9 @@ def main() -> None:
                 f"ratio {q4:.5f}, {q6:.5f}  ({fast:.1f} s against {slow:.1f} s)"
             )
         rows = list(pool.map(_cesium, grid))
+        small, large = [0.4e-3, 0.6e-3, 0.8e-3, 1.0e-3, 1.2e-3], [1.5e-3, 2.5e-3, 4e-3, 6e-3]
+        sizes = [(w, r) for w in small + large for r in (1.0, 1.5, 2.0, 2.5, 3.0, 3.5)]
+        beams = list(pool.map(_rubidium, sizes))
     print(f"2. Cs, 5 mm waist, 10 G/cm (eta {eta:.1f}, zeta {zeta:.2f}): mean vc^4")
     print("    s0  -delta/Gamma     3-D paths  straight lines   shipped table   3-D / lines")
     for s0, red, curved, straight, table in rows:
@@ -255,6 +283,14 @@ def main() -> None:
     for column, name in ((2, "3-D paths"), (3, "straight lines"), (4, "shipped table")):
         best = [max(row[column] for row in rows if row[0] == s0) for s0 in (15.0, 150.0)]
         print(f"   best loading, s0 = 150 over s0 = 15, {name:15s}: {best[1] / best[0]:.2f}")
+    print("3. Rb, s0 = 4.6, 10 G/cm: exponent of the best loading rate in Hoth's diameter")
+    for column, name in ((2, "3-D paths"), (3, "straight lines")):
+        best = {}
+        for row in beams:
+            best[row[0]] = max(best.get(row[0], 0.0), row[0] ** 2 * row[column])
+        for label, waists in (("below 2.3 mm", small), ("1.5-6 mm waist", large)):
+            slope = _exponent(waists, [best[w] for w in waists])
+            print(f"   {name:15s} {label:15s}: d^{slope:.2f}")
 
 
 if __name__ == "__main__":

@@ -127,7 +127,9 @@ def test_atom_number_scales_as_beam_diameter_to_the_3_6():
     reason="protocol unconfirmed: Hoth et al. 2013 (abstract, read) give d^6 below d = 2.3 mm "
     "for d at I = I_sat 'at high intensities', but whether power or intensity was held "
     "fixed could not be read; at this test's fixed s0 = 4.6 the model gives d^3.8, at a fixed "
-    "1-10 mW per beam d^10-12 (measured 2026-12-03)",
+    "1-10 mW per beam d^10-12 (measured 2026-12-03); curved 3-D paths steepen the loading "
+    "below 2.3 mm only to d^4.2, against d^3.8 on straight lines (benchmarks/"
+    "capture_3d_scan.py, 2026-12-03)",
 )
 def test_small_beams_steepen_toward_d6():
     # Hoth, Donley & Kitching 2013 (Rb), abstract (read): N ~ d^6 for d < 2.3 mm, d the
