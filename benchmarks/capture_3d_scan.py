@@ -223,19 +223,24 @@ def _cesium(args):
     return s0, red, curved, straight, table
 
 
-def _rubidium(args):
-    waist, red = args
-    rb = species("Rb87")
+def _eta_zeta(name: str, waist: float) -> tuple[float, float]:
+    """The table's eta and zeta of a species' trap at 10 G/cm (eta at full brightness)."""
+    sp = species(name)
     eta, _, zeta = capture.dimensionless(
         waist=waist,
-        detuning=-rb.linewidth_hz,
+        detuning=-sp.linewidth_hz,
         gradient=0.10,
-        wavenumber=rb.wavenumber,
-        linewidth=rb.linewidth,
-        mass=rb.mass,
-        zeeman_coefficient=rb.zeeman_coefficient,
+        wavenumber=sp.wavenumber,
+        linewidth=sp.linewidth,
+        mass=sp.mass,
+        zeeman_coefficient=sp.zeeman_coefficient,
     )
-    _, _, curved, straight, _ = _cesium((float(eta), float(zeta), 4.6, red))
+    return float(eta), float(zeta)
+
+
+def _rubidium(args):
+    waist, red = args
+    _, _, curved, straight, _ = _cesium((*_eta_zeta("Rb87", waist), 4.6, red))
     return waist, red, curved, straight
 
 
@@ -248,17 +253,7 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--workers", type=int, default=2)
     args = parser.parse_args()
-    cs = species("Cs133")
-    eta, _, zeta = capture.dimensionless(
-        waist=5e-3,
-        detuning=-cs.linewidth_hz,
-        gradient=0.10,
-        wavenumber=cs.wavenumber,
-        linewidth=cs.linewidth,
-        mass=cs.mass,
-        zeeman_coefficient=cs.zeeman_coefficient,
-    )
-    eta, zeta = float(eta), float(zeta)
+    eta, zeta = _eta_zeta("Cs133", 5e-3)
     checks = [(50.0, 5.0, 2.0, 5.0), (20.0, 1.0, 1.0, 2.0), (eta, 150.0, 3.0, zeta)]
     reds = [1.5, 2.0, 2.5, 3.0, 3.5, 4.0, 4.5, 5.0]
     grid = [(eta, zeta, s0, red) for s0 in (15.0, 150.0) for red in reds]
