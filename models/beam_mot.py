@@ -346,6 +346,7 @@ class BeamLoadedMOT(VaporCellMOT):
             linewidth=sp.linewidth,
             mass=sp.mass,
             zeeman_coefficient=sp.zeeman_coefficient,
+            curved_paths=False,  # the six-beam trap's factor; nothing stops in a trap here
         )
         flags[transverse.extrapolating] |= Validity.EXTRAPOLATING
         s_all = 4.0 * s0

@@ -4,8 +4,9 @@ The loading rate counts the atoms that enter the light from every direction and
 at every impact parameter and are slowed below a stop speed while inside the
 trap region. It is averaged once, in dimensionless variables, for the aligned
 trap (a shipped table, ``models/data/capture_table.json``, written by
-``benchmarks/make_capture_table.py``) and corrected smoothly for imbalance,
-clipping and a displaced trap centre.
+``benchmarks/make_capture_table.py``, times a curved-path factor from 3-D
+trajectories) and corrected smoothly for imbalance, clipping and a displaced trap
+centre.
 
 Conventions
 -----------
@@ -22,9 +23,11 @@ Conventions
   than a from each axis (the trajectories stay).
 * Capture: an atom is captured when it is slowed below ``STOP_SPEED`` (in units
   of Gamma / k: 1.2 m/s for Rb-87) inside the trap region, the sphere of radius
-  ``TRAP_RADIUS`` w (one waist) around the field zero. Each line is integrated
-  straight (the transverse deflection while slowing is neglected: the 3-D
-  reference of :mod:`capture_reference` measures what that costs).
+  ``TRAP_RADIUS`` w (one waist) around the field zero. The table integrates each
+  line straight; a second, coarser table (:mod:`curved_paths`, written by
+  ``benchmarks/make_capture_correction.py``) carries it to curved 3-D paths, which
+  the transverse push bends (fast atoms miss, slow ones from beyond the trap disk
+  arrive), with the force law and criterion of :mod:`capture_reference`.
 * Loading: with ``vc(line)`` the capture speed along a line, the rate is the
   Maxwell-Boltzmann flux slower than vc, summed over lines (kinetic theory,
   Foot 2005 ch. 9): ``R = (1/4) n A vbar < P(2, vc^2 / vp^2) >`` over all
@@ -48,6 +51,9 @@ from typing import NamedTuple
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import constants as sc
+
+from trapbudget.models.curved_paths import curved_path_factor
+from trapbudget.models.table_grid import grid_coordinates, grid_geometry, read_data
 
 __all__ = [
     "CENTRE_DECAY",
@@ -328,21 +334,12 @@ _TABLE: list = []
 def _table():
     """The shipped table and its grid (decoded once, on first use)."""
     if not _TABLE:
-        import json
-        from importlib import resources
-
-        data = json.loads(
-            (resources.files("trapbudget.models") / "data" / TABLE_FILE).read_text("utf-8")
-        )
-        GRID = tuple(tuple(row) for row in data["grid"])
-        BOUNDS, TABLE = tuple(data["bounds"]), data["table"]
-        if GRID != TABLE_GRID:
+        data = read_data(TABLE_FILE)
+        if tuple(tuple(row) for row in data["grid"]) != TABLE_GRID:
             raise RuntimeError(f"data/{TABLE_FILE} does not match TABLE_GRID; regenerate it")
-        lows = np.array([math.log(lo + off) for _, lo, _, _, off in TABLE_GRID])
-        highs = np.array([math.log(hi + off) for _, _, hi, _, off in TABLE_GRID])
-        steps = (highs - lows) / np.array([n - 1 for *_, n, _ in TABLE_GRID])
-        offsets = np.array([off for *_, off in TABLE_GRID])
-        _TABLE.extend([decode_table("".join(TABLE), BOUNDS), lows, steps, offsets, highs])
+        lows, steps, offsets, highs = grid_geometry(TABLE_GRID)
+        table = decode_table("".join(data["table"]), tuple(data["bounds"]))
+        _TABLE.extend([table, lows, steps, offsets, highs])
     return _TABLE
 
 
@@ -368,15 +365,7 @@ def aligned_moments(
     parts = np.broadcast_arrays(
         *(np.asarray(a, float) for a in (eta, saturation, red_detuning, zeta))
     )
-    shape = parts[0].shape
-    with np.errstate(divide="ignore", invalid="ignore"):
-        coords = np.stack(
-            [
-                np.log(np.maximum(p.reshape(-1) + o, 1e-300))
-                for p, o in zip(parts, offsets, strict=True)
-            ],
-            axis=1,
-        )
+    coords, shape = grid_coordinates(offsets, *parts)
     outside = np.any((coords < lows - 1e-9) | (coords > highs + 1e-9), axis=1)
     out = np.empty((coords.shape[0], 2))
     _kernels.interpolate(table, lows, steps, np.ascontiguousarray(coords), INTERPOLATION, out)
@@ -440,6 +429,7 @@ def capture(
     imbalance: ArrayLike = 0.0,
     aperture_radius: ArrayLike = np.inf,
     bright_fraction: ArrayLike = 1.0,
+    curved_paths: bool = True,
 ) -> CaptureResult:
     """Loading rate and effective capture velocity of a six-beam MOT in a vapor.
 
@@ -467,6 +457,10 @@ def capture(
         Clear radius of the limiting optic.
     bright_fraction : array_like
         Fraction of atoms in the cycling states.
+    curved_paths : bool
+        Apply the curved-path factor of the six-beam trap
+        (:func:`~trapbudget.models.curved_paths.curved_path_factor`); False keeps the
+        straight lines (a 2D-MOT's transverse capture, which has no trap region to stop in).
 
     Returns
     -------
@@ -474,8 +468,9 @@ def capture(
 
     Notes
     -----
-    The aligned-trap means of vc^4 and vc^6 come from the table. Smooth corrections
-    (validated against the line integrals of the real geometry in the tests):
+    The aligned-trap means of vc^4 and vc^6 come from the table times the curved-path
+    factor of :mod:`curved_paths` (vc^6 with the factor to the power 1.5). Smooth
+    corrections (validated against the line integrals of the real geometry in the tests):
 
     * imbalance: the returning beams carry s0 (1 - eps); half of the lines are slowed
       by them, so the table is evaluated at the geometric mean s0 sqrt(1 - eps)
@@ -515,6 +510,12 @@ def capture(
     m4, m6, outside = aligned_moments(
         np.where(live, eta, 1.0), np.where(live, s_eff, 1.0), np.where(live, red, 1.0), zeta
     )
+    if curved_paths:  # curved 3-D paths instead of straight lines (aligned trap)
+        curved = curved_path_factor(
+            np.where(live, eta, 1.0), np.where(live, s_eff, 1.0), np.where(live, red, 1.0), zeta
+        )
+        m4 = m4 * curved
+        m6 = m6 * curved**1.5
     vp = np.asarray(most_probable_speed, float) / (linewidth / wavenumber)
     geometry = transmitted * np.exp(-CENTRE_DECAY * c * c)
     flux = np.where(live, _flux_below(m4, m6, vp) * geometry, 0.0)

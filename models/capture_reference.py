@@ -20,8 +20,13 @@ Numerical error (measured on the Rb-87 default trap, 2026-12-02): the ODE tolera
 matter (rtol = 1e-6 and 1e-8 give the same capture decisions on 96 lines); 14 bisection
 steps agree with 20 to 1e-4 in the mean of v^4. The line quadrature is the coarse part: a
 set of 6 x 8 directions and 4 x 6 offsets gives the straight-line kernel a mean of v^4 8 %
-above its converged value, so the reference is compared with the straight-line kernel on
-the *same* lines (their ratio measures the physics, not the quadrature).
+above its converged value. Curved paths need far more directions (measured 2026-12-03 with
+the compiled integrator of ``benchmarks/capture_3d_scan.py``): on a weak-capture trap
+(eta 2, s0 4.2, -delta 2 Gamma, zeta 1.76) 48, 192 and 640 directions over the whole sphere
+give 3.5, 6.4 and 8.7, and 8 x 6 and 12 x 10 directions over the symmetric sixteenth 9.2
+and 9.5. For the aligned trap use the symmetric set of :func:`capture.line_quadrature`
+with impacts scaled to 1.5 trap radii; comparisons on the coarse default set hold only
+on the *same* lines.
 """
 
 from __future__ import annotations
