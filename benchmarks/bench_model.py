@@ -323,12 +323,13 @@ def main() -> None:
         floor = capture.STOP_SPEED**4
         curved = np.maximum([r[1] for r in rows], floor)
         print(
-            f"compiled 3-D paths vs the solve_ivp reference (same 360 lines, two traps): "
+            f"compiled 3-D paths vs the solve_ivp reference (same "
+            f"{len(capture.line_quadrature(3, 3, 3, 6)[2])} lines, two traps): "
             f"{', '.join(f'{a:.4f}' for a in agree)}"
         )
         print(
             f"loading rate (mean vc^4) against curved 3-D paths, {len(rows)} aligned traps, "
-            f"{len(capture.line_quadrature(*CURVED_LINES))} lines each ({seconds:.0f} s, "
+            f"{len(capture.line_quadrature(*CURVED_LINES)[2])} lines each ({seconds:.0f} s, "
             "two processes):"
         )
         for k, name in ((2, "model (table x curved-path factor)"), (3, "straight-line table")):

@@ -9,10 +9,11 @@ trajectories over the table's) is tabulated on a coarse grid over the working ra
 and capture criterion of :mod:`capture_reference`, over the aligned trap's symmetric
 directions and impact parameters out to 1.5 trap radii) and interpolated here.
 
-Accuracy (measured 2026-12-03, 100 random aligned Rb-87 traps of 2-12 mm waist, 0.5-30
-I_sat per beam, 1-4 linewidths of detuning, 4-25 G/cm, against 3-D trajectories over 3072
-lines): the mean vc^4 of the model is within 12.7 % RMS (56 % at most, in weak-capture
-corners) where the straight-line table alone was 36.5 % RMS (95 % at most).
+Accuracy (measured 2026-12-03 by ``benchmarks/bench_model.py``: 200 random aligned Rb-87
+traps of 2-12 mm waist, 0.5-30 I_sat per beam, 1-4 linewidths of detuning and 4-25 G/cm,
+against 3-D trajectories over 3072 lines): the model's mean vc^4 is within 16.4 % RMS of
+them (5.1 % RMS where the detuning is within 3 linewidths and s0 >= 2; 78 % at most, where
+the capture collapses), against 41.9 % RMS for the straight-line table alone.
 """
 
 from __future__ import annotations

@@ -62,10 +62,11 @@ ASSUMPTIONS: tuple[str, ...] = (
     "detuning, so the excited population never exceeds 1/2; force, scattering rate, "
     "temperature and bright fraction share this one saturation.",
     "The loading rate counts vapor atoms from every direction and impact parameter that are "
-    "slowed below Gamma/(4k) inside one waist of the field zero, each along a straight line "
-    "through the light counted within three waists of the beam crossing; it is tabulated once "
-    "for the aligned trap and corrected smoothly for imbalance, clipping and a displaced "
-    "trap centre.",
+    "slowed below Gamma/(4k) inside one waist of the field zero, through the light counted "
+    "within three waists of the beam crossing: tabulated once for the aligned trap along "
+    "straight lines, carried to curved 3-D paths by a coarse factor from 3-D trajectories "
+    "(about 5 % RMS near ordinary operating points, worse where the capture collapses), and "
+    "corrected smoothly for imbalance, clipping and a displaced trap centre.",
     "The loading-rate prefactor is a calibratable constant, so absolute atom numbers are only "
     "as good as its calibration; the shapes against power, detuning, gradient and beam size "
     "come from the physics.",

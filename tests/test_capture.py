@@ -101,7 +101,9 @@ def test_straight_lines_against_3d_trajectories(params, low, high):
     # independent reference: curved 3-D trajectories (scipy solve_ivp) on the same lines,
     # impact parameters out to 1.5 trap radii (curved paths from outside the trap disk are
     # captured too; straight lines there never are). Measured 3-D / straight = 0.98 on the Rb
-    # default; window from that measurement
+    # default; window from that measurement. These 48 directions are coarse for curved paths
+    # (the ratio is a check of the two solvers on the same lines, not the physics' ratio:
+    # test_model_capture_against_3d_trajectories uses the symmetric set)
     lines = capture_reference.reference_lines(6, 8, 4, 6, reach=1.5)
     ref4, _ = capture_reference.reference_moments(*params, lines=lines, n_bisect=12)
     line4, _ = line_average(*params, quadrature=lines)
