@@ -12,7 +12,7 @@ Run by hand (not in CI), on an otherwise quiet machine::
 2. Loading-rate error of the fast capture against curved 3-D trajectories (the force law
    and criterion of ``capture_reference``; the compiled integrator of
    ``capture_3d_scan.py``, checked in the same run against the scipy ``solve_ivp``
-   reference on one trap) on ``--trajectories`` random aligned Rb-87 traps (waist, power,
+   reference on two traps) on ``--trajectories`` random aligned Rb-87 traps (waist, power,
    detuning, gradient varied), over a converged symmetric line set (8 x 6 directions over
    one sixteenth of the sphere, 8 x 8 impact offsets out to 1.5 trap radii): RMS and
    maximum relative error of the mean vc^4, of the model (table times curved-path factor)
