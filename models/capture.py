@@ -334,9 +334,7 @@ _TABLE: list = []
 def _table():
     """The shipped table and its grid (decoded once, on first use)."""
     if not _TABLE:
-        data = read_data(TABLE_FILE)
-        if tuple(tuple(row) for row in data["grid"]) != TABLE_GRID:
-            raise RuntimeError(f"data/{TABLE_FILE} does not match TABLE_GRID; regenerate it")
+        data = read_data(TABLE_FILE, TABLE_GRID)
         lows, steps, offsets, highs = grid_geometry(TABLE_GRID)
         table = decode_table("".join(data["table"]), tuple(data["bounds"]))
         _TABLE.extend([table, lows, steps, offsets, highs])
@@ -507,13 +505,15 @@ def capture(
         bright_fraction=bright_fraction,
     )
     live = (s_eff > 0) & (red > 0) & (eta > 0)
-    m4, m6, outside = aligned_moments(
-        np.where(live, eta, 1.0), np.where(live, s_eff, 1.0), np.where(live, red, 1.0), zeta
+    variables = (
+        np.where(live, eta, 1.0),
+        np.where(live, s_eff, 1.0),
+        np.where(live, red, 1.0),
+        zeta,
     )
+    m4, m6, outside = aligned_moments(*variables)
     if curved_paths:  # curved 3-D paths instead of straight lines (aligned trap)
-        curved = curved_path_factor(
-            np.where(live, eta, 1.0), np.where(live, s_eff, 1.0), np.where(live, red, 1.0), zeta
-        )
+        curved = curved_path_factor(*variables)
         m4 = m4 * curved
         m6 = m6 * curved**1.5
     vp = np.asarray(most_probable_speed, float) / (linewidth / wavenumber)

@@ -44,11 +44,7 @@ _CORRECTION: list = []
 def _correction():
     """The shipped curved-path correction and its grid (read once, on first use)."""
     if not _CORRECTION:
-        data = read_data(CORRECTION_FILE)
-        if tuple(tuple(row) for row in data["grid"]) != CORRECTION_GRID:
-            raise RuntimeError(
-                f"data/{CORRECTION_FILE} does not match CORRECTION_GRID; regenerate it"
-            )
+        data = read_data(CORRECTION_FILE, CORRECTION_GRID)
         shape = tuple(n for *_, n, _ in CORRECTION_GRID)
         table = np.asarray(data["log_ratio"], float).reshape(*shape, 1)
         lows, steps, offsets, _ = grid_geometry(CORRECTION_GRID)

@@ -40,9 +40,12 @@ def grid_coordinates(offsets: NDArray, *values: ArrayLike) -> tuple[NDArray, tup
     return coords, parts[0].shape
 
 
-def read_data(name: str) -> dict:
-    """A JSON data file shipped in models/data/."""
+def read_data(name: str, grid) -> dict:
+    """A JSON data file shipped in models/data/, checked to be tabulated on ``grid``."""
     import json
     from importlib import resources
 
-    return json.loads((resources.files("trapbudget.models") / "data" / name).read_text("utf-8"))
+    data = json.loads((resources.files("trapbudget.models") / "data" / name).read_text("utf-8"))
+    if tuple(tuple(row) for row in data["grid"]) != tuple(grid):
+        raise RuntimeError(f"data/{name} does not match the grid of its module; regenerate it")
+    return data
