@@ -57,8 +57,39 @@ def _no_op() -> None:
     return None
 
 
+def _exit_with_parent() -> None:
+    """Stop this worker when the process that started the pool dies.
+
+    A killed caller (SIGKILL, an out-of-memory kill) cannot shut its pool down, and the
+    workers never see the task pipe close: each holds a copy of its write end. They would
+    sleep on, orphaned, for good. A daemon thread waits on multiprocessing's parent
+    sentinel, a pipe the caller holds open, and exits the process when it closes. (The
+    parent process id is no guide: a fork server's worker keeps its server alive, since
+    it holds the server's keep-alive pipe.)
+    """
+    import multiprocessing
+    import threading
+    from multiprocessing.connection import wait
+
+    parent = multiprocessing.parent_process()
+    if parent is None:  # pragma: no cover - not started by multiprocessing
+        return
+
+    def watch() -> None:
+        wait([parent.sentinel])
+        os._exit(1)
+
+    threading.Thread(target=watch, name="trapbudget-parent-watch", daemon=True).start()
+
+
+def _start_worker() -> None:
+    """Worker start-up: stop with the parent, and one BLAS thread per process."""
+    _exit_with_parent()
+    _one_blas_thread()
+
+
 def _one_blas_thread() -> None:
-    """Worker start-up: one BLAS thread per process.
+    """One BLAS thread per process.
 
     The pool already gives each core a process; OpenBLAS's own threads (two here, one
     per core) would then compete with the other worker. They bring nothing even in one
@@ -110,7 +141,7 @@ class _LocalPool:
             # the server imports these once; every worker it forks then starts with them
             context.set_forkserver_preload(["scipy.linalg", "trapbudget.models.trap"])
         self._pool = ProcessPoolExecutor(
-            max_workers=self.workers, mp_context=context, initializer=_one_blas_thread
+            max_workers=self.workers, mp_context=context, initializer=_start_worker
         )
 
     def submit(self, function: Callable[..., Any], *args: Any) -> Any:

@@ -11,6 +11,9 @@ from __future__ import annotations
 import dataclasses
 import json
 import multiprocessing
+import subprocess
+import sys
+import time
 from concurrent.futures import ProcessPoolExecutor
 from importlib import resources
 
@@ -181,6 +184,48 @@ def test_pool_workers_keep_to_one_blas_thread_each():
         pool = current_executor(AUTO_MIN_SAMPLES, 8)
         counts = [pool.submit(_blas_threads).result() for _ in range(4)]
     assert all(count and set(count) == {1} for count in counts), counts
+
+
+_KILLED_CALLER = """
+import os, sys, threading, time
+from trapbudget.sensitivity.executors import current_executor, running_on
+if sys.argv[1] == "forkserver":
+    threading.Thread(target=time.sleep, args=(600,), daemon=True).start()
+with running_on(workers=2):
+    pool = current_executor(2**20, 8)
+    pids = {pool.submit(os.getpid).result() for _ in range(8)}
+    print(pool._method, *sorted(pids), flush=True)
+    time.sleep(600)
+"""
+
+
+def _alive(pid: int) -> bool:
+    try:
+        with open(f"/proc/{pid}/stat") as stat:
+            return stat.read().rsplit(")", 1)[1].split()[0] != "Z"  # a zombie is dead
+    except FileNotFoundError:
+        return False
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc (Linux)")
+@pytest.mark.parametrize("method", ["fork", "forkserver"])
+def test_pool_workers_stop_when_their_caller_is_killed(method):
+    # A caller killed with SIGKILL cannot shut its pool down; its workers must not stay
+    # behind asleep (they hold the task pipe's write end, so they never see it close).
+    caller = subprocess.Popen(
+        [sys.executable, "-c", _KILLED_CALLER, method], stdout=subprocess.PIPE, text=True
+    )
+    try:
+        started, *pids = caller.stdout.readline().split()
+        assert started == method and pids
+        assert all(_alive(int(pid)) for pid in pids)
+    finally:
+        caller.kill()
+        caller.wait(timeout=30)
+    deadline = time.monotonic() + 20
+    while time.monotonic() < deadline and any(_alive(int(pid)) for pid in pids):
+        time.sleep(0.1)
+    assert not any(_alive(int(pid)) for pid in pids), pids
 
 
 def test_a_process_with_other_threads_is_not_forked(scenario):
