@@ -16,7 +16,12 @@ Run by hand (not in CI), on an otherwise quiet machine::
    detuning, gradient varied), over a converged symmetric line set (8 x 6 directions over
    one sixteenth of the sphere, 8 x 8 impact offsets out to 1.5 trap radii): RMS and
    maximum relative error of the mean vc^4, of the model (table times curved-path factor)
-   and of the straight-line table alone, on two processes.
+   and of the straight-line table alone, on two processes. Then the reference's own
+   quadrature error: that line set against a finer one (12 x 10 directions, 10 x 10
+   impact offsets; 12000 lines) on ``--reference-traps`` of those traps. It bounds what
+   the comparison above can resolve (measured 2026-12-03 on 16 random traps: 6.7 % RMS,
+   19 % max, all in weak-capture traps; the 600 lines of the correction's generator
+   13.9 % RMS, 31 % max).
 3. The geometry part, on ``--samples`` random traps (offset, stray field, imbalance,
    aperture and vapor temperature varied too), against straight-line integrals of the
    real, unsymmetric geometry with a converged quadrature (20 x 32 directions, 5 x 8
@@ -181,14 +186,8 @@ def curved_factor(case) -> float:
 
 def _curved_check(case):
     """Mean vc^4 of the aligned trap: compiled 3-D paths, the model, the table alone."""
-    from capture_3d_scan import trajectory_speeds
-
     (eta, s0, red, zeta), _ = _table_args(case)
-    d, i, w = capture.line_quadrature(*CURVED_LINES, symmetric=True)
-    d, i, w = np.ascontiguousarray(d), np.ascontiguousarray(i * 1.5), w * 2.25
-    speeds = np.empty(len(w))
-    trajectory_speeds(eta, s0, -2.0 * red, zeta, d, i, 12, speeds)
-    curved = float(np.sum(w * speeds**4))
+    curved = _curved_m4((eta, s0, red, zeta), CURVED_LINES)
     table = float(capture.aligned_moments(eta, s0, red, zeta)[0])
     model = table * float(curved_paths.curved_path_factor(eta, s0, red, zeta))
     return (eta, s0, red, zeta), curved, model, table
@@ -208,6 +207,29 @@ def _solver_check(params):
 
 #: Symmetric line set of the 3-D check: directions (polar, azimuth), impacts (radial, angle).
 CURVED_LINES = (8, 6, 8, 8)
+
+
+#: Finer symmetric line set for the reference's own quadrature error.
+FINE_LINES = (12, 10, 10, 10)
+
+
+def _curved_m4(params, spec) -> float:
+    """Mean vc^4 of the aligned trap over a symmetric line set (compiled 3-D paths)."""
+    from capture_3d_scan import trajectory_speeds
+
+    eta, s0, red, zeta = params
+    d, i, w = capture.line_quadrature(*spec, symmetric=True)
+    d, i, w = np.ascontiguousarray(d), np.ascontiguousarray(i * 1.5), w * 2.25
+    speeds = np.empty(len(w))
+    trajectory_speeds(eta, s0, -2.0 * red, zeta, d, i, 12, speeds)
+    return float(np.sum(w * speeds**4))
+
+
+def _reference_check(params) -> float:
+    """The 3-D check's line set against the finer one, on one trap (relative error)."""
+    floor = capture.STOP_SPEED**4
+    fine = max(_curved_m4(params, FINE_LINES), floor)
+    return max(_curved_m4(params, CURVED_LINES), floor) / fine - 1
 
 
 def _rate_from_speeds(case, speeds, weights):
@@ -281,6 +303,9 @@ def main() -> None:
     parser.add_argument(
         "--trajectories", type=int, default=200, help="aligned traps for the 3-D check"
     )
+    parser.add_argument(
+        "--reference-traps", type=int, default=8, help="traps for the reference's own error"
+    )
     parser.add_argument("--seed", type=int, default=1)
     args = parser.parse_args()
     rng = np.random.default_rng(args.seed)
@@ -342,6 +367,19 @@ def main() -> None:
                 f"  model, detuning within 3 Gamma and s0 >= 2 ({strong.sum()} traps): RMS "
                 f"{np.sqrt(np.mean(e[strong] ** 2)):.1%}, max {np.max(np.abs(e[strong])):.1%}; "
                 f"the rest: RMS {np.sqrt(np.mean(e[~strong] ** 2)):.1%}"
+            )
+
+        checked = [r[0] for r in rows[: args.reference_traps]]
+        if checked:
+            start = time.perf_counter()
+            with ProcessPoolExecutor(2) as pool:
+                e = np.array(list(pool.map(_reference_check, checked)))
+            print(
+                f"  the reference's own quadrature error "
+                f"({len(capture.line_quadrature(*CURVED_LINES)[2])} lines against "
+                f"{len(capture.line_quadrature(*FINE_LINES)[2])}, {len(e)} traps, "
+                f"{time.perf_counter() - start:.0f} s): RMS {np.sqrt(np.mean(e**2)):.1%}, "
+                f"max {np.max(np.abs(e)):.1%}"
             )
 
     cases = traps(args.samples, rng)

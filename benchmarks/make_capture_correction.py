@@ -15,6 +15,9 @@ value at that node.
 
 - Both means are floored at ``STOP_SPEED^4`` (where the capture has collapsed the ratio
   is 1, not the ratio of two vanishing numbers).
+- Node accuracy (measured 2026-12-03 on 16 random Rb traps against 12000 lines): this
+  line set is 13.9 % RMS, 31 % max off (weak-capture traps); (6, 5, 4, 5), of the same
+  cost, 9.0 % RMS. Switch at the next regeneration (it changes the demo data).
 - The zeta = 0 column (no field gradient: no trap, and no drift of slowed atoms into the
   trap region within the integration time) holds the values of the first trapping column.
 """
